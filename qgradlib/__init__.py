@@ -1,0 +1,13 @@
+"""qgradlib: parameter-shift gradients, curvature and shot accounting for quantum circuits."""
+from . import gates
+from .circuit import Circuit, Operation
+from .expectation import expect, probabilities, sample, state
+from .gates import Gate
+from .ledger import Ledger
+from .observables import Observable
+from .shift_rules import ShiftRule
+
+__version__ = "0.1.0"
+
+__all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", "expect",
+           "probabilities", "state", "sample", "gates", "__version__"]

@@ -1,0 +1,299 @@
+"""Circuit: a list of operations and the linear map from parameters to gate angles.
+
+Each parametric operation's angle is ``scale * theta[param] + offset`` or a fixed number.
+That map is the only place parameters are shared or scaled, so the chain rule of every
+derivative method is ``A.T @ dE/dphi`` with ``A`` its matrix.
+
+Examples
+--------
+>>> import numpy as np
+>>> import qgradlib as qg
+>>> c = qg.Circuit(2).h(0).ry(1).cnot(0, 1).rz(1, param=0, scale=2.0).rx(0, angle=0.25)
+>>> c.n_params
+1
+>>> c.angles(np.array([0.5])).tolist()
+[0.5, 1.0, 0.25]
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from numbers import Real
+
+import autograd.numpy as anp
+import numpy as np
+
+from . import gates as _g
+from .gates import Gate
+
+__all__ = ["Circuit", "Operation"]
+
+
+@dataclass(frozen=True)
+class Operation:
+    """One gate on some qubits; for parametric gates, how its angle is formed."""
+
+    gate: Gate
+    qubits: tuple
+    param: int | None = None
+    scale: float = 1.0
+    offset: float = 0.0
+    angle: float | None = None
+
+    @property
+    def trainable(self) -> bool:
+        return self.param is not None
+
+
+class Circuit:
+    """A parameterised circuit on ``n_qubits`` qubits.
+
+    Gate methods append one operation and return the circuit, so calls chain. A parametric
+    method takes ``param=`` (an existing parameter index, or omitted for a new one),
+    ``scale=`` and ``offset=`` (angle = scale * theta[param] + offset), or ``angle=`` for a
+    fixed, untrainable angle.
+    """
+
+    def __init__(self, n_qubits: int):
+        if isinstance(n_qubits, (bool, np.bool_)) or not isinstance(n_qubits, (int, np.integer)) \
+                or n_qubits < 1:
+            raise ValueError(f"n_qubits must be a positive int; got {n_qubits!r}")
+        self._n = int(n_qubits)
+        self._ops: list[Operation] = []
+        self._n_params = 0
+        self._cache = None
+
+    # -- read-only views ------------------------------------------------------------------
+    @property
+    def n_qubits(self) -> int:
+        return self._n
+
+    @property
+    def n_params(self) -> int:
+        """Length of the parameter vector theta."""
+        return self._n_params
+
+    @property
+    def operations(self) -> tuple:
+        """The operations in order (a tuple of frozen `Operation`)."""
+        return tuple(self._ops)
+
+    @property
+    def parametric_operations(self) -> tuple:
+        """The operations with an angle, in the order of the columns of `angles`."""
+        return tuple(op for op in self._ops if op.gate.parametric)
+
+    def __len__(self):
+        return len(self._ops)
+
+    def __repr__(self):
+        return f"Circuit(n_qubits={self._n}, operations={len(self._ops)}, n_params={self._n_params})"
+
+    # -- building -------------------------------------------------------------------------
+    def add(self, gate: Gate, qubits, param=None, *, scale=1.0, offset=0.0, angle=None):
+        """Append ``gate`` on ``qubits`` (an int or a sequence of ints).
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> import qgradlib as qg
+        >>> M = np.kron(np.diag([1.0, -1.0]), np.diag([1.0, -1.0])) / 2
+        >>> qg.Circuit(2).add(qg.Gate.from_generator("zz", M), (0, 1)).n_params
+        1
+        """
+        if not isinstance(gate, Gate):
+            raise TypeError(f"gate must be a qgradlib Gate; got {type(gate).__name__}")
+        qs = self._qubits(qubits, gate)
+        if not gate.parametric:
+            if param is not None or angle is not None or scale != 1.0 or offset != 0.0:
+                raise ValueError(f"gate {gate.name!r} is fixed: it takes no param, angle, scale or offset")
+            return self._append(Operation(gate, qs))
+        if angle is not None:
+            if param is not None:
+                raise ValueError("give either param= (trainable) or angle= (fixed), not both")
+            if scale != 1.0 or offset != 0.0:
+                raise ValueError("scale= and offset= apply to trainable angles; with angle= give the final value")
+            return self._append(Operation(gate, qs, angle=_finite(angle, "angle")))
+        if param is None:
+            param = self._n_params
+        if isinstance(param, (bool, np.bool_)) or not isinstance(param, (int, np.integer)) or param < 0:
+            raise ValueError(f"param must be a non-negative int; got {param!r}")
+        if param > self._n_params:
+            raise ValueError(f"param={param} skips ahead: the next new parameter is {self._n_params}")
+        op = Operation(gate, qs, int(param), _finite(scale, "scale"), _finite(offset, "offset"))
+        self._n_params = max(self._n_params, int(param) + 1)
+        return self._append(op)
+
+    def _append(self, op):
+        self._ops.append(op)
+        self._cache = None
+        return self
+
+    def _qubits(self, qubits, gate):
+        if isinstance(qubits, (int, np.integer)) and not isinstance(qubits, (bool, np.bool_)):
+            qs = (int(qubits),)
+        else:
+            try:
+                qs = tuple(qubits)
+            except TypeError:
+                raise TypeError(f"qubits must be an int or a sequence of ints; got {qubits!r}") from None
+            for q in qs:
+                if isinstance(q, (bool, np.bool_)) or not isinstance(q, (int, np.integer)):
+                    raise TypeError(f"qubits must be ints; got {q!r}")
+            qs = tuple(int(q) for q in qs)
+        for q in qs:
+            if not 0 <= q < self._n:
+                raise ValueError(f"qubit {q} is out of range for a circuit of {self._n} qubits (0..{self._n - 1})")
+        if len(set(qs)) != len(qs):
+            raise ValueError(f"qubits {qs} repeat a qubit: a gate acts on distinct qubits")
+        if len(qs) != gate.n_qubits:
+            raise ValueError(f"gate {gate.name!r} acts on {gate.n_qubits} qubit(s); got qubits {qs}")
+        return qs
+
+    def copy(self) -> "Circuit":
+        out = Circuit(self._n)
+        out._ops = list(self._ops)
+        out._n_params = self._n_params
+        return out
+
+    def __add__(self, other):
+        """Concatenate: ``other``'s parameters are renumbered to follow ``self``'s."""
+        if not isinstance(other, Circuit):
+            return NotImplemented
+        if other._n != self._n:
+            raise ValueError(f"cannot concatenate circuits on {self._n} and {other._n} qubits")
+        out = self.copy()
+        shift = self._n_params
+        for op in other._ops:
+            if op.param is not None:
+                op = Operation(op.gate, op.qubits, op.param + shift, op.scale, op.offset)
+            out._ops.append(op)
+        out._n_params = self._n_params + other._n_params
+        return out
+
+    # -- the angle map --------------------------------------------------------------------
+    def angle_map(self):
+        """``(A, b)``: gate angles ``phi = theta @ A.T + b``; A has shape (G, n_params)."""
+        if self._cache is None:
+            pops = self.parametric_operations
+            A = np.zeros((len(pops), self._n_params))
+            b = np.zeros(len(pops))
+            idx = np.zeros(len(pops), dtype=int)
+            scale = np.zeros(len(pops))
+            for k, op in enumerate(pops):
+                if op.param is None:
+                    b[k] = op.angle
+                else:
+                    A[k, op.param] = op.scale
+                    b[k] = op.offset
+                    idx[k] = op.param
+                    scale[k] = op.scale
+            self._cache = (A, b, idx, scale)
+        return self._cache[0], self._cache[1]
+
+    def angles(self, theta):
+        """Gate angles for parameters ``theta`` of shape (n_params,) or (B, n_params).
+
+        Differentiable with autograd; returns shape (G,) or (B, G).
+        """
+        theta = check_theta(self, theta)
+        self.angle_map()
+        _, b, idx, scale = self._cache
+        if self._n_params == 0:
+            return anp.zeros(theta.shape[:-1] + (b.size,)) + b
+        return theta[..., idx] * scale + b
+
+    # -- standard gates -------------------------------------------------------------------
+    def h(self, q): return self.add(_g.H, q)  # noqa: E704
+    def x(self, q): return self.add(_g.X, q)  # noqa: E704
+    def y(self, q): return self.add(_g.Y, q)  # noqa: E704
+    def z(self, q): return self.add(_g.Z, q)  # noqa: E704
+    def s(self, q): return self.add(_g.S, q)  # noqa: E704
+    def t(self, q): return self.add(_g.T, q)  # noqa: E704
+    def sx(self, q): return self.add(_g.SX, q)  # noqa: E704
+    def cnot(self, control, target): return self.add(_g.CNOT, (control, target))  # noqa: E704
+    def cz(self, a, b): return self.add(_g.CZ, (a, b))  # noqa: E704
+    def swap(self, a, b): return self.add(_g.SWAP, (a, b))  # noqa: E704
+
+    def rx(self, q, param=None, *, scale=1.0, offset=0.0, angle=None):
+        """RX(a) = expm(-1j * a * X / 2)."""
+        return self.add(_g.RX, q, param, scale=scale, offset=offset, angle=angle)
+
+    def ry(self, q, param=None, *, scale=1.0, offset=0.0, angle=None):
+        """RY(a) = expm(-1j * a * Y / 2)."""
+        return self.add(_g.RY, q, param, scale=scale, offset=offset, angle=angle)
+
+    def rz(self, q, param=None, *, scale=1.0, offset=0.0, angle=None):
+        """RZ(a) = expm(-1j * a * Z / 2)."""
+        return self.add(_g.RZ, q, param, scale=scale, offset=offset, angle=angle)
+
+    def phase(self, q, param=None, *, scale=1.0, offset=0.0, angle=None):
+        """PHASE(a) = diag(1, exp(1j * a))."""
+        return self.add(_g.PHASE, q, param, scale=scale, offset=offset, angle=angle)
+
+    def crx(self, control, target, param=None, *, scale=1.0, offset=0.0, angle=None):
+        """RX on ``target`` controlled by ``control``."""
+        return self.add(_g.CRX, (control, target), param, scale=scale, offset=offset, angle=angle)
+
+    def cry(self, control, target, param=None, *, scale=1.0, offset=0.0, angle=None):
+        """RY on ``target`` controlled by ``control``."""
+        return self.add(_g.CRY, (control, target), param, scale=scale, offset=offset, angle=angle)
+
+    def crz(self, control, target, param=None, *, scale=1.0, offset=0.0, angle=None):
+        """RZ on ``target`` controlled by ``control``."""
+        return self.add(_g.CRZ, (control, target), param, scale=scale, offset=offset, angle=angle)
+
+    def cphase(self, a, b, param=None, *, scale=1.0, offset=0.0, angle=None):
+        """diag(1, 1, 1, exp(1j * a))."""
+        return self.add(_g.CPHASE, (a, b), param, scale=scale, offset=offset, angle=angle)
+
+    def rxx(self, a, b, param=None, *, scale=1.0, offset=0.0, angle=None):
+        """expm(-1j * a * XX / 2)."""
+        return self.add(_g.RXX, (a, b), param, scale=scale, offset=offset, angle=angle)
+
+    def ryy(self, a, b, param=None, *, scale=1.0, offset=0.0, angle=None):
+        """expm(-1j * a * YY / 2)."""
+        return self.add(_g.RYY, (a, b), param, scale=scale, offset=offset, angle=angle)
+
+    def rzz(self, a, b, param=None, *, scale=1.0, offset=0.0, angle=None):
+        """expm(-1j * a * ZZ / 2)."""
+        return self.add(_g.RZZ, (a, b), param, scale=scale, offset=offset, angle=angle)
+
+    def rot(self, q):
+        """A general single-qubit rotation RZ(c) RY(b) RZ(a): three new parameters a, b, c.
+
+        Decomposed into gates with two-term rules, so its gradient is exact.
+        """
+        return self.rz(q).ry(q).rz(q)
+
+
+def _finite(v, name):
+    if isinstance(v, bool) or not isinstance(v, (Real, np.floating, np.integer)):
+        raise TypeError(f"{name} must be a real number; got {type(v).__name__}")
+    v = float(v)
+    if not np.isfinite(v):
+        raise ValueError(f"{name} must be finite; got {v!r}")
+    return v
+
+
+def check_theta(circuit: Circuit, theta):
+    """Validate theta: shape (n_params,) or (B, n_params), real, finite. Keeps autograd boxes."""
+    from autograd.tracer import getval
+
+    raw = getval(theta)
+    if isinstance(raw, (list, tuple)):
+        raw = np.asarray(raw)
+        theta = raw
+    if not isinstance(raw, (np.ndarray, Real, np.generic)) or isinstance(raw, bool):
+        raise TypeError(f"theta must be a real array of shape ({circuit.n_params},) or "
+                        f"(B, {circuit.n_params}); got {type(raw).__name__}")
+    arr = np.asarray(raw)
+    if arr.dtype.kind not in "fiu" or arr.dtype == bool:
+        raise TypeError(f"theta must be a real numeric array; got dtype {arr.dtype}")
+    if arr.ndim == 0 or arr.ndim > 2 or arr.shape[-1] != circuit.n_params:
+        raise ValueError(f"theta must have shape ({circuit.n_params},) or (B, {circuit.n_params}); "
+                         f"got {arr.shape}")
+    if not np.all(np.isfinite(arr)):
+        raise ValueError("theta must be finite (found NaN or inf)")
+    if theta is raw and arr.dtype != float:
+        return arr.astype(float)
+    return theta

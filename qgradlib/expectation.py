@@ -1,0 +1,416 @@
+"""expect, probabilities, state, sample: the functions users call, and their derivatives.
+
+One autograd primitive, `evaluate`, maps a batch of gate-angle vectors ``phi`` (P, G) to
+measured values (P, K). Its vector-Jacobian product is registered right below it and follows
+the ``gradient=`` option:
+
+- ``"shift"``: the shift plan of every trainable column (`qgradlib.plans`) is evaluated as
+  one batch *through `evaluate` itself*, so the VJP is again differentiable (a shift of a
+  shift) and `autograd.hessian` works;
+- ``"finite-diff"``: central (or forward) differences, also through `evaluate`;
+- ``"adjoint"``: the exact adjoint method (first derivatives, simulator only).
+
+``theta -> phi`` is the circuit's linear angle map, written in autograd.numpy, so autograd
+applies the chain rule ``A.T @ dE/dphi`` for shared and scaled parameters by itself.
+"""
+from __future__ import annotations
+
+from collections import Counter
+from dataclasses import dataclass
+from numbers import Real
+
+import autograd.numpy as anp
+import numpy as np
+from autograd.extend import defvjp, primitive
+from autograd.tracer import Box, getval
+
+from . import ledger
+from .circuit import Circuit, check_theta
+from .engine import memory
+from .engine.adjoint import adjoint_gradient
+from .engine.measure import apply_observable, expectations, probabilities as _marginals
+from .engine.statevector import apply_diagonal, run
+from .measurement import make_rng, n_settings, sample_estimate
+from .observables import Observable
+from .plans import first_order_points
+
+__all__ = ["expect", "probabilities", "state", "sample", "evaluate", "METHODS"]
+
+METHODS = ("shift", "adjoint", "finite-diff")
+
+
+@dataclass(frozen=True, eq=False)
+class Spec:
+    """Everything about an evaluation except the angles: what to measure and how."""
+
+    circuit: Circuit
+    kind: str                      # "expect" or "probs"
+    observables: tuple = ()
+    qubits: tuple | None = None
+    shots: int | None = None
+    rng: np.random.Generator | None = None
+    gradient: str = "shift"
+    shift: float | None = None
+    fd_step: float | None = None
+    fd_kind: str = "central"
+    splits: int = 1
+    memory: int | None = None
+    columns: tuple = ()
+    settings: int = 1
+
+    @property
+    def n_out(self):
+        if self.kind == "expect":
+            return len(self.observables)
+        k = self.circuit.n_qubits if self.qubits is None else len(self.qubits)
+        return 2 ** k
+
+    def rule_options(self):
+        return dict(shift=self.shift, fd_step=self.fd_step, shots=self.shots,
+                    splits=self.splits, rng=self.rng)
+
+
+# -- the primitive and its derivative rules ---------------------------------------------------
+@primitive
+def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
+    """Measured values (P, K) at gate angles ``phi`` (P, G); identical rows run once."""
+    phi = np.asarray(phi, dtype=float)
+    P = phi.shape[0]
+    keys = [phi[p].tobytes() + (repr(sorted(inserts[p].items())).encode() if inserts else b"")
+            for p in range(P)]
+    first, inverse, rows = {}, np.empty(P, dtype=int), []
+    for p, key in enumerate(keys):
+        if key not in first:
+            first[key] = len(rows)
+            rows.append(p)
+        inverse[p] = first[key]
+    labels = [purposes] * P if isinstance(purposes, str) else list(purposes)
+    ledger.record(len(rows), spec.settings, spec.shots or 0, Counter(labels[r] for r in rows))
+    vals = _measure_rows(phi[rows], spec, None if inserts is None else [inserts[r] for r in rows])
+    return vals[inverse]
+
+
+def _measure_rows(phi, spec, inserts):
+    n = spec.circuit.n_qubits
+    per_row = 3 * 16 * 2 ** n
+    budget = spec.memory if spec.memory is not None else max(per_row, memory.available_bytes() // 4)
+    chunk = max(1, min(phi.shape[0], budget // per_row))
+    out = np.empty((phi.shape[0], spec.n_out))
+    for lo in range(0, phi.shape[0], chunk):
+        hi = min(lo + chunk, phi.shape[0])
+        psi = run(spec.circuit, phi[lo:hi], None if inserts is None else inserts[lo:hi])
+        out[lo:hi] = _readout(psi, spec)
+    return out
+
+
+def _readout(psi, spec):
+    n = spec.circuit.n_qubits
+    if spec.shots is None:
+        if spec.kind == "expect":
+            return expectations(psi, n, spec.observables)
+        return _marginals(psi, n, spec.qubits)
+    if spec.kind == "expect":
+        return np.array([[sample_estimate(row, n, obs, spec.shots, spec.rng)
+                          for obs in spec.observables] for row in psi])
+    p = _marginals(psi, n, spec.qubits)
+    p = np.clip(p, 0, None)
+    return np.stack([spec.rng.multinomial(spec.shots, r / r.sum()) for r in p]) / spec.shots
+
+
+def _jacobian(points, new_inserts, coeff, names, spec, P):
+    """(P, K, G) Jacobian from a plan's points; differentiable when ``points`` is a box."""
+    T = coeff.shape[1]
+    if T == 0:
+        return np.zeros((P, spec.n_out, coeff.shape[0]))
+    vals = anp.reshape(evaluate(points, spec, new_inserts, names), (P, T, spec.n_out))
+    return anp.einsum("gt,ptk->pkg", coeff, vals)
+
+
+def _shift_jacobian(phi, spec, inserts):
+    points, new_inserts, coeff, names = first_order_points(
+        spec.circuit, phi, inserts, spec.columns, **spec.rule_options())
+    return _jacobian(points, new_inserts, coeff, names, spec, np.shape(getval(phi))[0])
+
+
+def _fd_jacobian(ans, phi, spec, inserts):
+    P, G = np.shape(getval(phi))
+    h = spec.fd_step if spec.fd_step is not None else (1e-5 if spec.shots is None else 0.1)
+    steps = (h, -h) if spec.fd_kind == "central" else (h,)
+    T = len(steps) * len(spec.columns)
+    delta = np.zeros((T, G))
+    coeff = np.zeros((G, T))
+    names = []
+    for i, j in enumerate(spec.columns):
+        for s, step in enumerate(steps):
+            t = i * len(steps) + s
+            delta[t, j] = step
+            coeff[j, t] = (1.0 if step > 0 else -1.0) / (len(steps) * h)
+            names.append(spec.circuit.parametric_operations[j].gate.name)
+    points = anp.reshape(phi[:, None, :] + delta[None], (P * T, G))
+    ins = None if inserts is None else [row for row in inserts for _ in range(T)]
+    J = _jacobian(points, ins, coeff, names * P, spec, P)
+    if spec.fd_kind == "forward" and T:
+        # f'(a) ~ (f(a + h) - f(a)) / h: the value term, reused from the forward pass
+        base = np.zeros((G,))
+        base[list(spec.columns)] = 1.0 / h
+        J = J - anp.reshape(ans, (P, spec.n_out, 1)) * base
+    return J
+
+
+def _adjoint_vjp(phi, spec, g):
+    if isinstance(phi, Box) or isinstance(g, Box):
+        raise ValueError("gradient='adjoint' gives first derivatives only; for second and higher "
+                         "derivatives use gradient='shift' or qgradlib.curvature")
+    g = np.asarray(g, dtype=float)
+    n = spec.circuit.n_qubits
+    if spec.kind == "expect":
+        def apply(psi):
+            out = np.zeros_like(psi)
+            for k, obs in enumerate(spec.observables):
+                out += g[:, k, None] * apply_observable(psi, n, obs)
+            return out
+    else:
+        qubits = tuple(range(n)) if spec.qubits is None else spec.qubits
+
+        def apply(psi):
+            return apply_diagonal(psi.copy(), n, g.astype(complex), qubits)
+    return adjoint_gradient(spec.circuit, np.asarray(phi), apply, spec.columns)
+
+
+def _evaluate_vjp(ans, phi, spec, inserts=None, purposes="value"):
+    cache = {}
+
+    def jac():
+        # autograd's jacobian calls one VJP once per output: build the plan only once
+        if "J" not in cache:
+            if spec.gradient == "finite-diff":
+                cache["J"] = _fd_jacobian(ans, phi, spec, inserts)
+            else:
+                cache["J"] = _shift_jacobian(phi, spec, inserts)
+        return cache["J"]
+
+    def vjp(g):
+        if spec.gradient == "adjoint":
+            return _adjoint_vjp(phi, spec, g)
+        return anp.einsum("pk,pkg->pg", g, jac())
+    return vjp
+
+
+defvjp(evaluate, _evaluate_vjp)
+
+
+# -- argument checks ----------------------------------------------------------------------------
+def _check_circuit(circuit):
+    if not isinstance(circuit, Circuit):
+        raise TypeError(f"circuit must be a qgradlib Circuit; got {type(circuit).__name__}")
+
+
+def _check_shots(shots):
+    if shots is None:
+        return None
+    if isinstance(shots, (bool, np.bool_)) or not isinstance(shots, (int, np.integer)) or shots < 1:
+        raise ValueError(f"shots must be a positive int or None; got {shots!r}")
+    return int(shots)
+
+
+def _observables(observables, n):
+    single = isinstance(observables, Observable)
+    obs = [observables] if single else observables
+    if not isinstance(obs, (list, tuple)) or not obs:
+        raise TypeError("observables must be an Observable or a non-empty list of them; "
+                        f"got {type(observables).__name__}")
+    for o in obs:
+        if not isinstance(o, Observable):
+            raise TypeError(f"observables must be Observable instances; got {type(o).__name__}")
+        if o.n_qubits != n:
+            raise ValueError(f"observable on {o.n_qubits} qubits does not fit a circuit of {n} qubits "
+                             "(Pauli strings need one letter per qubit)")
+    return tuple(obs), single
+
+
+def _check_qubits(qubits, n):
+    if qubits is None:
+        return None
+    try:
+        qs = tuple(qubits)
+    except TypeError:
+        raise TypeError(f"qubits must be a sequence of ints; got {qubits!r}") from None
+    for q in qs:
+        if isinstance(q, (bool, np.bool_)) or not isinstance(q, (int, np.integer)):
+            raise TypeError(f"qubits must be ints; got {q!r}")
+        if not 0 <= q < n:
+            raise ValueError(f"qubit {q} is out of range for a circuit of {n} qubits")
+    if len(set(qs)) != len(qs) or not qs:
+        raise ValueError(f"qubits must be distinct and non-empty; got {qs}")
+    return tuple(int(q) for q in qs)
+
+
+def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, gradient="shift",
+          shift=None, fd_step=None, fd_kind="central", splits=1, memory_budget=None):
+    if gradient not in METHODS:
+        raise ValueError(f"gradient must be one of {METHODS}; got {gradient!r}")
+    shots = _check_shots(shots)
+    if gradient == "adjoint" and shots is not None:
+        raise ValueError("gradient='adjoint' needs the exact state, which a device never has: "
+                         "it cannot be combined with shots; use 'shift'")
+    if shift is not None:
+        if not isinstance(shift, Real) or not 0 < float(shift) < np.pi:
+            raise ValueError(f"shift must be a number in the open interval (0, pi); got {shift!r}")
+        shift = float(shift)
+    if fd_step is not None:
+        if not isinstance(fd_step, Real) or not np.isfinite(fd_step) or fd_step <= 0:
+            raise ValueError(f"fd_step must be a positive finite number; got {fd_step!r}")
+        fd_step = float(fd_step)
+    if fd_kind not in ("central", "forward"):
+        raise ValueError(f"fd_kind must be 'central' or 'forward'; got {fd_kind!r}")
+    if isinstance(splits, bool) or not isinstance(splits, (int, np.integer)) or splits < 1:
+        raise ValueError(f"splits must be a positive int; got {splits!r}")
+    if memory_budget is not None and (not isinstance(memory_budget, (int, np.integer)) or memory_budget < 1):
+        raise ValueError(f"memory must be a positive number of bytes; got {memory_budget!r}")
+    pops = circuit.parametric_operations
+    columns = tuple(k for k, op in enumerate(pops) if op.param is not None and op.scale != 0.0)
+    if kind == "expect":
+        words = {w: 1.0 for o in observables for w in o.terms}
+        union = Observable(words) if words else None
+        settings = (n_settings(union) if union is not None else 0) + sum(o.dense is not None for o in observables)
+    else:
+        settings = 1
+    # a guard at the call that asks for the state, not deep inside the engine
+    memory.guard(16 * 2 ** circuit.n_qubits, f"a state of {circuit.n_qubits} qubits")
+    return Spec(circuit, kind, observables, qubits, shots,
+                make_rng(seed) if shots is not None else None, gradient, shift, fd_step, fd_kind,
+                int(splits), memory_budget, columns, max(1, settings))
+
+
+def _run(spec, theta):
+    phi = spec.circuit.angles(theta)
+    batched = np.ndim(getval(phi)) == 2
+    phi2 = phi if batched else anp.reshape(phi, (1, -1))
+    return evaluate(phi2, spec), batched
+
+
+# -- public functions ---------------------------------------------------------------------------
+def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shift", shift=None,
+           fd_step=None, fd_kind="central", splits=1, memory=None):
+    """Expectation value(s) of ``observables`` after ``circuit`` at parameters ``theta``.
+
+    Differentiable with autograd (`grad`, `jacobian`, `hessian`, ...); the derivative is
+    computed by ``gradient``.
+
+    Parameters
+    ----------
+    circuit : Circuit
+    observables : Observable or list of Observable
+    theta : array_like, shape (n_params,) or (B, n_params)
+    shots : int, optional
+        Finite-shot estimate: ``shots`` readouts per measurement setting, per circuit.
+    seed : int or numpy.random.Generator, optional
+        Randomness for shots and for the stochastic rule's split points.
+    gradient : {"shift", "adjoint", "finite-diff"}
+        How autograd differentiates this call.
+    shift : float in (0, pi), optional
+        Shift ``s`` of the two-term rule for single-frequency gates (default pi/2).
+    fd_step : float, optional
+        Finite-difference step (default 1e-5 exact, 0.1 with shots).
+    fd_kind : {"central", "forward"}
+    splits : int
+        With shots, split points sampled per Hamiltonian gate for the stochastic rule.
+    memory : int, optional
+        Bytes the engine may use for one chunk of a batch (default: a quarter of free memory).
+
+    Returns
+    -------
+    float or ndarray
+        A float for one observable and 1-D theta; shape (K,) for K observables; a leading
+        batch axis (B,) when theta is (B, n_params).
+
+    Notes
+    -----
+    Exact values come from simulation. With ``shots`` the value is a sampled mean, which is
+    how a device's estimate behaves statistically, but it is still a simulation, not a
+    measurement on hardware.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from autograd import grad
+    >>> c = qg.Circuit(1).ry(0)
+    >>> Z = qg.Observable({"Z": 1.0})
+    >>> round(float(qg.expect(c, Z, np.array([0.4]))), 6) == round(np.cos(0.4), 6)
+    True
+    >>> bool(np.isclose(grad(lambda t: qg.expect(c, Z, t))(np.array([0.4]))[0], -np.sin(0.4)))
+    True
+    """
+    _check_circuit(circuit)
+    obs, single = _observables(observables, circuit.n_qubits)
+    check_theta(circuit, theta)
+    spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
+                 shift=shift, fd_step=fd_step, fd_kind=fd_kind, splits=splits, memory_budget=memory)
+    vals, batched = _run(spec, theta)
+    if single:
+        vals = vals[:, 0]
+    return vals if batched else vals[0]
+
+
+def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradient="shift",
+                  shift=None, fd_step=None, fd_kind="central", splits=1, memory=None):
+    """Probabilities of the outcomes on ``qubits`` (first listed = most significant bit).
+
+    Differentiable like `expect`. Returns shape (2**k,) or (B, 2**k).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(2).x(1)
+    >>> qg.probabilities(c, np.zeros(0), qubits=[1, 0]).tolist()
+    [0.0, 0.0, 1.0, 0.0]
+    """
+    _check_circuit(circuit)
+    qs = _check_qubits(qubits, circuit.n_qubits)
+    check_theta(circuit, theta)
+    spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
+                 shift=shift, fd_step=fd_step, fd_kind=fd_kind, splits=splits, memory_budget=memory)
+    vals, batched = _run(spec, theta)
+    return vals if batched else vals[0]
+
+
+def state(circuit, theta) -> np.ndarray:
+    """The final statevector, complex128 of shape (2**n,) or (B, 2**n). Not differentiable.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> qg.state(qg.Circuit(1).h(0), np.zeros(0)).round(4).tolist()
+    [(0.7071+0j), (0.7071+0j)]
+    """
+    _check_circuit(circuit)
+    theta = np.asarray(getval(check_theta(circuit, theta)), dtype=float)
+    memory.guard(16 * 2 ** circuit.n_qubits, f"a state of {circuit.n_qubits} qubits")
+    phi = np.atleast_2d(circuit.angles(theta))
+    psi = run(circuit, phi)
+    return psi if theta.ndim == 2 else psi[0]
+
+
+def sample(circuit, theta, shots, seed=None) -> np.ndarray:
+    """Basis-state indices of ``shots`` readouts of all qubits (big-endian), shape (shots,)
+    or (B, shots).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> qg.sample(qg.Circuit(2).x(0), np.zeros(0), shots=3, seed=0).tolist()
+    [2, 2, 2]
+    """
+    shots = _check_shots(shots)
+    if shots is None:
+        raise ValueError("shots must be a positive int; got None")
+    rng = make_rng(seed)
+    psi = np.atleast_2d(state(circuit, theta))
+    p = np.clip(np.abs(psi) ** 2, 0, None)
+    ledger.record(psi.shape[0], 1, shots, {"sample": psi.shape[0]})
+    out = np.stack([rng.choice(p.shape[1], size=shots, p=row / row.sum()) for row in p])
+    return out if np.ndim(getval(theta)) == 2 else out[0]

@@ -1,0 +1,94 @@
+"""The ledger: what a device would have had to run for the work done inside it.
+
+Every evaluation of the engine reports the distinct circuits it ran, the measurement settings
+each needs and the shots per setting; each active `Ledger` adds them up. The active ledgers
+live in a context variable, so a ledger counts the work of its own thread (and of code that
+copies its context), nested ledgers all count, and counting is locked.
+
+Examples
+--------
+>>> import numpy as np
+>>> import qgradlib as qg
+>>> from autograd import grad
+>>> c = qg.Circuit(1).ry(0)
+>>> Z = qg.Observable({"Z": 1.0})
+>>> with qg.Ledger() as book:
+...     _ = grad(lambda t: qg.expect(c, Z, t))(np.array([0.3]))
+>>> book.executions        # value + two shifted circuits
+3
+"""
+from __future__ import annotations
+
+import contextvars
+import threading
+from collections import Counter
+
+__all__ = ["Ledger", "record"]
+
+_ACTIVE: contextvars.ContextVar = contextvars.ContextVar("qgradlib_active_ledgers", default=())
+
+
+class Ledger:
+    """Counts circuit executions and shots; use as a context manager.
+
+    Attributes
+    ----------
+    circuits : int
+        Distinct circuits run (each at its own angles).
+    executions : int
+        Circuits times measurement settings: the jobs a device would run.
+    shots : int
+        Total shots (0 for exact simulation, where no shots are taken).
+    by_purpose : Counter
+        Executions broken down by why they ran: ``"value"``, or the name of the gate whose
+        angle was shifted (for example ``"RY"``, ``"CRX"``).
+    """
+
+    def __init__(self):
+        self._lock = threading.Lock()
+        self.circuits = 0
+        self.executions = 0
+        self.shots = 0
+        self.calls = 0
+        self.by_purpose = Counter()
+        self._token = []
+
+    def __enter__(self):
+        self._token.append(_ACTIVE.set(_ACTIVE.get() + (self,)))
+        return self
+
+    def __exit__(self, *exc):
+        _ACTIVE.reset(self._token.pop())
+        return False
+
+    def _add(self, circuits, settings, shots_per_setting, purposes):
+        with self._lock:
+            self.calls += 1
+            self.circuits += circuits
+            self.executions += circuits * settings
+            self.shots += circuits * settings * shots_per_setting
+            for label, count in purposes.items():
+                self.by_purpose[label] += count * settings
+
+    def summary(self) -> str:
+        """A short readable account."""
+        lines = [f"device work: {self.executions} executions "
+                 f"({self.circuits} distinct circuits), {self.shots} shots"]
+        for label, count in sorted(self.by_purpose.items(), key=lambda kv: (-kv[1], kv[0])):
+            lines.append(f"  {label:<12} {count:>8} executions")
+        if not self.shots:
+            lines.append("  (exact simulation: no shots were taken; a device would need them)")
+        return "\n".join(lines)
+
+    def __repr__(self):
+        return f"Ledger(executions={self.executions}, circuits={self.circuits}, shots={self.shots})"
+
+
+def record(circuits: int, settings: int = 1, shots_per_setting: int = 0, purposes=None) -> None:
+    """Report work to every active ledger (called by the engine's callers)."""
+    active = _ACTIVE.get()
+    if not active:
+        return
+    purposes = Counter(purposes or {"value": circuits})
+    for book in active:
+        book._add(circuits, settings, shots_per_setting, purposes)

@@ -1,0 +1,127 @@
+"""Shift plans: first derivatives as weighted sums of evaluations at displaced points.
+
+A point is a gate-angle vector ``phi`` plus, for Hamiltonian gates, the split points inserted
+into their evolution. The derivative with respect to column ``j`` is
+``sum_t c_t * f(point_t)``; every column's terms are listed once, shared by all rows.
+
+- generator gates: the gate's `ShiftRule` (two-term, equidistant or general);
+- Hamiltonian gates ``expm(-1j (W + a P))``: the stochastic rule of Banchi and Crooks,
+  Quantum 5, 386 (2021). By Duhamel's formula
+  ``d/da f = int_0^1 dr [f(P-rotation by +pi/4 inserted at r) - f(... by -pi/4)]``
+  (the inserted ``expm(-1j t P)`` has the two-term rule with shifts +-pi/4 and weight 1).
+  The integral is taken by Gauss-Legendre quadrature (exact to ~1e-12) or, with shots, by
+  sampling ``r`` uniformly (unbiased). Because the formula holds whatever splits the
+  evolution already carries, it can be applied again for higher derivatives;
+- gates known only by a matrix function: a central finite difference (approximate).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from math import factorial
+
+import numpy as np
+
+from .gates import warn_approximate
+
+__all__ = ["Term", "column_terms", "first_order_points", "quadrature_nodes"]
+
+
+@dataclass(frozen=True)
+class Term:
+    """One shifted evaluation in the derivative of a column."""
+
+    column: int
+    shift: float          # added to phi[column]
+    split: tuple | None   # (r, t): insert expm(-1j t P) at fraction r (Hamiltonian gates)
+    coefficient: float
+
+
+def quadrature_nodes(spread: float, tol: float = 1e-12):
+    """Gauss-Legendre nodes and weights on [0, 1] for integrands of frequency <= ``spread``.
+
+    The error bound (n!)**4 / ((2n+1) ((2n)!)**3) * spread**(2n) of the n-point rule is
+    brought below ``tol``.
+    """
+    n = 2
+    while n < 80:
+        bound = factorial(n) ** 4 / ((2 * n + 1) * factorial(2 * n) ** 3) * spread ** (2 * n)
+        if bound < tol:
+            break
+        n += 1
+    x, w = np.polynomial.legendre.leggauss(n)
+    return (x + 1) / 2, w / 2
+
+
+def _spread(gate, angles):
+    from .paulis import pauli_matrix
+
+    P = pauli_matrix(gate.drive)
+    worst = 0.0
+    for a in np.unique(np.asarray(angles, dtype=float)):
+        ev = np.linalg.eigvalsh(gate.drift + a * P)
+        worst = max(worst, ev[-1] - ev[0])
+    # the integrand conjugates by expm(-1j r A) on both bra and ket: frequencies up to 2*spread
+    return 2.0 * worst
+
+
+def column_terms(circuit, column: int, angles, *, shift=None, fd_step=None, shots=None,
+                 splits=1, rng=None) -> list:
+    """The terms of d/dphi[column] (angles: that column's values over the rows)."""
+    op = circuit.parametric_operations[column]
+    g = op.gate
+    if g.kind == "generator":
+        rule = g.rule_with_shift(shift)
+        return [Term(column, float(s), None, float(c)) for s, c in zip(rule.shifts, rule.coefficients)]
+    if g.kind == "hamiltonian":
+        if shots is None:
+            r, w = quadrature_nodes(_spread(g, angles))
+        else:
+            r = np.sort(rng.uniform(0.0, 1.0, size=int(splits)))
+            w = np.full(r.size, 1.0 / r.size)
+        out = []
+        for ri, wi in zip(r, w):
+            out.append(Term(column, 0.0, (float(ri), np.pi / 4), float(wi)))
+            out.append(Term(column, 0.0, (float(ri), -np.pi / 4), -float(wi)))
+        return out
+    if g.kind == "function":
+        warn_approximate(g)
+        h = 1e-5 if fd_step is None else fd_step
+        return [Term(column, h, None, 1 / (2 * h)), Term(column, -h, None, -1 / (2 * h))]
+    raise AssertionError(g.kind)
+
+
+def first_order_points(circuit, phi, inserts, columns, **rule_options):
+    """Displaced points for the gradient over ``columns`` of every row of ``phi`` (P, G).
+
+    Returns ``(points (P*T, G), inserts (P*T,) or None, coefficients (G, T), purposes)``,
+    ordered row-major: row p's T points are ``points[p*T:(p+1)*T]``. ``points`` stays an
+    autograd box when ``phi`` is one, so the plan can itself be differentiated.
+    """
+    import autograd.numpy as anp
+
+    from autograd.tracer import getval
+
+    raw = np.asarray(getval(phi))
+    P, G = raw.shape
+    terms = []
+    for j in columns:
+        terms.extend(column_terms(circuit, j, raw[:, j], **rule_options))
+    T = len(terms)
+    delta = np.zeros((T, G))
+    coeff = np.zeros((G, T))
+    for t, term in enumerate(terms):
+        delta[t, term.column] = term.shift
+        coeff[term.column, t] = term.coefficient
+    points = anp.reshape(phi[:, None, :] + delta[None, :, :], (P * T, G))
+    new_inserts = None
+    if any(term.split is not None for term in terms) or inserts is not None:
+        new_inserts = []
+        for p in range(P):
+            base = inserts[p] if inserts is not None else {}
+            for term in terms:
+                row = dict(base)
+                if term.split is not None:
+                    row[term.column] = tuple(sorted(row.get(term.column, ()) + (term.split,)))
+                new_inserts.append(row)
+    names = [circuit.parametric_operations[term.column].gate.name for term in terms] * P
+    return points, new_inserts, coeff, names
