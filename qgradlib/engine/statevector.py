@@ -1,19 +1,39 @@
-"""Statevector kernels on batches of states, shape (B, 2**n).
+"""Statevector kernels on batches of states, shape (B, 2**n), and circuit runs.
 
-Gates act on reshaped views: a k-qubit matrix multiplies the axes of its qubits, a diagonal
-gate multiplies by its phases broadcast along those axes. No full-size matrix is ever built.
+Gates act on reshaped views (see `qgradlib.engine.kernels`); no full-size matrix is built.
+`run` compiles the circuit once (`qgradlib.engine.program`, with optional gate fusion) and
+alternates between two state buffers, so a run holds two batches of states whatever its
+length.
+
+Fusion is on by default; ``FUSE`` is the module-level default that ``run(..., fuse=None)``
+reads (tests flip it to compare fused and unfused results). Fusion never changes a result by
+more than rounding (~1e-14).
+
+Operations whose gate object has no ``parametric`` attribute are not gates (a later channel
+kind, for instance): they take no column of ``phi``, and `run` hands the states to the
+object's ``apply_states(psi, n, qubits) -> psi`` method, or raises TypeError when it has none.
 """
 from __future__ import annotations
 
 import numpy as np
 
+from . import kernels
 from .memory import guard
+from .program import is_gate, program, step_matrix
 
-__all__ = ["zero_states", "apply_matrix", "apply_diagonal", "apply_gate", "run"]
+__all__ = ["zero_states", "apply_matrix", "apply_diagonal", "apply_gate", "run", "FUSE"]
+
+FUSE = True
 
 
 def zero_states(n_qubits: int, batch: int = 1) -> np.ndarray:
-    """``batch`` copies of |0...0>, shape (batch, 2**n)."""
+    """``batch`` copies of |0...0>, shape (batch, 2**n).
+
+    Examples
+    --------
+    >>> zero_states(2, 1).tolist()
+    [[(1+0j), 0j, 0j, 0j]]
+    """
     nbytes = batch * (2 ** n_qubits) * 16
     guard(nbytes, f"a batch of {batch} state(s) of {n_qubits} qubits")
     psi = np.zeros((batch, 2 ** n_qubits), dtype=complex)
@@ -21,55 +41,40 @@ def zero_states(n_qubits: int, batch: int = 1) -> np.ndarray:
     return psi
 
 
-def apply_matrix(psi: np.ndarray, n: int, mat: np.ndarray, qubits) -> np.ndarray:
-    """Apply a (d, d) or per-row (B, d, d) matrix to ``qubits``; returns a new array."""
-    B = psi.shape[0]
-    k = len(qubits)
-    if k == 1:
-        q = qubits[0]
-        v = psi.reshape(B, 2 ** q, 2, 2 ** (n - q - 1))
-        m = mat if mat.ndim == 2 else mat[:, None, None, :, :]
-        if mat.ndim == 2:
-            out = np.empty_like(v)
-            np.multiply(m[0, 0], v[:, :, 0], out=out[:, :, 0])
-            out[:, :, 0] += m[0, 1] * v[:, :, 1]
-            np.multiply(m[1, 0], v[:, :, 0], out=out[:, :, 1])
-            out[:, :, 1] += m[1, 1] * v[:, :, 1]
-        else:
-            m = mat.reshape(B, 1, 2, 2, 1)
-            out = np.empty_like(v)
-            out[:, :, 0] = m[:, :, 0, 0] * v[:, :, 0] + m[:, :, 0, 1] * v[:, :, 1]
-            out[:, :, 1] = m[:, :, 1, 0] * v[:, :, 0] + m[:, :, 1, 1] * v[:, :, 1]
-        return out.reshape(B, -1)
-    axes = [1 + q for q in qubits]
-    t = psi.reshape((B,) + (2,) * n)
-    t = np.moveaxis(t, axes, range(1, k + 1)).reshape(B, 2 ** k, -1)
-    t = mat @ t
-    t = t.reshape((B,) + (2,) * n)
-    return np.ascontiguousarray(np.moveaxis(t, range(1, k + 1), axes)).reshape(B, -1)
+def apply_matrix(psi: np.ndarray, n: int, mat: np.ndarray, qubits, out=None) -> np.ndarray:
+    """Apply a (d, d) or per-row (B, d, d) matrix to ``qubits``; returns a new array (or ``out``).
+
+    ``out`` (same shape as ``psi``, not overlapping it) receives the result when given.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> X = np.array([[0, 1], [1, 0]])
+    >>> apply_matrix(zero_states(2), 2, X, (1,)).real.tolist()
+    [[0.0, 1.0, 0.0, 0.0]]
+    """
+    mat = np.asarray(mat)
+    if mat.dtype != complex:
+        mat = mat.astype(complex)
+    if out is None:
+        out = np.empty_like(psi)
+    return kernels.apply_dense(psi, n, mat, tuple(qubits), out)
 
 
 def apply_diagonal(psi: np.ndarray, n: int, diag: np.ndarray, qubits) -> np.ndarray:
     """Multiply by a (d,) or per-row (B, d) diagonal on ``qubits``, in place; returns psi."""
-    B = psi.shape[0]
-    k = len(qubits)
-    d = np.asarray(diag).reshape((-1,) + (2,) * k)
-    order = np.argsort(qubits)
-    d = np.transpose(d, [0] + [1 + int(i) for i in order])
-    shape = [d.shape[0]] + [1] * n
-    for q in qubits:
-        shape[1 + q] = 2
-    t = psi.reshape((B,) + (2,) * n)
-    t *= d.reshape(shape)
-    return psi
+    return kernels.apply_diag(psi, n, np.asarray(diag), tuple(qubits))
 
 
-def apply_gate(psi, n, gate, qubits, angles=None):
-    """Apply ``gate`` (angles: None, or per-row array of shape (B,) or (1,))."""
+def apply_gate(psi, n, gate, qubits, angles=None, out=None):
+    """Apply ``gate`` (angles: None, or per-row array of shape (B,) or (1,)).
+
+    Diagonal gates act in place (``psi`` is returned); others return a new array or ``out``.
+    """
     if not gate.parametric:
         if gate.diagonal:
             return apply_diagonal(psi, n, np.diag(gate.unitary), qubits)
-        return apply_matrix(psi, n, gate.unitary, qubits)
+        return apply_matrix(psi, n, gate.unitary, qubits, out=out)
     a = np.asarray(angles, dtype=float).reshape(-1)
     shared = a.size == 1 or np.all(a == a[0])
     if shared:
@@ -78,34 +83,138 @@ def apply_gate(psi, n, gate, qubits, angles=None):
         dv = gate.diagonal_values(a)
         return apply_diagonal(psi, n, dv[0] if shared else dv, qubits)
     mats = gate._matrices(a)
-    return apply_matrix(psi, n, mats[0] if shared else mats, qubits)
+    return apply_matrix(psi, n, mats[0] if shared else mats, qubits, out=out)
 
 
-def run(circuit, phi: np.ndarray, inserts=None, psi=None) -> np.ndarray:
-    """Final states for gate angles ``phi`` of shape (B, G); returns (B, 2**n).
+def _table(prog, phi, shared):
+    """Matrices (or diagonals) of every varying factor, one vectorised call per gate."""
+    table = []
+    for gate, d_only, cols in prog.groups:
+        sh = shared[cols]
+        if np.all(sh):
+            a = phi[0, cols]
+            vals = gate.diagonal_values(a) if d_only else gate._matrices(a)
+            table.append((vals[:, None], sh))
+            continue
+        flat = phi[:, cols].T.reshape(-1)
+        vals = gate.diagonal_values(flat) if d_only else gate._matrices(flat)
+        table.append((vals.reshape((len(cols), phi.shape[0]) + vals.shape[1:]), sh))
+    return table
 
-    ``inserts`` (optional, one entry a row) holds split points of Hamiltonian gates: a dict
-    {column: ((r, t), ...)} per row, used by the stochastic shift rule.
-    """
+
+def _solo(step, cur, other, n, phi, inserts, shared):
+    """A gate that is never fused: Hamiltonian or function gates, wide gates, kept columns."""
     from ..gates import hamiltonian_matrices
 
+    g = step.op.gate
+    qs = tuple(step.op.qubits)
+    if not g.parametric:
+        if g.diagonal:
+            return kernels.apply_diag(cur, n, np.diag(g.unitary), qs), other
+        return kernels.apply_dense(cur, n, np.asarray(g.unitary), qs, other), cur
+    col = step.column
+    a = phi[:, col]
+    if g.kind == "hamiltonian" and inserts is not None and any(col in row for row in inserts):
+        mats = np.concatenate([hamiltonian_matrices(g, a[b:b + 1], row.get(col, ()))
+                               for b, row in enumerate(inserts)])
+        return kernels.apply_dense(cur, n, mats, qs, other), cur
+    aa = a[:1] if shared[col] else a
+    if g.diagonal:
+        d = g.diagonal_values(aa)
+        return kernels.apply_diag(cur, n, d[0] if shared[col] else d, qs), other
+    m = g._matrices(aa)
+    return kernels.apply_dense(cur, n, m[0] if shared[col] else m, qs, other), cur
+
+
+def _external(step, cur, n):
+    obj = step.op.gate
+    fn = getattr(obj, "apply_states", None)
+    if fn is None:
+        raise TypeError(f"operation {obj!r} on qubits {tuple(step.op.qubits)} is not a gate and has "
+                        "no apply_states(psi, n, qubits) method: the statevector engine cannot apply it")
+    return np.ascontiguousarray(fn(cur, n, tuple(step.op.qubits)), dtype=complex)
+
+
+def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=frozenset(),
+        out=None) -> np.ndarray:
+    """Final states for gate angles ``phi`` of shape (B, G); returns (B, 2**n).
+
+    Parameters
+    ----------
+    circuit : Circuit
+    phi : ndarray, shape (B, G)
+        One row of gate angles per state (the columns of ``circuit.parametric_operations``).
+    inserts : list of dict, optional
+        One entry a row: {column: ((r, t), ...)} split points of Hamiltonian gates, used by
+        the stochastic shift rule. Those columns are never fused.
+    psi : ndarray, shape (B, 2**n), optional
+        Initial states (default |0...0>); not modified.
+    fuse : bool, optional
+        Gate fusion on or off (default: the module-level ``FUSE``).
+    keep : set of int
+        Columns not to fuse with their neighbours.
+    out : ndarray, shape (B, 2**n), optional
+        Where to leave the final states (it is also used as one of the two buffers).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(1).ry(0)
+    >>> run(c, np.array([[np.pi]])).real.round(12).tolist()
+    [[0.0, 1.0]]
+    """
     phi = np.asarray(phi, dtype=float)
+    if phi.ndim != 2:
+        raise ValueError(f"phi must have shape (B, G); got {phi.shape}")
     B = phi.shape[0]
     n = circuit.n_qubits
+    fuse = FUSE if fuse is None else bool(fuse)
+    solo = set(keep)
+    if inserts is not None:
+        for row in inserts:
+            solo.update(row.keys())
+    prog = program(circuit, fuse, frozenset(solo))
+    if prog.const_columns and not np.all(phi[:, list(prog.const_columns)] == prog.const_angles):
+        # a caller moved a fixed angle: do not use the baked-in matrices
+        prog = program(circuit, fuse, frozenset(solo), bake_fixed_angles=False)
+    shared = np.all(phi == phi[:1], axis=0) if B > 1 else np.ones(phi.shape[1], dtype=bool)
+    N = 2 ** n
+    if out is not None and (out.shape != (B, N) or out.dtype != complex):
+        raise ValueError(f"out must be a complex array of shape {(B, N)}; got {out.shape} {out.dtype}")
     if psi is None:
-        psi = zero_states(n, B)
-    col = 0
-    for op in circuit.operations:
-        g = op.gate
-        if not g.parametric:
-            psi = apply_gate(psi, n, g, op.qubits)
+        cur = out if out is not None else zero_states(n, B)
+        if out is not None:
+            cur[...] = 0
+            cur[:, 0] = 1
+    else:
+        if np.shape(psi) != (B, N):
+            raise ValueError(f"psi must have shape {(B, N)}; got {np.shape(psi)}")
+        guard(B * N * 16, f"a batch of {B} state(s) of {n} qubits")
+        cur = np.array(psi, dtype=complex) if out is None else out
+        if out is not None:
+            cur[...] = psi
+    other = None
+    table = _table(prog, phi, shared)
+    for s in prog.steps:
+        if s.kind == "external":
+            cur = _external(s, cur, n)
             continue
-        a = phi[:, col]
-        if g.kind == "hamiltonian" and inserts is not None and any(col in row for row in inserts):
-            mats = np.concatenate([hamiltonian_matrices(g, a[b:b + 1], row.get(col, ()))
-                                   for b, row in enumerate(inserts)])
-            psi = apply_matrix(psi, n, mats, op.qubits)
+        if s.kind != "diag" and other is None:
+            other = np.empty_like(cur)
+        if s.kind == "solo":
+            cur, other = _solo(s, cur, other, n, phi, inserts, shared)
+            continue
+        m = s.matrix if s.matrix is not None else step_matrix(s, table, B)
+        if s.kind == "diag":
+            kernels.apply_diag(cur, n, m, s.qubits)
+        elif s.kind == "mono":
+            kernels.apply_monomial(cur, n, s.mono, m[np.arange(m.shape[-1]), s.mono], s.qubits, other)
+            cur, other = other, cur
         else:
-            psi = apply_gate(psi, n, g, op.qubits, a)
-        col += 1
-    return psi
+            kernels.apply_dense(cur, n, m, s.qubits, other, real=s.real)
+            cur, other = other, cur
+    if out is not None and cur is not out:
+        out[...] = cur
+        return out
+    return cur

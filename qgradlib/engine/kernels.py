@@ -1,0 +1,247 @@
+"""Low-level kernels on batches of states (B, 2**n), chosen by where the qubits sit.
+
+A state row reshaped to ``(2**lo, d, R)`` puts a gate on the contiguous qubits starting at
+``lo`` into the middle axis. Three kernels cover every gate:
+
+- dense: ``matmul`` of the (d, d) matrix with that view, one BLAS product per slab. Where
+  ``R`` (the stride of the last target qubit) is large this is close to one read and one
+  write of the state; where it is small the slabs are tiny, so instead the gate is widened to
+  a block over the last few qubits and applied as one product with the state seen as
+  ``(N / D, D)``. A real matrix acts on the float view of the state (half the flops);
+- monomial (one nonzero a row: X, CNOT, SWAP, Y, and their products with phases): strided
+  copies with a phase, one pass, any qubit positions;
+- diagonal: in-place phase multiplies of strided views, skipping phases equal to one.
+
+Every kernel writes into a caller-given ``out`` (or in place), so a circuit run can
+alternate between two buffers instead of allocating a state per gate.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+__all__ = ["sort_qubits", "widen", "apply_dense", "apply_monomial", "apply_diag",
+           "monomial_structure", "TAIL_STRIDE"]
+
+# below this stride (amplitudes) the slab products are too small for BLAS: use a tail block
+TAIL_STRIDE = 8
+# widest gap-filled block a non-adjacent gate is widened to (qubits)
+MAX_SPAN = 3
+
+
+def sort_qubits(mat, qubits, diag=False):
+    """Reorder the tensor factors of ``mat`` so the qubits ascend; returns
+    ``(mat, sorted_qubits)``. ``mat`` is (d, d) or (B, d, d), or with ``diag`` (d,) or (B, d)."""
+    qubits = tuple(qubits)
+    k = len(qubits)
+    order = sorted(range(k), key=lambda i: qubits[i])
+    if order == list(range(k)):
+        return mat, qubits
+    sq = tuple(qubits[i] for i in order)
+    mat = np.asarray(mat)
+    nd = 1 if diag else 2
+    lead = mat.shape[:mat.ndim - nd]
+    nl = len(lead)
+    t = mat.reshape(lead + (2,) * (nd * k))
+    perm = list(range(nl))
+    for r in range(nd):
+        perm += [nl + r * k + i for i in order]
+    return t.transpose(perm).reshape(mat.shape), sq
+
+
+def widen(mat, pos, width):
+    """Embed a matrix on local qubits ``pos`` (ascending) into ``width`` qubits (identity on
+    the rest). ``mat`` is (d, d) or (B, d, d)."""
+    k = len(pos)
+    g = 2 ** (width - k)
+    lead = mat.shape[:-2]
+    d = 2 ** k
+    full = (mat.reshape(lead + (d, 1, d, 1)) * np.eye(g).reshape((1,) * len(lead) + (1, g, 1, g)))
+    rest = [i for i in range(width) if i not in pos]
+    src = list(pos) + rest                      # factor order of ``full``
+    nl = len(lead)
+    t = full.reshape(lead + (2,) * (2 * width))
+    inv = [src.index(i) for i in range(width)]
+    perm = list(range(nl)) + [nl + i for i in inv] + [nl + width + i for i in inv]
+    D = 2 ** width
+    return np.ascontiguousarray(t.transpose(perm)).reshape(lead + (D, D))
+
+
+def _views(arr, n, sq):
+    """``arr`` (B, 2**n) as (B, 2**a0, 2, 2**a1, 2, ..., 2**ak) with target axes listed."""
+    shape = [arr.shape[0]]
+    axes = []
+    prev = 0
+    for q in sq:
+        shape.append(2 ** (q - prev))
+        axes.append(len(shape))
+        shape.append(2)
+        prev = q + 1
+    shape.append(2 ** (n - prev))
+    return arr.reshape(shape), axes
+
+
+def _index(axes, ndim, bits):
+    idx = [slice(None)] * ndim
+    for ax, b in zip(axes, bits):
+        idx[ax] = b
+    return tuple(idx)
+
+
+def _bits(i, k):
+    return [(i >> (k - 1 - j)) & 1 for j in range(k)]
+
+
+def _is_real(mat):
+    return not np.iscomplexobj(mat) or not np.any(mat.imag)
+
+
+def apply_dense(psi, n, mat, qubits, out, real=None):
+    """``out = mat psi`` on ``qubits``; mat (d, d) shared or (B, d, d) per row."""
+    mat, sq = sort_qubits(mat, qubits)
+    k = len(sq)
+    lo, hi = sq[0], sq[-1]
+    if hi - lo + 1 > k:
+        if hi - lo + 1 > MAX_SPAN:
+            return _dense_far(psi, n, mat, sq, out)
+        mat = widen(mat, [q - lo for q in sq], hi - lo + 1)
+        sq = tuple(range(lo, hi + 1))
+        k = len(sq)
+    B = psi.shape[0]
+    d = 2 ** k
+    R = 2 ** (n - hi - 1)
+    per_row = mat.ndim == 3
+    if R < TAIL_STRIDE and n > k:
+        # widen to a block over the last qubits: one product with (N/D, D) rows
+        w = n - lo
+        blk = widen(mat, list(range(k)), w)
+        D = 2 ** w
+        if per_row:
+            np.matmul(psi.reshape(B, -1, D), np.swapaxes(blk, -1, -2), out=out.reshape(B, -1, D))
+        else:
+            np.matmul(psi.reshape(-1, D), blk.T, out=out.reshape(-1, D))
+        return out
+    if real is None:
+        real = _is_real(mat)
+    if real:
+        m = np.ascontiguousarray(mat.real)
+        v = psi.view(np.float64)
+        o = out.view(np.float64)
+        R2 = 2 * R
+    else:
+        m, v, o, R2 = mat, psi, out, R
+    if per_row:
+        np.matmul(m[:, None], v.reshape(B, 2 ** lo, d, R2), out=o.reshape(B, 2 ** lo, d, R2))
+    else:
+        np.matmul(m, v.reshape(B * 2 ** lo, d, R2), out=o.reshape(B * 2 ** lo, d, R2))
+    return out
+
+
+def _dense_far(psi, n, mat, sq, out):
+    """Qubits far apart: move them to the front, one product, move back (two extra passes)."""
+    B = psi.shape[0]
+    k = len(sq)
+    t = psi.reshape((B,) + (2,) * n)
+    axes = [1 + q for q in sq]
+    front = np.moveaxis(t, axes, range(1, k + 1)).reshape(B, 2 ** k, -1)
+    res = (mat if mat.ndim == 2 else mat) @ front
+    res = res.reshape((B,) + (2,) * n)
+    out.reshape((B,) + (2,) * n)[...] = np.moveaxis(res, range(1, k + 1), axes)
+    return out
+
+
+def monomial_structure(mat, tol=0.0):
+    """For a matrix with at most one nonzero per row: ``(cols, phases)`` with
+    ``mat[i, cols[i]] = phases[i]`` (cols -1 for an all-zero row); None otherwise."""
+    m = np.asarray(mat)
+    nz = np.abs(m) > tol
+    counts = nz.sum(axis=-1)
+    if np.any(counts > 1):
+        return None
+    cols = np.where(counts == 1, np.argmax(nz, axis=-1), -1)
+    phases = np.where(cols >= 0, m[np.arange(m.shape[0]), np.maximum(cols, 0)], 0)
+    return cols, phases
+
+
+def apply_monomial(psi, n, cols, phases, qubits, out):
+    """``out[i-block] = phases[i] * psi[cols[i]-block]`` on ``qubits``; phases (d,) or (B, d)."""
+    qubits = tuple(qubits)
+    k = len(qubits)
+    d = 2 ** k
+    order = sorted(range(k), key=lambda i: qubits[i])
+    sq = tuple(qubits[i] for i in order)
+    t, axes = _views(psi, n, sq)
+    o, _ = _views(out, n, sq)
+    ndim = t.ndim
+    phases = np.asarray(phases)
+    per_row = phases.ndim == 2
+    for i in range(d):
+        bi = _bits(i, k)
+        oi = o[_index(axes, ndim, [bi[j] for j in order])]
+        c = int(cols[i])
+        if c < 0:
+            oi[...] = 0
+            continue
+        bc = _bits(c, k)
+        vi = t[_index(axes, ndim, [bc[j] for j in order])]
+        if per_row:
+            np.multiply(vi, phases[:, i].reshape((-1,) + (1,) * (vi.ndim - 1)), out=oi)
+            continue
+        p = phases[i]
+        if p == 1:
+            np.copyto(oi, vi)
+        elif p == -1:
+            np.negative(vi, out=oi)
+        else:
+            np.multiply(vi, p, out=oi)
+    return out
+
+
+def apply_diag(psi, n, diag, qubits):
+    """Multiply by ``diag`` ((d,) or (B, d)) on ``qubits``, in place; returns psi."""
+    diag, sq = sort_qubits(np.asarray(diag), qubits, diag=True)
+    k = len(sq)
+    per_row = diag.ndim == 2
+    B = psi.shape[0]
+    w = n - sq[0]
+    if 2 ** (n - sq[-1] - 1) < TAIL_STRIDE and w <= 4 and n > k:
+        # short strides: one contiguous multiply by the phases of the last ``w`` qubits
+        full = np.ones(((B if per_row else 1),) + (2,) * w, dtype=complex)
+        shape = [full.shape[0]] + [1] * w
+        for q in sq:
+            shape[1 + q - sq[0]] = 2
+        full *= diag.reshape(shape)
+        D = 2 ** w
+        if not np.any(full.imag):
+            # real phases (signs): multiply the float view, half the arithmetic
+            f2 = np.repeat(full.real.reshape(-1, D), 2, axis=-1)
+            v = psi.view(np.float64)
+            if per_row:
+                v.reshape(B, -1, 2 * D)[...] *= f2.reshape(B, 1, 2 * D)
+            else:
+                v.reshape(-1, 2 * D)[...] *= f2.reshape(2 * D)
+        elif per_row:
+            psi.reshape(B, -1, D)[...] *= full.reshape(B, 1, D)
+        else:
+            psi.reshape(-1, D)[...] *= full.reshape(D)
+        return psi
+    if k > 3:
+        shape = [diag.shape[0] if per_row else 1] + [1] * n
+        for q in sq:
+            shape[1 + q] = 2
+        psi.reshape((psi.shape[0],) + (2,) * n)[...] *= diag.reshape(shape)
+        return psi
+    t, axes = _views(psi, n, sq)
+    ndim = t.ndim
+    for i in range(2 ** k):
+        vi = t[_index(axes, ndim, _bits(i, k))]
+        if per_row:
+            vi *= diag[:, i].reshape((-1,) + (1,) * (vi.ndim - 1))
+            continue
+        p = diag[i]
+        if p == 1:
+            continue
+        if p == -1:
+            np.negative(vi, out=vi)
+        else:
+            vi *= p
+    return psi
