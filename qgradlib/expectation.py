@@ -15,6 +15,7 @@ applies the chain rule ``A.T @ dE/dphi`` for shared and scaled parameters by its
 """
 from __future__ import annotations
 
+import weakref
 from collections import Counter
 from dataclasses import dataclass
 from numbers import Real
@@ -28,7 +29,7 @@ from . import ledger
 from .circuit import Circuit, check_theta
 from .engine import memory
 from .engine.adjoint import adjoint_gradient
-from .engine.measure import apply_observable, expectations, probabilities as _marginals
+from .engine.measure import apply_observables, expectations, probabilities as _marginals
 from .engine.statevector import apply_diagonal, run
 from .measurement import make_rng, n_settings, sample_estimate
 from .observables import Observable
@@ -37,6 +38,10 @@ from .plans import first_order_points
 __all__ = ["expect", "probabilities", "state", "sample", "evaluate", "METHODS"]
 
 METHODS = ("shift", "adjoint", "finite-diff")
+
+# final states of a forward evaluation with gradient="adjoint", held (weakly, by the Spec
+# of that call) until its VJP runs: the adjoint method then skips its own forward run
+_forward_states: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 
 
 @dataclass(frozen=True, eq=False)
@@ -86,20 +91,32 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
         inverse[p] = first[key]
     labels = [purposes] * P if isinstance(purposes, str) else list(purposes)
     ledger.record(len(rows), spec.settings, spec.shots or 0, Counter(labels[r] for r in rows))
-    vals = _measure_rows(phi[rows], spec, None if inserts is None else [inserts[r] for r in rows])
+    keep = spec.gradient == "adjoint" and inserts is None and spec.shots is None
+    vals = _measure_rows(phi[rows], spec, None if inserts is None else [inserts[r] for r in rows],
+                         keep=keep)
+    if keep:
+        vals, states = vals
+        if states is not None:
+            # the adjoint VJP starts from these final states instead of running again
+            _forward_states[spec] = (phi.tobytes(), states, inverse)
     return vals[inverse]
 
 
-def _measure_rows(phi, spec, inserts):
+def _measure_rows(phi, spec, inserts, keep=False):
+    """Values of the unique rows, in memory chunks; with ``keep`` also their final states
+    (or None when they did not fit in one chunk)."""
     n = spec.circuit.n_qubits
     per_row = 3 * 16 * 2 ** n
     budget = spec.memory if spec.memory is not None else max(per_row, memory.available_bytes() // 4)
     chunk = max(1, min(phi.shape[0], budget // per_row))
     out = np.empty((phi.shape[0], spec.n_out))
+    psi = None
     for lo in range(0, phi.shape[0], chunk):
         hi = min(lo + chunk, phi.shape[0])
         psi = run(spec.circuit, phi[lo:hi], None if inserts is None else inserts[lo:hi])
         out[lo:hi] = _readout(psi, spec)
+    if keep:
+        return out, (psi if chunk >= phi.shape[0] else None)
     return out
 
 
@@ -163,18 +180,21 @@ def _adjoint_vjp(phi, spec, g):
                          "derivatives use gradient='shift' or qgradlib.curvature")
     g = np.asarray(g, dtype=float)
     n = spec.circuit.n_qubits
+    phi = np.asarray(phi, dtype=float)
     if spec.kind == "expect":
-        def apply(psi):
-            out = np.zeros_like(psi)
-            for k, obs in enumerate(spec.observables):
-                out += g[:, k, None] * apply_observable(psi, n, obs)
-            return out
+        def into(psi, out, scratch):
+            apply_observables(psi, n, spec.observables, g, out, scratch)
     else:
         qubits = tuple(range(n)) if spec.qubits is None else spec.qubits
 
-        def apply(psi):
-            return apply_diagonal(psi.copy(), n, g.astype(complex), qubits)
-    return adjoint_gradient(spec.circuit, np.asarray(phi), apply, spec.columns)
+        def into(psi, out, scratch):
+            out[...] = psi
+            apply_diagonal(out, n, g.astype(complex), qubits)
+    psi = _forward_states.pop(spec, None)
+    if psi is not None:
+        key, states, inverse = psi
+        psi = states[inverse] if key == phi.tobytes() else None
+    return adjoint_gradient(spec.circuit, phi, columns=spec.columns, observable_into=into, psi=psi)
 
 
 def _evaluate_vjp(ans, phi, spec, inserts=None, purposes="value"):

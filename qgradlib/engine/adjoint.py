@@ -2,14 +2,22 @@
 
 With ``psi_k`` the state after gate k and ``lam_k = U_{k+1}^dag ... U_N^dag O psi_N``,
 ``dE/da_k = 2 Re <lam_k| dU_k/da |psi_{k-1}>``; for ``U = expm(-1j a G)`` this is
-``2 Im <lam_k| G |psi_k>`` (Jones and Gacon, arXiv:2009.02823 (2020)). The bra and ket are
-undone together, in one batched call per gate. Exact, but a device cannot run it.
+``2 Im <lam_k| G |psi_k>`` (Jones and Gacon, arXiv:2009.02823 (2020)). Exact, but a device
+cannot run it.
+
+The bra and ket rows are stacked in one array and undone together, one batched kernel call
+per step. Gates between trainable ones are fused as in a forward run (each trainable gate
+stays a step of its own). Memory: the stacked pair and one buffer of the same size, so about
+four states for one row, whatever the circuit.
 """
 from __future__ import annotations
 
 import numpy as np
 
-from .statevector import apply_diagonal, apply_matrix, run
+from . import kernels
+from .memory import guard
+from .program import program, step_matrix
+from .statevector import _table, run
 
 __all__ = ["adjoint_gradient", "hamiltonian_derivative"]
 
@@ -32,58 +40,132 @@ def _function_derivative(gate, a, h=1e-6):
     return (gate._matrices(np.array([a + h]))[0] - gate._matrices(np.array([a - h]))[0]) / (2 * h)
 
 
-def _undo(both, n, gate, qubits, a2):
-    """Apply U(a)^dagger row-wise; a2 are the angles of the stacked rows (or None)."""
-    if not gate.parametric:
-        if gate.diagonal:
-            return apply_diagonal(both, n, np.conj(np.diag(gate.unitary)), qubits)
-        return apply_matrix(both, n, gate.unitary.conj().T, qubits)
-    shared = np.all(a2 == a2[0])
-    a = a2[:1] if shared else a2
-    if gate.diagonal:
-        d = np.conj(gate.diagonal_values(a))
-        return apply_diagonal(both, n, d[0] if shared else d, qubits)
-    m = np.conj(np.swapaxes(gate._matrices(a), -1, -2))
-    return apply_matrix(both, n, m[0] if shared else m, qubits)
+def _tile(m, per_row):
+    return np.concatenate([m, m]) if per_row else m
 
 
-def adjoint_gradient(circuit, phi, apply_observable, columns=None) -> np.ndarray:
+def _apply_generator(g, src, n, qubits, out):
+    """out = G src, by the cheapest kernel for the generator's structure."""
+    G = np.asarray(g.generator)
+    if g.diagonal:
+        np.copyto(out, src)
+        return kernels.apply_diag(out, n, np.diag(G), qubits)
+    structure = kernels.monomial_structure(G)
+    if structure is not None:
+        return kernels.apply_monomial(src, n, structure[0], structure[1], qubits, out)
+    return kernels.apply_dense(src, n, G, qubits, out)
+
+
+def _row_dots(a, b):
+    """<a_p|b_p> for every row, without temporaries."""
+    if a.shape[0] <= 16:
+        return np.array([np.vdot(x, y) for x, y in zip(a, b)])
+    return np.einsum("bi,bi->b", a.conj(), b)
+
+
+def _undo_step(s, both, buf, n, phi, shared, table, P):
+    """Apply the step's inverse to every stacked row; returns (current, spare)."""
+    if s.kind == "external":
+        raise ValueError(f"the adjoint method cannot undo operation {s.op.gate!r}: it is not a gate "
+                         "(use gradient='shift' or 'finite-diff')")
+    if s.kind == "solo":
+        g = s.op.gate
+        qs = tuple(s.op.qubits)
+        if not g.parametric:
+            if g.diagonal:
+                return kernels.apply_diag(both, n, np.conj(np.diag(g.unitary)), qs), buf
+            return kernels.apply_dense(both, n, np.conj(g.unitary).T, qs, buf), both
+        a = phi[:, s.column]
+        sh = bool(shared[s.column])
+        aa = a[:1] if sh else a
+        if g.kind == "generator":
+            # U(a)^dagger = U(-a)
+            if g.diagonal:
+                d = g.diagonal_values(-aa)
+                return kernels.apply_diag(both, n, d[0] if sh else _tile(d, True), qs), buf
+            m = g._matrices(-aa)
+            return kernels.apply_dense(both, n, m[0] if sh else _tile(m, True), qs, buf), both
+        m = np.conj(np.swapaxes(g._matrices(aa), -1, -2))
+        return kernels.apply_dense(both, n, m[0] if sh else _tile(m, True), qs, buf), both
+    m = s.matrix if s.matrix is not None else step_matrix(s, table, P)
+    if s.kind == "diag":
+        per_row = m.ndim == 2
+        return kernels.apply_diag(both, n, _tile(np.conj(m), per_row), s.qubits), buf
+    if s.kind == "mono":
+        cols = s.mono
+        d = cols.size
+        inv = np.empty(d, dtype=np.intp)
+        inv[cols] = np.arange(d)
+        ph = np.conj(m[np.arange(d), cols])
+        inv_ph = np.empty(d, dtype=complex)
+        inv_ph[cols] = ph
+        return kernels.apply_monomial(both, n, inv, inv_ph, s.qubits, buf), both
+    per_row = m.ndim == 3
+    mh = _tile(np.conj(np.swapaxes(m, -1, -2)), per_row)
+    return kernels.apply_dense(both, n, mh, s.qubits, buf, real=s.real), both
+
+
+def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, observable_into=None,
+                     psi=None, fuse=None) -> np.ndarray:
     """dE/dphi for every row of ``phi`` (P, G), where ``E = <psi|O|psi>``.
 
-    ``apply_observable(psi) -> O psi`` row-wise (the observable may differ by row).
-    Columns not in ``columns`` are left at zero.
+    Parameters
+    ----------
+    circuit : Circuit
+    phi : ndarray, shape (P, G)
+    apply_observable : callable, optional
+        ``apply_observable(psi) -> O psi`` row-wise (the observable may differ by row).
+    columns : iterable of int, optional
+        Columns to differentiate (default all); the others are left at zero.
+    observable_into : callable, optional
+        ``observable_into(psi, out, scratch)`` writing ``O psi`` into ``out`` without
+        allocating (``scratch`` may be overwritten); preferred over ``apply_observable``.
+    psi : ndarray, shape (P, 2**n), optional
+        The final states of a forward run at ``phi``, when the caller already has them.
+    fuse : bool, optional
+        Fusion of the gates between trainable ones (default: the engine's ``FUSE``).
     """
+    from . import statevector
+
     phi = np.asarray(phi, dtype=float)
     P, G = phi.shape
     n = circuit.n_qubits
-    want = set(range(G)) if columns is None else set(columns)
-    psi = run(circuit, phi)
-    lam = apply_observable(psi)
-    both = np.concatenate([psi, lam])
-    del psi, lam
+    N = 2 ** n
+    want = frozenset(range(G)) if columns is None else frozenset(int(c) for c in columns)
+    fuse = statevector.FUSE if fuse is None else bool(fuse)
+    prog = program(circuit, fuse, want)
+    if prog.const_columns and not np.all(phi[:, list(prog.const_columns)] == prog.const_angles):
+        prog = program(circuit, fuse, want, bake_fixed_angles=False)
+    guard(4 * P * N * 16, f"the adjoint method on {P} state(s) of {n} qubits (four states each)")
+    both = np.empty((2 * P, N), dtype=complex)
+    if psi is None:
+        run(circuit, phi, out=both[:P], fuse=fuse, keep=want)
+    else:
+        both[:P] = psi
+    buf = np.empty_like(both)
+    if observable_into is not None:
+        observable_into(both[:P], both[P:], buf[:P])
+    else:
+        both[P:] = apply_observable(both[:P])
+    shared = np.all(phi == phi[:1], axis=0) if P > 1 else np.ones(G, dtype=bool)
+    table = _table(prog, phi, shared)
     grad = np.zeros((P, G))
-    col = G
-    for op in reversed(circuit.operations):
-        g = op.gate
-        if not g.parametric:
-            both = _undo(both, n, g, op.qubits, None)
-            continue
-        col -= 1
-        a = phi[:, col]
-        a2 = np.concatenate([a, a])
-        if col not in want:
-            both = _undo(both, n, g, op.qubits, a2)
-            continue
-        if g.kind == "generator":
-            mu = apply_matrix(both[:P], n, g.generator, op.qubits)
-            grad[:, col] = 2 * np.imag(np.einsum("bi,bi->b", both[P:].conj(), mu))
-            del mu
-            both = _undo(both, n, g, op.qubits, a2)
-        else:
-            lam_k = both[P:].copy()
-            both = _undo(both, n, g, op.qubits, a2)
-            deriv = hamiltonian_derivative if g.kind == "hamiltonian" else _function_derivative
-            D = np.stack([deriv(g, x) for x in a])
-            dpsi = apply_matrix(both[:P], n, D, op.qubits)
-            grad[:, col] = 2 * np.real(np.einsum("bi,bi->b", lam_k.conj(), dpsi))
+    for s in reversed(prog.steps):
+        col = s.column if s.kind == "solo" else None
+        if col is not None and col in want:
+            g = s.op.gate
+            qs = tuple(s.op.qubits)
+            mu = buf[:P]
+            if g.kind == "generator":
+                _apply_generator(g, both[:P], n, qs, mu)
+                grad[:, col] = 2 * np.imag(_row_dots(both[P:], mu))
+            else:
+                deriv = hamiltonian_derivative if g.kind == "hamiltonian" else _function_derivative
+                a = phi[:, col]
+                # d/da <lam_k| dU |psi_{k-1}> with psi_{k-1} = U^dag psi_k: apply dU U^dag to psi_k
+                U = g._matrices(a)
+                X = np.stack([deriv(g, x) for x in a]) @ np.conj(np.swapaxes(U, -1, -2))
+                kernels.apply_dense(both[:P], n, X, qs, mu)
+                grad[:, col] = 2 * np.real(_row_dots(both[P:], mu))
+        both, buf = _undo_step(s, both, buf, n, phi, shared, table, P)
     return grad

@@ -26,13 +26,55 @@ def _flipped(t, xq):
 
 
 def _signed_sum(prod, n, zq):
-    """sum_i prod[i] * (-1)**popcount(i & z) over all but the batch axis."""
-    other = tuple(1 + q for q in range(n) if q not in zq)
-    r = prod.sum(axis=other) if other else prod
+    """sum_i prod[i] * (-1)**popcount(i & z) over all but the batch axis.
+
+    ``prod`` is (B, 2**n) or its (B, 2, ..., 2) view; the sum runs on a compact view with one
+    axis per Z qubit, so it is one reduction pass whatever the word.
+    """
+    B = prod.shape[0]
+    zq = sorted(zq)
+    shape = [B]
+    prev = 0
+    for q in zq:
+        shape += [2 ** (q - prev), 2]
+        prev = q + 1
+    shape.append(2 ** (n - prev))
+    v = prod.reshape(shape)
+    r = v.sum(axis=tuple(range(1, len(shape), 2)))      # (B, 2, ..., 2) over the Z qubits
     for _ in zq:
-        # each remaining axis (in ascending qubit order) contributes a (+1, -1) weight
         r = r[:, 0, ...] - r[:, 1, ...]
     return r
+
+
+def _z_group(t, n, group, B):
+    p = t.reshape(B, -1, 1).view(np.float64)              # (B, N, 2): re, im
+    p = np.einsum("bni,bni->bn", p, p)                     # |psi|^2, one pass, one array
+    total = np.zeros(B)
+    for zq, ny, c in group:
+        total += c * _signed_sum(p, n, zq) if zq else c * p.sum(axis=1)
+    return total
+
+
+def _x_group(t, n, xq, group, B):
+    """Terms flipping the bits ``xq``: products over half the index space (the other half
+    is their complex conjugate)."""
+    x0 = xq[0]
+    sl = [slice(None)] * t.ndim
+    sl[1 + x0] = 0
+    half = t[tuple(sl)]                                   # bit x0 = 0
+    other = _flipped(t, xq)[tuple(sl)]                     # psi[i ^ x] on that half
+    prod = np.conjugate(other)
+    np.multiply(prod, half, out=prod)
+    m = n - 1
+    total = np.zeros(B)
+    for zq, ny, c in group:
+        odd = len(set(zq) & set(xq)) % 2
+        zh = [q - (q > x0) for q in zq if q != x0]       # Z qubits on the half (x0 removed)
+        val = _signed_sum(prod, m, zh) if zh else prod.reshape(B, -1).sum(axis=1)
+        # sum over both halves: prod + (-1)^{|z & x|} conj(prod)
+        full = 2j * val.imag if odd else 2 * val.real
+        total += c * np.real((1j ** ny) * full)
+    return total
 
 
 def pauli_terms_expectation(psi: np.ndarray, n: int, terms: dict) -> np.ndarray:
@@ -45,10 +87,7 @@ def pauli_terms_expectation(psi: np.ndarray, n: int, terms: dict) -> np.ndarray:
         by_x[xq].append((zq, ny, c))
     total = np.zeros(B)
     for xq, group in by_x.items():
-        prod = (np.abs(t) ** 2) if not xq else np.conj(_flipped(t, xq)) * t
-        for zq, ny, c in group:
-            val = _signed_sum(prod, n, zq)
-            total += c * np.real((1j ** ny) * val)
+        total += _x_group(t, n, xq, group, B) if xq else _z_group(t, n, group, B)
     return total
 
 
@@ -84,26 +123,73 @@ def probabilities(psi: np.ndarray, n: int, qubits=None) -> np.ndarray:
     return t.reshape(B, -1)
 
 
-def _sign_tensor(n, zq):
-    shape = [1] * n
-    s = np.ones([1] * n)
+def _negate_where_set(t, zq):
+    """Multiply the (B, 2, ..., 2) view ``t`` by (-1)**popcount(i & z), in place."""
     for q in zq:
-        sh = list(shape)
-        sh[q] = 2
-        s = s * np.array([1.0, -1.0]).reshape(sh)
-    return s
+        sl = [slice(None)] * t.ndim
+        sl[1 + q] = 1
+        v = t[tuple(sl)]
+        np.negative(v, out=v)
 
 
-def apply_observable(psi: np.ndarray, n: int, obs) -> np.ndarray:
-    """O psi for every row (the state the adjoint method starts its bra from)."""
+def apply_observables(psi, n, observables, weights=None, out=None, scratch=None):
+    """``sum_k weights[:, k] * O_k psi`` for every row, written into ``out``.
+
+    ``weights`` is (B, K) (default ones); ``scratch`` an array like ``psi`` that may be
+    overwritten (allocated when not given). Terms are combined word by word first, so a
+    word shared by several observables costs one pass.
+    """
     B = psi.shape[0]
+    K = len(observables)
+    w = np.ones((B, K)) if weights is None else np.asarray(weights, dtype=float).reshape(B, K)
+    coef = {}
+    for k, obs in enumerate(observables):
+        for word, c in obs.terms.items():
+            coef[word] = coef.get(word, 0.0) + c * w[:, k]
+    if out is None:
+        out = np.empty_like(psi)
+    if scratch is None and coef:
+        scratch = np.empty_like(psi)
     t = psi.reshape((B,) + (2,) * n)
-    out = np.zeros_like(t)
-    for word, c in obs.terms.items():
+    o = out.reshape(t.shape)
+    written = False
+    diag_terms = [(masks(wd), c) for wd, c in coef.items() if not masks(wd)[0]]
+    if diag_terms:
+        # all Z-only words as one real diagonal, built in the scratch memory
+        N = 2 ** n
+        d = scratch.view(np.float64).reshape(B, 2 * N)[:, :N].reshape((B,) + (2,) * n)
+        d[...] = 0.0
+        for (xq, zq, ny), c in diag_terms:
+            sign = np.ones((B,) + (1,) * n)
+            shape = [1] * n
+            for q in zq:
+                sh = list(shape)
+                sh[q] = 2
+                sign = sign * np.array([1.0, -1.0]).reshape([1] + sh)
+            d += c.reshape((B,) + (1,) * n) * sign
+        np.multiply(t, d, out=o)
+        written = True
+    for word, c in coef.items():
         xq, zq, ny = masks(word)
-        term = t * _sign_tensor(n, zq)[None] if zq else t
-        out += (c * 1j ** ny) * _flipped(term, xq)
-    out = out.reshape(B, -1)
-    if obs.dense is not None:
-        out += psi @ obs.dense.T
+        if not xq:
+            continue
+        # (P psi)[j] = i**ny (-1)**popcount((j ^ x) & z) psi[j ^ x]
+        odd = len(set(zq) & set(xq)) % 2
+        factor = (c * (1j ** ny) * (-1.0 if odd else 1.0)).reshape((B,) + (1,) * n)
+        target = scratch.reshape(t.shape) if written else o
+        np.multiply(_flipped(t, xq), factor, out=target)
+        _negate_where_set(target, zq)
+        if written:
+            o += target
+        written = True
+    if not written:
+        out[...] = 0
+    for k, obs in enumerate(observables):
+        if obs.dense is not None:
+            out += w[:, k, None] * (psi @ obs.dense.T)
     return out
+
+
+def apply_observable(psi: np.ndarray, n: int, obs, out=None, scratch=None) -> np.ndarray:
+    """O psi for every row (the state the adjoint method starts its bra from)."""
+    return apply_observables(psi, n, [obs], None, out, scratch)
