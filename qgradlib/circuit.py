@@ -80,7 +80,12 @@ class Circuit:
     @property
     def parametric_operations(self) -> tuple:
         """The operations with an angle, in the order of the columns of `angles`."""
-        return tuple(op for op in self._ops if op.gate.parametric)
+        # memoised by length: operations are only ever appended (plans ask once per column)
+        memo = getattr(self, "_pops", None)
+        if memo is None or memo[0] != len(self._ops):
+            memo = (len(self._ops), tuple(op for op in self._ops if getattr(op.gate, "parametric", False)))
+            self._pops = memo
+        return memo[1]
 
     def __len__(self):
         return len(self._ops)

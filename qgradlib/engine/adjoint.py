@@ -12,6 +12,8 @@ four states for one row, whatever the circuit.
 """
 from __future__ import annotations
 
+import weakref
+
 import numpy as np
 
 from . import kernels
@@ -44,13 +46,18 @@ def _tile(m, per_row):
     return np.concatenate([m, m]) if per_row else m
 
 
+_STRUCTURE: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
+
+
 def _apply_generator(g, src, n, qubits, out):
     """out = G src, by the cheapest kernel for the generator's structure."""
     G = np.asarray(g.generator)
     if g.diagonal:
         np.copyto(out, src)
         return kernels.apply_diag(out, n, np.diag(G), qubits)
-    structure = kernels.monomial_structure(G)
+    if g not in _STRUCTURE:
+        _STRUCTURE[g] = kernels.monomial_structure(G)
+    structure = _STRUCTURE[g]
     if structure is not None:
         return kernels.apply_monomial(src, n, structure[0], structure[1], qubits, out)
     return kernels.apply_dense(src, n, G, qubits, out)

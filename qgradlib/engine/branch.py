@@ -1,0 +1,134 @@
+"""Runs of many angle rows that share prefixes: one trunk, branches where rows diverge.
+
+The shifted circuits of a gradient agree with the unshifted one on every gate before the
+shifted gate. Taking the column-wise most common row as a reference (for a shift plan: the
+unshifted angles), each row diverges from it at its first differing column. The reference
+state is carried through the circuit; just before a column where rows diverge, those rows
+branch off as copies of the reference state, and from there on every active row is updated
+by the same kernel calls, in one batch. The rows' states come out exactly as separate runs
+would give them (up to rounding): only the order of the work changes.
+
+A device would still run every circuit: the ledger counts them before this point.
+"""
+from __future__ import annotations
+
+from collections import Counter
+
+import numpy as np
+
+from . import kernels
+from .program import program, step_matrix
+from .statevector import FUSE, _external, _solo, _table, zero_states
+
+__all__ = ["divergence", "run_branched"]
+
+
+def _reference(phi, inserts):
+    """Column-wise most common angle (and insert tuple) of the rows."""
+    P, G = phi.shape
+    ref = np.empty(G)
+    for j in range(G):
+        vals, counts = np.unique(phi[:, j], return_counts=True)
+        ref[j] = vals[np.argmax(counts)]
+    ref_ins = {}
+    if inserts is not None:
+        cols = {c for row in inserts for c in row}
+        for c in cols:
+            common, _ = Counter(tuple(row.get(c, ())) for row in inserts).most_common(1)[0]
+            if common:
+                ref_ins[c] = common
+    return ref, ref_ins
+
+
+def divergence(phi, inserts=None):
+    """``(reference, reference_inserts, first)``: ``first[p]`` is the first column where row p
+    differs from the reference (G when it is the reference)."""
+    P, G = phi.shape
+    ref, ref_ins = _reference(phi, inserts)
+    diff = phi != ref
+    first = np.where(diff.any(axis=1), np.argmax(diff, axis=1), G)
+    if inserts is not None:
+        for p, row in enumerate(inserts):
+            for c in set(row) | set(ref_ins):
+                if tuple(row.get(c, ())) != tuple(ref_ins.get(c, ())) and c < first[p]:
+                    first[p] = c
+    return ref, ref_ins, first
+
+
+def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2):
+    """Final states (P, 2**n) of the rows of ``phi``, in their order, by branching from a
+    shared trunk; None when branching would save less than ``min_saving`` of the work."""
+    phi = np.asarray(phi, dtype=float)
+    P, G = phi.shape
+    if P < 2 or G == 0:
+        return None
+    fuse = FUSE if fuse is None else bool(fuse)
+    ref, ref_ins, first = divergence(phi, inserts)
+    branch_cols = set(int(c) for c in first[first < G])
+    solo = set(branch_cols)
+    if inserts is not None:
+        for row in inserts:
+            solo.update(row.keys())
+    prog = program(circuit, fuse, frozenset(solo), bake_fixed_angles=False)
+    steps = prog.steps
+    S = len(steps)
+    col_step = {s.column: i for i, s in enumerate(steps) if s.kind == "solo" and s.column is not None}
+    start = np.array([col_step[int(c)] if c < G else S for c in first])
+    is_ref = first == G
+    plain = P * S
+    branched = S + float(np.sum(S - start[~is_ref]))
+    if branched > (1.0 - min_saving) * plain:
+        return None
+    n = circuit.n_qubits
+    order = np.argsort(start, kind="stable")
+    order = order[~is_ref[order]]
+    # buffer row 0 is the reference; rows 1.. follow ``order``
+    rows_phi = np.vstack([ref[None], phi[order]])
+    rows_ins = None
+    if inserts is not None:
+        rows_ins = [dict(ref_ins)] + [inserts[p] for p in order]
+    M = rows_phi.shape[0]
+    cur = zero_states(n, M)
+    other = np.empty_like(cur)
+    starts = start[order]
+    full_shared = np.all(rows_phi == rows_phi[:1], axis=0)
+    table = _table(prog, rows_phi, full_shared)
+    active = 1
+    nxt = 0
+    for i, s in enumerate(steps):
+        lo = active
+        while nxt < starts.size and starts[nxt] == i:
+            nxt += 1
+        active = 1 + nxt
+        if active > lo:
+            cur[lo:active] = cur[0]
+        a = active
+        if s.kind == "external":
+            cur[:a] = _external(s, cur[:a], n)
+            continue
+        if s.kind == "solo":
+            sub = rows_phi[:a]
+            shared = np.all(sub == sub[:1], axis=0)
+            ins = None if rows_ins is None else rows_ins[:a]
+            res, _ = _solo(s, cur[:a], other[:a], n, sub, ins, shared)
+            if np.shares_memory(res, other):
+                cur, other = other, cur
+            continue
+        if s.matrix is not None:
+            m = s.matrix
+        else:
+            sub_table = [(v if v.shape[1] == 1 else v[:, :a], sh) for v, sh in table]
+            m = step_matrix(s, sub_table, a)
+        if s.kind == "diag":
+            kernels.apply_diag(cur[:a], n, m, s.qubits)
+        elif s.kind == "mono":
+            kernels.apply_monomial(cur[:a], n, s.mono, m[np.arange(m.shape[-1]), s.mono],
+                                   s.qubits, other[:a])
+            cur, other = other, cur
+        else:
+            kernels.apply_dense(cur[:a], n, m, s.qubits, other[:a], real=s.real)
+            cur, other = other, cur
+    out = np.empty((P, 2 ** n), dtype=complex)
+    out[order] = cur[1:active]
+    out[is_ref] = cur[0]
+    return out
