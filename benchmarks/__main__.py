@@ -1,0 +1,112 @@
+"""``python -m benchmarks``: every figure of the performance table, with same-run baselines.
+
+Options: ``--quick`` (small sizes, a smoke run), ``--repeats R``, ``--out PATH`` (JSON
+results), ``--plot PATH`` (the cost-growth PNG; ``--no-plot`` to skip it), ``--threads T``
+(BLAS threads, default 1: the baselines are single-threaded NumPy loops, and on a shared
+two-core machine a second BLAS thread mostly adds noise).
+"""
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+
+
+def _parse(argv):
+    p = argparse.ArgumentParser(prog="python -m benchmarks", description=__doc__.split("\n")[0])
+    p.add_argument("--quick", action="store_true", help="small sizes: a smoke run of a few seconds")
+    p.add_argument("--repeats", type=int, default=None, help="repeats per figure (default 5, quick 2)")
+    p.add_argument("--out", default=None, help="JSON results file (default benchmarks/results/latest.json)")
+    p.add_argument("--plot", default=None, help="cost-growth PNG (default docs/img/cost_growth.png; "
+                   "quick: benchmarks/results/cost_growth_quick.png)")
+    p.add_argument("--no-plot", action="store_true", help="skip the cost-growth measurements and plot")
+    p.add_argument("--threads", type=int, default=1, help="BLAS threads (default 1)")
+    p.add_argument("--only", default=None, help="comma-separated figure keys to run")
+    args = p.parse_args(argv)
+    if args.repeats is not None and args.repeats < 1:
+        p.error("--repeats must be a positive int")
+    if args.threads < 1:
+        p.error("--threads must be a positive int")
+    return args
+
+
+def main(argv=None):
+    args = _parse(sys.argv[1:] if argv is None else argv)
+    for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+        os.environ[var] = str(args.threads)
+    # imports after the thread settings: BLAS reads them when NumPy loads
+    import json
+    import platform
+    import time
+
+    import numpy as np
+
+    from .figures import FIGURES, SIZES
+    from .growth import measure, plot
+
+    mode = "quick" if args.quick else "full"
+    repeats = args.repeats or (2 if args.quick else 5)
+    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    out = args.out or os.path.join(root, "benchmarks", "results", "latest.json")
+    png = args.plot or os.path.join(root, "docs", "img", "cost_growth.png") if not args.quick else \
+        (args.plot or os.path.join(root, "benchmarks", "results", "cost_growth_quick.png"))
+    machine = _machine(np, platform, args.threads)
+    print(f"qgradlib benchmarks ({mode}, {repeats} repeats) on {machine['cpu']} "
+          f"({machine['nproc']} cores), numpy {machine['numpy']}, BLAS threads {args.threads}")
+    print("Times are simulation on this CPU, not device measurements.\n")
+    keys = None if args.only is None else set(args.only.split(","))
+    sz = SIZES[mode]
+    results = []
+    t0 = time.perf_counter()
+    for fig in FIGURES:
+        if keys is not None and fig.__name__ not in keys and _key(fig) not in keys:
+            continue
+        mem = fig.__name__.endswith("memory")
+        r = fig(sz, 1 if (mem and args.quick) else (min(repeats, 2) if mem else repeats))
+        results.append(r)
+        _print(r)
+    growth = None
+    if not args.no_plot and keys is None:
+        growth = measure(mode, repeats)
+        os.makedirs(os.path.dirname(os.path.abspath(png)), exist_ok=True)
+        plot(growth, png)
+        print(f"\ncost-growth plot: {png}")
+    doc = {"suite": "qgradlib benchmarks", "mode": mode, "repeats": repeats, "machine": machine,
+           "seconds": time.perf_counter() - t0, "figures": results, "growth": growth,
+           "plot": None if growth is None else os.path.abspath(png)}
+    os.makedirs(os.path.dirname(os.path.abspath(out)), exist_ok=True)
+    with open(out, "w") as fh:
+        json.dump(doc, fh, indent=2)
+    print(f"results: {out}")
+    return 0
+
+
+def _key(fig):
+    return fig.__name__
+
+
+def _print(r):
+    unit = {"ratio": "x", "states": " states", "us": " us"}[r["unit"]]
+    ok = "met" if r["met"] else "NOT met"
+    print(f"{r['figure']}\n    median {r['median']:.3g}{unit}  (min {r['min']:.3g}, max {r['max']:.3g}, "
+          f"IQR {r['q1']:.3g}-{r['q3']:.3g}, {len(r['samples'])} repeats)  target {r['op']} "
+          f"{r['target']:g}: {ok}")
+
+
+def _machine(np, platform, threads):
+    cpu = platform.processor() or "unknown"
+    try:
+        with open("/proc/cpuinfo") as fh:
+            for line in fh:
+                if line.startswith("model name"):
+                    cpu = line.split(":", 1)[1].strip()
+                    break
+    except OSError:
+        pass
+    return {"cpu": cpu, "nproc": os.cpu_count(), "numpy": np.__version__,
+            "python": platform.python_version(), "platform": platform.platform(),
+            "blas_threads": threads}
+
+
+if __name__ == "__main__":
+    sys.exit(main())
