@@ -196,11 +196,22 @@ def _adjoint_vjp(phi, spec, g):
         def into(psi, out, scratch):
             out[...] = psi
             apply_diagonal(out, n, g.astype(complex), qubits)
-    psi = _forward_states.pop(spec, None)
-    if psi is not None:
-        key, states, inverse = psi
-        psi = states[inverse] if key == phi.tobytes() else None
-    return adjoint_gradient(spec.circuit, phi, columns=spec.columns, observable_into=into, psi=psi)
+    # the states go straight into the call (no local name), so the adjoint can free them
+    # once copied into its stacked buffer
+    return adjoint_gradient(spec.circuit, phi, columns=spec.columns, observable_into=into,
+                            psi=_take_states(spec, phi))
+
+
+def _take_states(spec, phi):
+    """The forward evaluation's final states for ``phi`` (P, G), if they were kept."""
+    held = _forward_states.pop(spec, None)
+    if held is None or held[0] != phi.tobytes():
+        return None
+    _, states, inverse = held
+    del held
+    if inverse.size == states.shape[0] and np.array_equal(inverse, np.arange(inverse.size)):
+        return states
+    return states[inverse]
 
 
 def _evaluate_vjp(ans, phi, spec, inserts=None, purposes="value"):

@@ -49,6 +49,13 @@ def _tile(m, per_row):
 _STRUCTURE: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 
 
+def _structure(g):
+    """(cols, phases) of a generator with at most one nonzero a row (diagonal included)."""
+    if g not in _STRUCTURE:
+        _STRUCTURE[g] = kernels.monomial_structure(np.asarray(g.generator))
+    return _STRUCTURE[g]
+
+
 def _apply_generator(g, src, n, qubits, out):
     """out = G src, by the cheapest kernel for the generator's structure."""
     G = np.asarray(g.generator)
@@ -61,6 +68,40 @@ def _apply_generator(g, src, n, qubits, out):
     if structure is not None:
         return kernels.apply_monomial(src, n, structure[0], structure[1], qubits, out)
     return kernels.apply_dense(src, n, G, qubits, out)
+
+
+def _block_dots(lam, psi, n, cols, phases, qubits):
+    """``2 Im <lam|G|psi>`` per row for a generator with one nonzero a row, all of them
+    imaginary (Y-type: RY, RYY, ...): then only ``Re <a|b>`` of blocks is needed, a plain
+    dot product of float views. One read of each state, nothing written."""
+    k = len(qubits)
+    order = sorted(range(k), key=lambda i: qubits[i])
+    sq = tuple(qubits[i] for i in order)
+    lt, axes = kernels._views(lam, n, sq)
+    shape = list(lt.shape)
+    shape[-1] *= 2
+    lf = lam.view(np.float64).reshape(shape)
+    pf = psi.view(np.float64).reshape(shape)
+    ndim = lf.ndim
+    sub = "p" + "abcdefghijklmnoqrstuvwxyz"[:ndim - 1 - k]
+    total = np.zeros(lam.shape[0])
+    for i in range(2 ** k):
+        c = int(cols[i])
+        bi, bc = kernels._bits(i, k), kernels._bits(c, k)
+        a = lf[kernels._index(axes, ndim, [bi[j] for j in order])]
+        b = pf[kernels._index(axes, ndim, [bc[j] for j in order])]
+        # Im(g <a|b>) = Im(g) Re<a|b> for imaginary g
+        total += complex(phases[i]).imag * np.einsum(f"{sub},{sub}->p", a, b)
+    return 2 * total
+
+
+def _dots_apply(st, n, qubits):
+    """Whether `_block_dots` applies: imaginary nonzeros, no zero rows, long strides."""
+    if st is None:
+        return False
+    cols, phases = st
+    return (np.all(cols >= 0) and not np.any(np.real(phases))
+            and 2 ** (n - max(qubits) - 1) >= kernels.TAIL_STRIDE)
 
 
 def _row_dots(a, b):
@@ -149,6 +190,7 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
         run(circuit, phi, out=both[:P], fuse=fuse, keep=want)
     else:
         both[:P] = psi
+    del psi  # the caller's copy can go now: at most four states from here on
     buf = np.empty_like(both)
     if observable_into is not None:
         observable_into(both[:P], both[P:], buf[:P])
@@ -157,22 +199,87 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
     shared = np.all(phi == phi[:1], axis=0) if P > 1 else np.ones(G, dtype=bool)
     table = _table(prog, phi, shared)
     grad = np.zeros((P, G))
-    for s in reversed(prog.steps):
-        col = s.column if s.kind == "solo" else None
-        if col is not None and col in want:
-            g = s.op.gate
-            qs = tuple(s.op.qubits)
-            mu = buf[:P]
-            if g.kind == "generator":
-                _apply_generator(g, both[:P], n, qs, mu)
-                grad[:, col] = 2 * np.imag(_row_dots(both[P:], mu))
-            else:
-                deriv = hamiltonian_derivative if g.kind == "hamiltonian" else _function_derivative
-                a = phi[:, col]
-                # d/da <lam_k| dU |psi_{k-1}> with psi_{k-1} = U^dag psi_k: apply dU U^dag to psi_k
-                U = g._matrices(a)
-                X = np.stack([deriv(g, x) for x in a]) @ np.conj(np.swapaxes(U, -1, -2))
-                kernels.apply_dense(both[:P], n, X, qs, mu)
-                grad[:, col] = 2 * np.real(_row_dots(both[P:], mu))
-        both, buf = _undo_step(s, both, buf, n, phi, shared, table, P)
+    steps = prog.steps
+    i = len(steps) - 1
+    while i >= 0:
+        s = steps[i]
+        if not _trainable(s, want):
+            both, buf = _undo_step(s, both, buf, n, phi, shared, table, P)
+            i -= 1
+            continue
+        # a block of trainable gates on disjoint qubits commutes: every derivative in it can
+        # be taken at the block's end, and the block undone with single-qubit pairs fused
+        block = [s]
+        used = set(s.qubits)
+        j = i - 1
+        while j >= 0 and _trainable(steps[j], want) and not used & set(steps[j].qubits):
+            block.append(steps[j])
+            used |= set(steps[j].qubits)
+            j -= 1
+        for b in block:
+            _derivative(b, both, buf, n, phi, P, grad)
+        both, buf = _undo_block(block, both, buf, n, phi, shared, table, P)
+        i = j
     return grad
+
+
+def _trainable(s, want):
+    return s.kind == "solo" and s.column is not None and s.column in want
+
+
+def _derivative(s, both, buf, n, phi, P, grad):
+    g = s.op.gate
+    col = s.column
+    qs = tuple(s.op.qubits)
+    mu = buf[:P]
+    if g.kind == "generator":
+        st = _structure(g)
+        if _dots_apply(st, n, qs):
+            grad[:, col] = _block_dots(both[P:], both[:P], n, st[0], st[1], qs)
+        else:
+            _apply_generator(g, both[:P], n, qs, mu)
+            grad[:, col] = 2 * np.imag(_row_dots(both[P:], mu))
+        return
+    deriv = hamiltonian_derivative if g.kind == "hamiltonian" else _function_derivative
+    a = phi[:, col]
+    # <lam_k| dU |psi_{k-1}> with psi_{k-1} = U^dag psi_k: apply dU U^dag to psi_k
+    U = g._matrices(a)
+    X = np.stack([deriv(g, x) for x in a]) @ np.conj(np.swapaxes(U, -1, -2))
+    kernels.apply_dense(both[:P], n, X, qs, mu)
+    grad[:, col] = 2 * np.real(_row_dots(both[P:], mu))
+
+
+def _inverse_1q(s, phi, shared):
+    """U(a)^dagger of a single-qubit generator gate: (2, 2) shared or (P, 2, 2)."""
+    g = s.op.gate
+    a = phi[:, s.column]
+    sh = bool(shared[s.column])
+    m = g._matrices(-(a[:1] if sh else a))
+    return m[0] if sh else m
+
+
+def _undo_block(block, both, buf, n, phi, shared, table, P):
+    pairable = {b.op.qubits[0]: b for b in block
+                if len(b.op.qubits) == 1 and b.op.gate.kind == "generator" and not b.op.gate.diagonal}
+    done = set()
+    # the block's gates commute, so they may be undone in ascending qubit order (pairs)
+    for b in sorted(block, key=lambda x: min(x.op.qubits)):
+        q = b.op.qubits[0] if len(b.op.qubits) == 1 else None
+        if id(b) in done:
+            continue
+        if q is not None and pairable.get(q) is b and q + 1 in pairable and id(pairable[q + 1]) not in done:
+            other = pairable[q + 1]
+            u0, u1 = _inverse_1q(b, phi, shared), _inverse_1q(other, phi, shared)
+            if u0.ndim == 2 and u1.ndim == 2:
+                m = np.kron(u0, u1)
+            else:
+                u0 = np.broadcast_to(u0, (P, 2, 2))
+                u1 = np.broadcast_to(u1, (P, 2, 2))
+                m = _tile(np.einsum("pij,pkl->pikjl", u0, u1).reshape(P, 4, 4), True)
+            kernels.apply_dense(both, n, m, (q, q + 1), buf)
+            both, buf = buf, both
+            done.update((id(b), id(other)))
+            continue
+        both, buf = _undo_step(b, both, buf, n, phi, shared, table, P)
+        done.add(id(b))
+    return both, buf

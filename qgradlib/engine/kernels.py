@@ -196,50 +196,57 @@ def apply_monomial(psi, n, cols, phases, qubits, out):
     return out
 
 
+def _broadcast_diag(psi, n, diag, sq):
+    """In-place multiply by a diagonal on ascending qubits ``sq``, on a compact view: each
+    run of consecutive target qubits is one axis of the phase tensor, each gap one
+    broadcast axis (real phases act on the float view, half the arithmetic)."""
+    B = psi.shape[0]
+    per_row = diag.ndim == 2
+    runs = []
+    for q in sq:
+        if runs and runs[-1][1] == q:
+            runs[-1][1] = q + 1
+        else:
+            runs.append([q, q + 1])
+    vshape, dshape = [B], [diag.shape[0] if per_row else 1]
+    prev = 0
+    for lo, hi in runs:
+        if lo > prev:
+            vshape.append(2 ** (lo - prev))
+            dshape.append(1)
+        vshape.append(2 ** (hi - lo))
+        dshape.append(2 ** (hi - lo))
+        prev = hi
+    if prev < n:
+        vshape.append(2 ** (n - prev))
+        dshape.append(1)
+    d = diag.reshape(dshape)
+    if not np.any(d.imag):
+        d = d.real
+        vshape[-1] *= 2
+        if dshape[-1] > 1:
+            d = np.repeat(d, 2, axis=-1)
+        v = psi.view(np.float64).reshape(vshape)
+    else:
+        v = psi.reshape(vshape)
+    v *= d
+    return psi
+
+
 def apply_diag(psi, n, diag, qubits):
     """Multiply by ``diag`` ((d,) or (B, d)) on ``qubits``, in place; returns psi."""
     diag, sq = sort_qubits(np.asarray(diag), qubits, diag=True)
     k = len(sq)
     per_row = diag.ndim == 2
-    B = psi.shape[0]
-    w = n - sq[0]
-    if 2 ** (n - sq[-1] - 1) < TAIL_STRIDE and w <= 4 and n > k:
-        # short strides: one contiguous multiply by the phases of the last ``w`` qubits
-        full = np.ones(((B if per_row else 1),) + (2,) * w, dtype=complex)
-        shape = [full.shape[0]] + [1] * w
-        for q in sq:
-            shape[1 + q - sq[0]] = 2
-        full *= diag.reshape(shape)
-        D = 2 ** w
-        if not np.any(full.imag):
-            # real phases (signs): multiply the float view, half the arithmetic
-            f2 = np.repeat(full.real.reshape(-1, D), 2, axis=-1)
-            v = psi.view(np.float64)
-            if per_row:
-                v.reshape(B, -1, 2 * D)[...] *= f2.reshape(B, 1, 2 * D)
-            else:
-                v.reshape(-1, 2 * D)[...] *= f2.reshape(2 * D)
-        elif per_row:
-            psi.reshape(B, -1, D)[...] *= full.reshape(B, 1, D)
-        else:
-            psi.reshape(-1, D)[...] *= full.reshape(D)
-        return psi
-    if k > 3:
-        shape = [diag.shape[0] if per_row else 1] + [1] * n
-        for q in sq:
-            shape[1 + q] = 2
-        psi.reshape((psi.shape[0],) + (2,) * n)[...] *= diag.reshape(shape)
-        return psi
+    if k > 2 or 2 ** (n - sq[-1] - 1) < TAIL_STRIDE or per_row:
+        return _broadcast_diag(psi, n, diag, sq)
     t, axes = _views(psi, n, sq)
     ndim = t.ndim
     for i in range(2 ** k):
-        vi = t[_index(axes, ndim, _bits(i, k))]
-        if per_row:
-            vi *= diag[:, i].reshape((-1,) + (1,) * (vi.ndim - 1))
-            continue
         p = diag[i]
         if p == 1:
             continue
+        vi = t[_index(axes, ndim, _bits(i, k))]
         if p == -1:
             np.negative(vi, out=vi)
         else:

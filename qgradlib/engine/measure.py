@@ -12,6 +12,7 @@ from collections import defaultdict
 import numpy as np
 
 from ..paulis import masks
+from .kernels import _views
 
 __all__ = ["pauli_expectation", "expectations", "probabilities"]
 
@@ -150,24 +151,22 @@ def apply_observables(psi, n, observables, weights=None, out=None, scratch=None)
         out = np.empty_like(psi)
     if scratch is None and coef:
         scratch = np.empty_like(psi)
-    t = psi.reshape((B,) + (2,) * n)
-    o = out.reshape(t.shape)
     written = False
     diag_terms = [(masks(wd), c) for wd, c in coef.items() if not masks(wd)[0]]
     if diag_terms:
         # all Z-only words as one real diagonal, built in the scratch memory
         N = 2 ** n
-        d = scratch.view(np.float64).reshape(B, 2 * N)[:, :N].reshape((B,) + (2,) * n)
+        d = scratch.view(np.float64).reshape(B, 2 * N)[:, :N]
         d[...] = 0.0
         for (xq, zq, ny), c in diag_terms:
-            sign = np.ones((B,) + (1,) * n)
-            shape = [1] * n
-            for q in zq:
-                sh = list(shape)
-                sh[q] = 2
-                sign = sign * np.array([1.0, -1.0]).reshape([1] + sh)
-            d += c.reshape((B,) + (1,) * n) * sign
-        np.multiply(t, d, out=o)
+            dv, axes = _views(d, n, tuple(sorted(zq)))
+            sign = np.ones((1,) * dv.ndim)
+            for ax in axes:
+                sh = [1] * dv.ndim
+                sh[ax] = 2
+                sign = sign * np.array([1.0, -1.0]).reshape(sh)
+            dv += c.reshape((B,) + (1,) * (dv.ndim - 1)) * sign
+        np.multiply(psi, d, out=out)
         written = True
     for word, c in coef.items():
         xq, zq, ny = masks(word)
@@ -175,12 +174,22 @@ def apply_observables(psi, n, observables, weights=None, out=None, scratch=None)
             continue
         # (P psi)[j] = i**ny (-1)**popcount((j ^ x) & z) psi[j ^ x]
         odd = len(set(zq) & set(xq)) % 2
-        factor = (c * (1j ** ny) * (-1.0 if odd else 1.0)).reshape((B,) + (1,) * n)
-        target = scratch.reshape(t.shape) if written else o
-        np.multiply(_flipped(t, xq), factor, out=target)
-        _negate_where_set(target, zq)
+        qs = tuple(sorted(set(xq) | set(zq)))
+        tv, axes = _views(psi, n, qs)
+        target = scratch if written else out
+        ov, _ = _views(target, n, qs)
+        sl = [slice(None)] * tv.ndim
+        for q in xq:
+            sl[axes[qs.index(q)]] = slice(None, None, -1)
+        factor = (c * (1j ** ny) * (-1.0 if odd else 1.0)).reshape((B,) + (1,) * (tv.ndim - 1))
+        np.multiply(tv[tuple(sl)], factor, out=ov)
+        for q in zq:
+            sl = [slice(None)] * ov.ndim
+            sl[axes[qs.index(q)]] = 1
+            v = ov[tuple(sl)]
+            np.negative(v, out=v)
         if written:
-            o += target
+            out += target
         written = True
     if not written:
         out[...] = 0

@@ -31,6 +31,8 @@ __all__ = ["Step", "Program", "program", "is_gate", "SMALL_N"]
 
 # at or below this many qubits a kernel costs less than its Python call: every merge pays
 SMALL_N = 10
+# widest diagonal step (qubits): its phases are a vector of 2**DIAG_WIDTH entries
+DIAG_WIDTH = 10
 _COST = {"diag": 1, "mono": 2, "dense": 3}
 
 
@@ -147,7 +149,7 @@ def compile_program(circuit, fuse: bool, solo_columns=frozenset(), bake_fixed_an
                 if s.kind in _COST and set(qs) <= set(s.qubits):
                     allc = not s.varies and const
                     res = _merged(s.kind, klass, allc)
-                    if _pays(n, (s.kind, klass), res, s.qubits):
+                    if (res == "diag" or len(s.qubits) <= 2) and _pays(n, (s.kind, klass), res, s.qubits):
                         s.kind = res
                         s.factors.append(f)
                         placed = idx
@@ -170,6 +172,17 @@ def compile_program(circuit, fuse: bool, solo_columns=frozenset(), bake_fixed_an
                             steps[i] = None
                         steps.append(Step(res, tuple(sorted(qs)), factors))
                         placed = len(steps) - 1
+            if placed is None and klass == "diag":
+                # diagonal gates commute: join the latest step on these qubits if it is diagonal
+                owners = [last[q] for q in qs if q in last]
+                if owners:
+                    idx = max(owners)
+                    s = steps[idx]
+                    union = tuple(sorted(set(s.qubits) | set(qs)))
+                    if s.kind == "diag" and len(union) <= DIAG_WIDTH:
+                        s.qubits = union
+                        s.factors.append(f)
+                        placed = idx
         if placed is None:
             steps.append(Step(klass, tuple(sorted(qs)), [f]))
             placed = len(steps) - 1
