@@ -1,0 +1,33 @@
+"""The benchmark suite runs at small sizes and writes every figure (no timing asserts)."""
+import json
+import os
+import subprocess
+import sys
+
+ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+KEYS = {"gate_pass", "adjoint_forward", "shift_forward", "backprop_adjoint", "forward_memory",
+        "adjoint_memory", "overhead_n4"}
+
+
+def test_quick_suite_writes_every_figure(tmp_path):
+    out = tmp_path / "results.json"
+    png = tmp_path / "growth.png"
+    env = dict(os.environ)
+    env["PYTHONPATH"] = ROOT + os.pathsep + env.get("PYTHONPATH", "")
+    proc = subprocess.run([sys.executable, "-m", "benchmarks", "--quick", "--repeats", "1",
+                           "--out", str(out), "--plot", str(png)],
+                          cwd=ROOT, env=env, capture_output=True, text=True, timeout=120)
+    assert proc.returncode == 0, proc.stderr
+    doc = json.loads(out.read_text())
+    figs = {f["key"]: f for f in doc["figures"]}
+    assert set(figs) == KEYS
+    for f in figs.values():
+        for field in ("median", "min", "max", "q1", "q3", "target", "op", "met", "samples"):
+            assert field in f
+        assert f["min"] <= f["median"] <= f["max"] and f["median"] > 0
+    assert doc["machine"]["nproc"] >= 1 and doc["machine"]["numpy"]
+    assert png.exists() and png.read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"
+    # every figure is printed as a line of the table
+    assert proc.stdout.count("target") == len(KEYS)
+    # the plain simulator's gradient agrees with ours (a silent mismatch would void the ratio)
+    assert figs["backprop_adjoint"]["details"]["max_gradient_difference"] < 1e-9

@@ -1,0 +1,101 @@
+"""Shared-prefix batches: branching changes neither the values nor the ledger.
+
+References: the unbranched engine run of each row (the same rows, one batch, no trunk), and
+an independent dense simulation for the values; the ledger's counts of a two-term gradient
+(2 circuits per parameter, # common practice).
+"""
+import numpy as np
+import pytest
+from autograd import grad
+from hypothesis import given, strategies as st
+
+import qgradlib as qg
+from qgradlib.engine.branch import divergence, run_branched
+from qgradlib.engine.statevector import run
+from qgradlib.plans import first_order_points
+
+try:
+    from .test_fusion import PULSE, circuits, dense_reference
+except ImportError:  # tests/ is not a package
+    from test_fusion import PULSE, circuits, dense_reference
+
+
+def _plan(c, seed):
+    phi = np.atleast_2d(c.angles(np.random.default_rng(seed).normal(size=c.n_params)))
+    cols = [k for k, op in enumerate(c.parametric_operations) if op.param is not None]
+    points, ins, _, _ = first_order_points(c, phi, None, cols)
+    return phi, np.asarray(points), ins
+
+
+@given(circuits(max_n=5, pulses=True), st.integers(0, 2 ** 31), st.booleans())
+def test_branched_rows_equal_separate_runs(c, seed, fuse):
+    phi, points, ins = _plan(c, seed)
+    if points.shape[0] < 2:
+        return
+    got = run_branched(c, points, ins, fuse=fuse, min_saving=0.0)
+    if got is None:
+        return
+    assert np.max(np.abs(got - run(c, points, ins, fuse=False))) <= 1e-12
+    if ins is None:
+        # reference: dense kron/expm simulation of one row
+        assert np.allclose(got[0], dense_reference(c, points[0]), atol=1e-10)
+
+
+def test_rows_diverge_at_their_shifted_column():
+    c = qg.Circuit(2).ry(0).ry(1).cz(0, 1).rx(0)
+    phi, points, _ = _plan(c, 1)
+    ref, _, first = divergence(points)
+    assert np.allclose(ref, phi[0])  # the column-wise mode of a shift plan: unshifted angles
+    assert first.tolist() == [0, 0, 1, 1, 2, 2]
+
+
+def test_arbitrary_batches_fall_back_to_a_plain_run():
+    c = qg.Circuit(2).ry(0).ry(1)
+    rows = np.random.default_rng(0).normal(size=(5, 2))
+    assert run_branched(c, rows) is None
+
+
+def _ising(n):
+    terms = {"I" * q + "ZZ" + "I" * (n - q - 2): -1.0 for q in range(n - 1)}
+    terms.update({"I" * q + "X" + "I" * (n - q - 1): -0.5 for q in range(n)})
+    return qg.Observable(terms)
+
+
+def _layered(n, layers):
+    c = qg.Circuit(n)
+    for _ in range(layers):
+        for q in range(n):
+            c.ry(q)
+        for q in range(n - 1):
+            c.cz(q, q + 1)
+    return c
+
+
+@pytest.mark.parametrize("memory", [None, 3 * 16 * 2 ** 5 * 4])
+def test_gradient_ledger_and_values_unchanged_by_branching(memory, monkeypatch):
+    n = 5
+    c = _layered(n, 2)
+    H = _ising(n)
+    theta = np.random.default_rng(2).normal(size=c.n_params)
+    f = lambda t: qg.expect(c, H, t, memory=memory)  # noqa: E731
+    with qg.Ledger() as book:
+        g = grad(f)(theta)
+    # common practice: two-term rule, 2 circuits per parameter, plus the forward value
+    assert book.circuits == 2 * c.n_params + 1
+    import qgradlib.expectation as ex
+    monkeypatch.setattr(ex, "run_branched", lambda *a, **k: None)
+    with qg.Ledger() as plain_book:
+        g_plain = grad(f)(theta)
+    assert np.max(np.abs(g - g_plain)) <= 1e-12
+    assert plain_book.circuits == book.circuits and plain_book.executions == book.executions
+    # reference: adjoint method (a different algorithm) agrees with the shift rule
+    g_adj = grad(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)
+    assert np.allclose(g, g_adj, atol=1e-10)
+
+
+def test_stochastic_rule_points_branch_at_the_hamiltonian_gate():
+    c = qg.Circuit(2).ry(0).add(PULSE, 1).cnot(0, 1).ry(1)
+    phi, points, ins = _plan(c, 3)
+    got = run_branched(c, points, ins, min_saving=0.0)
+    assert got is not None
+    assert np.max(np.abs(got - run(c, points, ins, fuse=False))) <= 1e-12
