@@ -1,7 +1,8 @@
 """``python -m benchmarks``: every figure of the performance table, with same-run baselines.
 
 Options: ``--quick`` (small sizes, a smoke run), ``--repeats R``, ``--out PATH`` (JSON
-results), ``--plot PATH`` (the cost-growth PNG; ``--no-plot`` to skip it), ``--threads T``
+results), ``--markdown PATH`` (the table as Markdown), ``--plot PATH`` (the cost-growth PNG;
+``--no-plot`` to skip it), ``--only KEYS`` (some figures), ``--threads T``
 (BLAS threads, default 1: the baselines are single-threaded NumPy loops, and on a shared
 two-core machine a second BLAS thread mostly adds noise).
 """
@@ -22,6 +23,7 @@ def _parse(argv):
     p.add_argument("--no-plot", action="store_true", help="skip the cost-growth measurements and plot")
     p.add_argument("--threads", type=int, default=1, help="BLAS threads (default 1)")
     p.add_argument("--only", default=None, help="comma-separated figure keys to run")
+    p.add_argument("--markdown", default=None, help="also write the table as Markdown to this path")
     args = p.parse_args(argv)
     if args.repeats is not None and args.repeats < 1:
         p.error("--repeats must be a positive int")
@@ -78,6 +80,11 @@ def main(argv=None):
     with open(out, "w") as fh:
         json.dump(doc, fh, indent=2)
     print(f"results: {out}")
+    if args.markdown:
+        from .report import markdown
+        with open(args.markdown, "w") as fh:
+            fh.write(markdown(doc))
+        print(f"table: {args.markdown}")
     return 0
 
 

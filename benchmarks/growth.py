@@ -64,9 +64,9 @@ def plot(data, path):
     import matplotlib.pyplot as plt
 
     fig, axes = plt.subplots(1, 3, figsize=(13, 4))
-    panels = [("qubits", "n", "qubits n (" + data["notes"]["qubits"] + ")"),
-              ("layers", "layers", "layers (" + data["notes"]["layers"] + ")"),
-              ("params", "m", "trainable parameters m (" + data["notes"]["params"] + ")")]
+    panels = [("qubits", "n", "qubits n\n(" + data["notes"]["qubits"] + ")"),
+              ("layers", "layers", "layers, m = n * layers\n(" + data["notes"]["layers"] + ")"),
+              ("params", "m", "trainable parameters m\n(" + data["notes"]["params"] + ")")]
     for ax, (key, xk, label) in zip(axes, panels):
         rows = data[key]
         for what, style in (("forward", "o-"), ("adjoint", "s-"), ("shift", "^-")):

@@ -6,6 +6,7 @@ target axes by numpy.einsum (a reference library routine, independent of the ker
 import string
 
 import numpy as np
+import pytest
 from hypothesis import given, strategies as st
 
 from qgradlib.engine import apply_diagonal, apply_matrix
@@ -118,3 +119,24 @@ def test_monomial_structure_recognises_permutations_with_phases_only():
     assert monomial_structure(np.array([[1, 1], [1, -1]]) / np.sqrt(2)) is None
     cols, ph = monomial_structure(np.array([[0, -1j], [1j, 0]]))
     assert cols.tolist() == [1, 0] and np.allclose(ph, [-1j, 1j])
+
+
+def test_strided_and_real_inputs_are_handled_or_refused():
+    rng = np.random.default_rng(0)
+    n = 3
+    big = _state(rng, 2, n + 1)
+    psi = big[:, ::2]                      # a strided view of a (2, 8) batch
+    m = _unitary(rng, 2)
+    expected = einsum_reference(np.ascontiguousarray(psi), n, m, (1,))
+    assert np.allclose(apply_matrix(psi, n, m, (1,)), expected, atol=1e-12)
+    d = np.exp(1j * rng.normal(size=2))
+    expected = einsum_reference(np.ascontiguousarray(psi), n, np.diag(d), (2,))
+    apply_diagonal(psi, n, d, (2,))         # in place, through the strided view
+    assert np.allclose(psi, expected, atol=1e-12)
+    real = np.ones((1, 4))
+    apply_diagonal(real, 2, np.array([1.0, -1.0]), (0,))
+    assert real.tolist() == [[1.0, 1.0, -1.0, -1.0]]
+    with pytest.raises(TypeError, match="complex"):
+        apply_diagonal(np.ones((1, 4)), 2, np.array([1.0, 1j]), (0,))
+    with pytest.raises(ValueError, match="out must be"):
+        apply_matrix(np.ones((1, 4), complex), 2, m, (0,), out=np.empty((1, 3), complex))

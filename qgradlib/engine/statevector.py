@@ -56,14 +56,26 @@ def apply_matrix(psi: np.ndarray, n: int, mat: np.ndarray, qubits, out=None) -> 
     mat = np.asarray(mat)
     if mat.dtype != complex:
         mat = mat.astype(complex)
+    # the kernels work on reshaped and float views of C-ordered complex128 rows
+    psi = np.ascontiguousarray(psi, dtype=complex)
     if out is None:
         out = np.empty_like(psi)
+    elif not (out.flags.c_contiguous and out.dtype == complex and out.shape == psi.shape):
+        raise ValueError(f"out must be a C-contiguous complex128 array of shape {psi.shape}")
     return kernels.apply_dense(psi, n, mat, tuple(qubits), out)
 
 
 def apply_diagonal(psi: np.ndarray, n: int, diag: np.ndarray, qubits) -> np.ndarray:
     """Multiply by a (d,) or per-row (B, d) diagonal on ``qubits``, in place; returns psi."""
-    return kernels.apply_diag(psi, n, np.asarray(diag), tuple(qubits))
+    if psi.flags.c_contiguous and psi.dtype == complex:
+        return kernels.apply_diag(psi, n, np.asarray(diag), tuple(qubits))
+    # strided or non-complex input: work on a C-ordered complex copy and write it back
+    if not np.iscomplexobj(psi) and np.any(np.imag(diag)):
+        raise TypeError(f"psi has dtype {psi.dtype}: complex phases need a complex array (in place)")
+    work = np.array(psi, dtype=complex, order="C")
+    kernels.apply_diag(work, n, np.asarray(diag, dtype=complex), tuple(qubits))
+    psi[...] = work if np.iscomplexobj(psi) else work.real
+    return psi
 
 
 def apply_gate(psi, n, gate, qubits, angles=None, out=None):

@@ -1,0 +1,30 @@
+"""The results file as a Markdown table (what docs/performance.md shows)."""
+from __future__ import annotations
+
+import json
+import sys
+
+__all__ = ["markdown"]
+
+_UNIT = {"ratio": "x", "states": " states", "us": " µs"}
+
+
+def markdown(doc) -> str:
+    m = doc["machine"]
+    lines = [f"Measured by `python -m benchmarks` ({doc['mode']}, {doc['repeats']} repeats) on "
+             f"{m['cpu']}, {m['nproc']} cores, numpy {m['numpy']}, Python {m['python']}, "
+             f"BLAS threads {m['blas_threads']}.", "",
+             "| figure | target | median | spread (min – max; IQR) | met |",
+             "|---|---|---|---|---|"]
+    for f in doc["figures"]:
+        u = _UNIT[f["unit"]]
+        g = ".2f" if f["unit"] == "states" else ".3g"
+        lines.append(f"| {f['figure']} | {f['op'].replace('<=', '≤').replace('>=', '≥')} {f['target']:g}{u} | "
+                     f"{f['median']:{g}}{u} | {f['min']:{g}} – {f['max']:{g}}; {f['q1']:{g}} – {f['q3']:{g}} | "
+                     f"{'yes' if f['met'] else 'no'} |")
+    return "\n".join(lines) + "\n"
+
+
+if __name__ == "__main__":
+    with open(sys.argv[1]) as fh:
+        print(markdown(json.load(fh)), end="")
