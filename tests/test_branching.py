@@ -20,16 +20,17 @@ except ImportError:  # tests/ is not a package
     from test_fusion import PULSE, circuits, dense_reference
 
 
-def _plan(c, seed):
-    phi = np.atleast_2d(c.angles(np.random.default_rng(seed).normal(size=c.n_params)))
+def _plan(c, seed, B=1):
+    phi = np.atleast_2d(c.angles(np.random.default_rng(seed).normal(size=(B, c.n_params))))
     cols = [k for k, op in enumerate(c.parametric_operations) if op.param is not None]
     points, ins, _, _ = first_order_points(c, phi, None, cols)
     return phi, np.asarray(points), ins
 
 
-@given(circuits(max_n=5, pulses=True), st.integers(0, 2 ** 31), st.booleans())
-def test_branched_rows_equal_separate_runs(c, seed, fuse):
-    phi, points, ins = _plan(c, seed)
+@given(circuits(max_n=5, pulses=True), st.integers(0, 2 ** 31), st.booleans(), st.integers(1, 3))
+def test_branched_rows_equal_separate_runs(c, seed, fuse, B):
+    # several parameter rows: the reference row mixes their angles, rows diverge anywhere
+    phi, points, ins = _plan(c, seed, B)
     if points.shape[0] < 2:
         return
     got = run_branched(c, points, ins, fuse=fuse, min_saving=0.0)

@@ -64,8 +64,9 @@ def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2):
         return None
     fuse = FUSE if fuse is None else bool(fuse)
     ref, ref_ins, first = divergence(phi, inserts)
-    branch_cols = set(int(c) for c in first[first < G])
-    solo = set(branch_cols)
+    # every column where some row differs stays a step of its own: fusion may move a fused
+    # gate across others, but never a kept one, so circuit order = step order for these
+    solo = set(np.flatnonzero(np.any(phi != ref, axis=0)).tolist())
     if inserts is not None:
         for row in inserts:
             solo.update(row.keys())

@@ -78,6 +78,7 @@ class Program:
     const_columns: tuple             # columns whose angle was baked in (checked at run time)
     const_angles: np.ndarray
     groups: list = field(default_factory=list)   # (gate, diagonal?, columns) of varying factors
+    n_columns: int = 0                           # parametric operations (columns of phi)
 
 
 def _klass(gate):
@@ -210,7 +211,7 @@ def compile_program(circuit, fuse: bool, solo_columns=frozenset(), bake_fixed_an
     gates = {id(f.gate): f.gate for s in steps for f in s.factors}
     for (gid, d_only), (gi, cols) in groups.items():
         glist[gi] = (gates[gid], d_only, np.array(cols, dtype=np.intp))
-    return Program(n, steps, tuple(const_cols), np.array(const_angles, dtype=float), glist)
+    return Program(n, steps, tuple(const_cols), np.array(const_angles, dtype=float), glist, col)
 
 
 def _mono_structure(step):

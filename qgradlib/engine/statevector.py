@@ -187,6 +187,9 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
         for row in inserts:
             solo.update(row.keys())
     prog = program(circuit, fuse, frozenset(solo))
+    if phi.shape[1] != prog.n_columns:
+        raise ValueError(f"phi must have one column per parametric operation: shape (B, {prog.n_columns}); "
+                         f"got {phi.shape}")
     if prog.const_columns and not np.all(phi[:, list(prog.const_columns)] == prog.const_angles):
         # a caller moved a fixed angle: do not use the baked-in matrices
         prog = program(circuit, fuse, frozenset(solo), bake_fixed_angles=False)
