@@ -216,11 +216,47 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
             block.append(steps[j])
             used |= set(steps[j].qubits)
             j -= 1
+        tail = [b for b in block if _in_tail(b, n)]
+        S = _tail_overlaps(both, n, P) if len(tail) > 1 else None
         for b in block:
-            _derivative(b, both, buf, n, phi, P, grad)
+            if S is not None and b in tail:
+                _tail_derivative(b, S, n, grad)
+            else:
+                _derivative(b, both, buf, n, phi, P, grad)
         both, buf = _undo_block(block, both, buf, n, phi, shared, table, P)
         i = j
     return grad
+
+
+_TAIL = 3   # qubits of the window whose overlap matrix serves all derivatives inside it
+
+
+def _in_tail(s, n):
+    """A generator gate inside the last few qubits, where strided block dots are slow."""
+    return (s.op.gate.kind == "generator" and n > _TAIL and min(s.op.qubits) >= n - _TAIL
+            and 2 ** (n - max(s.op.qubits) - 1) < kernels.TAIL_STRIDE)
+
+
+def _tail_overlaps(both, n, P):
+    """``S[p, i, j] = sum_r conj(lam[p, r, i]) psi[p, r, j]`` over the last ``_TAIL`` qubits:
+    one BLAS product per row (conjugate transpose in BLAS, no copy), after which
+    ``<lam|G|psi> = sum_ij G_ij S_ij`` for any G inside that window."""
+    from scipy.linalg.blas import zgemm
+
+    D = 2 ** _TAIL
+    out = np.empty((P, D, D), dtype=complex)
+    for p in range(P):
+        a = both[P + p].reshape(-1, D).T      # lam rows, Fortran-ordered (D, N/D)
+        b = both[p].reshape(-1, D).T          # psi rows
+        out[p] = zgemm(1.0, b, a, trans_b=2).T
+    return out
+
+
+def _tail_derivative(s, S, n, grad):
+    g = s.op.gate
+    G, sq = kernels.sort_qubits(np.asarray(g.generator), s.op.qubits)
+    Gw = kernels.widen(G, [q - (n - _TAIL) for q in sq], _TAIL)
+    grad[:, s.column] = 2 * np.imag(np.einsum("ij,pij->p", Gw, S))
 
 
 def _trainable(s, want):

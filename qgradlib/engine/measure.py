@@ -8,11 +8,12 @@ built; terms that flip the same bits share one product ``conj(psi[i ^ x]) * psi[
 from __future__ import annotations
 
 from collections import defaultdict
+from functools import lru_cache
 
 import numpy as np
 
 from ..paulis import masks
-from .kernels import _views
+from .kernels import _views, apply_dense
 
 __all__ = ["pauli_expectation", "expectations", "probabilities"]
 
@@ -133,6 +134,74 @@ def _negate_where_set(t, zq):
         np.negative(v, out=v)
 
 
+_BLOCK = 4      # width of the aligned qubit blocks that gather non-diagonal words
+_WINDOW = 10    # widest window of qubits whose Z words are summed on a small vector first
+
+
+def _z_diagonal(d, n, diag_terms, B):
+    """``d[b, i] = sum_t c_t[b] (-1)**popcount(i & z_t)``: words are summed on small windows
+    of qubits first, then each window is added to ``d`` in one broadcast pass."""
+    d[...] = 0.0
+    windows = []
+    for (xq, zq, ny), c in sorted(diag_terms, key=lambda t: (min(t[0][1]) if t[0][1] else -1)):
+        if not zq:
+            d += c.reshape(B, 1)
+            continue
+        lo, hi = min(zq), max(zq)
+        if windows and hi < windows[-1][0] + _WINDOW and lo >= windows[-1][0]:
+            windows[-1][1].append((zq, c))
+        else:
+            windows.append((lo, [(zq, c)]))
+    for lo, terms in windows:
+        hi = max(max(zq) for zq, _ in terms)
+        w = hi - lo + 1
+        small = np.zeros((B,) + (2,) * w)
+        for zq, c in terms:
+            sign = np.ones((1,) * (w + 1))
+            for q in zq:
+                sh = [1] * (w + 1)
+                sh[1 + q - lo] = 2
+                sign = sign * np.array([1.0, -1.0]).reshape(sh)
+            small += c.reshape((B,) + (1,) * w) * sign
+        d.reshape(B, 2 ** lo, 2 ** w, 2 ** (n - hi - 1))[...] += small.reshape(B, 1, 2 ** w, 1)
+
+
+@lru_cache(maxsize=4096)
+def _pauli_block(word):
+    from ..paulis import pauli_matrix
+
+    m = pauli_matrix(word)
+    m.setflags(write=False)
+    return m
+
+
+def _blocks(coef, n):
+    """Non-diagonal words grouped by the aligned block of ``_BLOCK`` qubits that holds them
+    (when a block gathers two or more): {start: (width, matrix (D, D) or (B, D, D))}, rest."""
+    groups, rest = {}, []
+    for word, c in coef.items():
+        xq, zq, ny = masks(word)
+        if not xq:
+            continue
+        sup = sorted(set(xq) | set(zq))
+        b0 = sup[0] // _BLOCK * _BLOCK
+        if sup[-1] < b0 + _BLOCK:
+            groups.setdefault(b0, []).append(word)
+        else:
+            rest.append(word)
+    blocks = {}
+    for b0, words in groups.items():
+        if len(words) < 2:
+            rest.extend(words)
+            continue
+        w = min(_BLOCK, n - b0)
+        mats = sum(np.asarray(coef[wd])[..., None, None] * _pauli_block(wd[b0:b0 + w]) for wd in words)
+        if mats.ndim == 3 and np.all(mats == mats[:1]):
+            mats = mats[0]
+        blocks[b0] = (w, mats)
+    return blocks, rest
+
+
 def apply_observables(psi, n, observables, weights=None, out=None, scratch=None):
     """``sum_k weights[:, k] * O_k psi`` for every row, written into ``out``.
 
@@ -157,21 +226,20 @@ def apply_observables(psi, n, observables, weights=None, out=None, scratch=None)
         # all Z-only words as one real diagonal, built in the scratch memory
         N = 2 ** n
         d = scratch.view(np.float64).reshape(B, 2 * N)[:, :N]
-        d[...] = 0.0
-        for (xq, zq, ny), c in diag_terms:
-            dv, axes = _views(d, n, tuple(sorted(zq)))
-            sign = np.ones((1,) * dv.ndim)
-            for ax in axes:
-                sh = [1] * dv.ndim
-                sh[ax] = 2
-                sign = sign * np.array([1.0, -1.0]).reshape(sh)
-            dv += c.reshape((B,) + (1,) * (dv.ndim - 1)) * sign
+        _z_diagonal(d, n, diag_terms, B)
         np.multiply(psi, d, out=out)
         written = True
-    for word, c in coef.items():
+    blocks, rest = _blocks(coef, n)
+    for b0, (w, mats) in blocks.items():
+        # several words inside one aligned block of qubits: one dense product on the block
+        target = scratch if written else out
+        apply_dense(psi, n, mats, tuple(range(b0, b0 + w)), target)
+        if written:
+            out += target
+        written = True
+    for word in rest:
+        c = coef[word]
         xq, zq, ny = masks(word)
-        if not xq:
-            continue
         # (P psi)[j] = i**ny (-1)**popcount((j ^ x) & z) psi[j ^ x]
         odd = len(set(zq) & set(xq)) % 2
         qs = tuple(sorted(set(xq) | set(zq)))
