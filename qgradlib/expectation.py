@@ -12,6 +12,12 @@ the ``gradient=`` option:
 
 ``theta -> phi`` is the circuit's linear angle map, written in autograd.numpy, so autograd
 applies the chain rule ``A.T @ dE/dphi`` for shared and scaled parameters by itself.
+
+Simulator shortcuts that leave the ledger alone: the unique rows of one call are run as
+branches of a shared trunk where they agree on leading angles (`qgradlib.engine.branch`),
+and with ``gradient="adjoint"`` the forward call keeps its final states, weakly tied to the
+call's `Spec`, for the VJP to start from (one state per row, until the VJP runs or the call
+is forgotten).
 """
 from __future__ import annotations
 

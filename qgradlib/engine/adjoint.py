@@ -172,6 +172,21 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
         The final states of a forward run at ``phi``, when the caller already has them.
     fuse : bool, optional
         Fusion of the gates between trainable ones (default: the engine's ``FUSE``).
+
+    Returns
+    -------
+    ndarray, shape (P, G)
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.engine.measure import apply_observable
+    >>> c = qg.Circuit(1).ry(0)
+    >>> Z = qg.Observable({"Z": 1.0})
+    >>> g = adjoint_gradient(c, np.array([[0.4]]), lambda psi: apply_observable(psi, 1, Z))
+    >>> bool(np.isclose(g[0, 0], -np.sin(0.4)))
+    True
     """
     from . import statevector
 

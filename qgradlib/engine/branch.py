@@ -42,7 +42,14 @@ def _reference(phi, inserts):
 
 def divergence(phi, inserts=None):
     """``(reference, reference_inserts, first)``: ``first[p]`` is the first column where row p
-    differs from the reference (G when it is the reference)."""
+    differs from the reference (G when it is the reference).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> divergence(np.array([[0.0, 1.0], [0.0, 2.0], [0.5, 1.0]]))[2].tolist()
+    [2, 1, 0]
+    """
     P, G = phi.shape
     ref, ref_ins = _reference(phi, inserts)
     diff = phi != ref
@@ -57,7 +64,22 @@ def divergence(phi, inserts=None):
 
 def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2):
     """Final states (P, 2**n) of the rows of ``phi``, in their order, by branching from a
-    shared trunk; None when branching would save less than ``min_saving`` of the work."""
+    shared trunk; None when branching would save less than ``min_saving`` of the work.
+
+    Parameters are those of `qgradlib.engine.statevector.run`. The work counted is kernel
+    steps: one trunk through the whole circuit plus each row from its branch point on.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.engine.statevector import run
+    >>> c = qg.Circuit(2).ry(0).ry(1).cz(0, 1).ry(0).ry(1)
+    >>> base = np.array([0.1, 0.2, 0.3, 0.4])
+    >>> rows = base + np.vstack([np.zeros(4), np.eye(4)[2:], -np.eye(4)[2:]]) * np.pi / 2
+    >>> bool(np.allclose(run_branched(c, rows, min_saving=0.0), run(c, rows)))
+    True
+    """
     phi = np.asarray(phi, dtype=float)
     P, G = phi.shape
     if P < 2 or G == 0:

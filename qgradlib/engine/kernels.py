@@ -96,7 +96,19 @@ def _is_real(mat):
 
 
 def apply_dense(psi, n, mat, qubits, out, real=None):
-    """``out = mat psi`` on ``qubits``; mat (d, d) shared or (B, d, d) per row."""
+    """``out = mat psi`` on ``qubits``; mat (d, d) shared or (B, d, d) per row.
+
+    ``psi`` and ``out`` are C-ordered complex128 arrays (B, 2**n) that do not overlap;
+    ``real`` says whether ``mat`` is real (computed when None).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> psi = np.array([[1, 0, 0, 0]], dtype=complex)
+    >>> X = np.array([[0, 1], [1, 0]], dtype=complex)
+    >>> apply_dense(psi, 2, X, (0,), np.empty_like(psi)).real.tolist()
+    [[0.0, 0.0, 1.0, 0.0]]
+    """
     mat, sq = sort_qubits(mat, qubits)
     k = len(sq)
     lo, hi = sq[0], sq[-1]
@@ -163,7 +175,16 @@ def monomial_structure(mat, tol=0.0):
 
 
 def apply_monomial(psi, n, cols, phases, qubits, out):
-    """``out[i-block] = phases[i] * psi[cols[i]-block]`` on ``qubits``; phases (d,) or (B, d)."""
+    """``out[i-block] = phases[i] * psi[cols[i]-block]`` on ``qubits``; phases (d,) or (B, d).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> psi = np.array([[1, 0, 0, 0]], dtype=complex)
+    >>> out = apply_monomial(psi, 2, [1, 0], [1j, 1j], (1,), np.empty_like(psi))
+    >>> out.tolist()
+    [[0j, 1j, 0j, 0j]]
+    """
     qubits = tuple(qubits)
     k = len(qubits)
     d = 2 ** k
@@ -234,7 +255,15 @@ def _broadcast_diag(psi, n, diag, sq):
 
 
 def apply_diag(psi, n, diag, qubits):
-    """Multiply by ``diag`` ((d,) or (B, d)) on ``qubits``, in place; returns psi."""
+    """Multiply by ``diag`` ((d,) or (B, d)) on ``qubits``, in place; returns psi.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> psi = np.full((1, 4), 0.5, dtype=complex)
+    >>> apply_diag(psi, 2, np.array([1, 1, 1, -1]), (0, 1)).real.tolist()
+    [[0.5, 0.5, 0.5, -0.5]]
+    """
     diag, sq = sort_qubits(np.asarray(diag), qubits, diag=True)
     k = len(sq)
     per_row = diag.ndim == 2

@@ -208,6 +208,14 @@ def apply_observables(psi, n, observables, weights=None, out=None, scratch=None)
     ``weights`` is (B, K) (default ones); ``scratch`` an array like ``psi`` that may be
     overwritten (allocated when not given). Terms are combined word by word first, so a
     word shared by several observables costs one pass.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> psi = np.array([[1, 0]], dtype=complex)
+    >>> apply_observables(psi, 1, [qg.Observable({"X": 2.0})]).real.tolist()
+    [[0.0, 2.0]]
     """
     B = psi.shape[0]
     K = len(observables)
