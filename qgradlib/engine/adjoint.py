@@ -13,6 +13,7 @@ four states for one row, whatever the circuit.
 from __future__ import annotations
 
 import weakref
+from functools import lru_cache
 
 import numpy as np
 
@@ -70,28 +71,36 @@ def _apply_generator(g, src, n, qubits, out):
     return kernels.apply_dense(src, n, G, qubits, out)
 
 
+@lru_cache(maxsize=1024)
+def _block_plan(n, qubits, P):
+    """Float-view shape, block index pairs and einsum subscripts of `_block_dots`."""
+    k = len(qubits)
+    order = sorted(range(k), key=lambda i: qubits[i])
+    sq = tuple(qubits[i] for i in order)
+    probe, axes = kernels._views(np.empty((P, 2 ** n), dtype=np.complex128), n, sq)
+    shape = list(probe.shape)
+    shape[-1] *= 2
+    ndim = len(shape)
+    sub = "p" + "abcdefghijklmnoqrstuvwxyz"[:ndim - 1 - k]
+    pairs = []
+    for i in range(2 ** k):
+        bi = kernels._bits(i, k)
+        pairs.append((i, kernels._index(axes, ndim, [bi[j] for j in order])))
+    return tuple(shape), tuple(pairs), f"{sub},{sub}->p"
+
+
 def _block_dots(lam, psi, n, cols, phases, qubits):
     """``2 Im <lam|G|psi>`` per row for a generator with one nonzero a row, all of them
     imaginary (Y-type: RY, RYY, ...): then only ``Re <a|b>`` of blocks is needed, a plain
     dot product of float views. One read of each state, nothing written."""
-    k = len(qubits)
-    order = sorted(range(k), key=lambda i: qubits[i])
-    sq = tuple(qubits[i] for i in order)
-    lt, axes = kernels._views(lam, n, sq)
-    shape = list(lt.shape)
-    shape[-1] *= 2
+    shape, pairs, expr = _block_plan(n, tuple(qubits), lam.shape[0])
     lf = lam.view(np.float64).reshape(shape)
     pf = psi.view(np.float64).reshape(shape)
-    ndim = lf.ndim
-    sub = "p" + "abcdefghijklmnoqrstuvwxyz"[:ndim - 1 - k]
+    index = dict(pairs)
     total = np.zeros(lam.shape[0])
-    for i in range(2 ** k):
-        c = int(cols[i])
-        bi, bc = kernels._bits(i, k), kernels._bits(c, k)
-        a = lf[kernels._index(axes, ndim, [bi[j] for j in order])]
-        b = pf[kernels._index(axes, ndim, [bc[j] for j in order])]
+    for i, idx in pairs:
         # Im(g <a|b>) = Im(g) Re<a|b> for imaginary g
-        total += complex(phases[i]).imag * np.einsum(f"{sub},{sub}->p", a, b)
+        total += complex(phases[i]).imag * np.einsum(expr, lf[idx], pf[index[int(cols[i])]])
     return 2 * total
 
 
@@ -300,19 +309,41 @@ def _derivative(s, both, buf, n, phi, P, grad):
     grad[:, col] = 2 * np.real(_row_dots(both[P:], mu))
 
 
-def _inverse_1q(s, phi, shared):
-    """U(a)^dagger of a single-qubit generator gate: (2, 2) shared or (P, 2, 2)."""
-    g = s.op.gate
-    a = phi[:, s.column]
-    sh = bool(shared[s.column])
-    m = g._matrices(-(a[:1] if sh else a))
-    return m[0] if sh else m
+def _inverses(block, phi, shared):
+    """U(a)^dagger = U(-a) of the block's single-qubit dense generator gates, one vectorised
+    call per gate type: {id(step): (2, 2) shared or (P, 2, 2)}."""
+    by_gate = {}
+    for b in block:
+        by_gate.setdefault(id(b.op.gate), (b.op.gate, []))[1].append(b)
+    out = {}
+    for gate, members in by_gate.values():
+        cols = [b.column for b in members]
+        if np.all(shared[cols]):
+            mats = gate._matrices(-phi[0, cols])
+            for b, m in zip(members, mats):
+                out[id(b)] = m
+        else:
+            mats = gate._matrices(-phi[:, cols].T.reshape(-1)).reshape((len(cols), phi.shape[0], 2, 2))
+            for j, b in enumerate(members):
+                out[id(b)] = mats[j, 0] if shared[b.column] else mats[j]
+    return out
 
 
 def _undo_block(block, both, buf, n, phi, shared, table, P):
     pairable = {b.op.qubits[0]: b for b in block
                 if len(b.op.qubits) == 1 and b.op.gate.kind == "generator" and not b.op.gate.diagonal}
+    inv = _inverses(list(pairable.values()), phi, shared)
     done = set()
+    tail = list(range(n - 4, n))
+    if n > 4 and all(q in pairable for q in tail) and all(inv[id(pairable[q])].ndim == 2 for q in tail):
+        # the last four qubits, where pair products are slow: one 16 x 16 block instead
+        m = np.ones((1, 1), dtype=complex)
+        for q in tail:
+            u = inv[id(pairable[q])]
+            m = (m[:, None, :, None] * u[None, :, None, :]).reshape(2 * m.shape[0], 2 * m.shape[1])
+        kernels.apply_dense(both, n, m, tuple(tail), buf)
+        both, buf = buf, both
+        done.update(id(pairable[q]) for q in tail)
     # the block's gates commute, so they may be undone in ascending qubit order (pairs)
     for b in sorted(block, key=lambda x: min(x.op.qubits)):
         q = b.op.qubits[0] if len(b.op.qubits) == 1 else None
@@ -320,9 +351,9 @@ def _undo_block(block, both, buf, n, phi, shared, table, P):
             continue
         if q is not None and pairable.get(q) is b and q + 1 in pairable and id(pairable[q + 1]) not in done:
             other = pairable[q + 1]
-            u0, u1 = _inverse_1q(b, phi, shared), _inverse_1q(other, phi, shared)
+            u0, u1 = inv[id(b)], inv[id(other)]
             if u0.ndim == 2 and u1.ndim == 2:
-                m = np.kron(u0, u1)
+                m = (u0[:, None, :, None] * u1[None, :, None, :]).reshape(4, 4)
             else:
                 u0 = np.broadcast_to(u0, (P, 2, 2))
                 u1 = np.broadcast_to(u1, (P, 2, 2))

@@ -51,9 +51,12 @@ def _signed_sum(prod, n, zq):
 def _z_group(t, n, group, B):
     p = t.reshape(B, -1, 1).view(np.float64)              # (B, N, 2): re, im
     p = np.einsum("bni,bni->bn", p, p)                     # |psi|^2, one pass, one array
-    total = np.zeros(B)
-    for zq, ny, c in group:
-        total += c * _signed_sum(p, n, zq) if zq else c * p.sum(axis=1)
+    const, windows = _z_windows([(zq, c) for zq, ny, c in group], 1)
+    total = const[0] * p.sum(axis=1)
+    for lo, w, small in windows:
+        # marginal of |psi|^2 on the window (one reduction pass), dotted with its signs
+        marg = p.reshape(B, 2 ** lo, 2 ** w, 2 ** (n - lo - w)).sum(axis=(1, 3))
+        total = total + marg @ small[0]
     return total
 
 
@@ -138,32 +141,42 @@ _BLOCK = 4      # width of the aligned qubit blocks that gather non-diagonal wor
 _WINDOW = 10    # widest window of qubits whose Z words are summed on a small vector first
 
 
-def _z_diagonal(d, n, diag_terms, B):
-    """``d[b, i] = sum_t c_t[b] (-1)**popcount(i & z_t)``: words are summed on small windows
-    of qubits first, then each window is added to ``d`` in one broadcast pass."""
-    d[...] = 0.0
-    windows = []
-    for (xq, zq, ny), c in sorted(diag_terms, key=lambda t: (min(t[0][1]) if t[0][1] else -1)):
+def _z_windows(terms, B):
+    """Z words ``(z_qubits, c)`` (c a float or (B,) array) summed on small windows of at most
+    ``_WINDOW`` qubits: ``(constant (B,), [(lo, w, values (B, 2**w)), ...])``."""
+    const = np.zeros(B)
+    groups = []
+    for zq, c in sorted(terms, key=lambda t: min(t[0]) if t[0] else -1):
+        c = np.broadcast_to(np.asarray(c, dtype=float), (B,))
         if not zq:
-            d += c.reshape(B, 1)
+            const = const + c
             continue
         lo, hi = min(zq), max(zq)
-        if windows and hi < windows[-1][0] + _WINDOW and lo >= windows[-1][0]:
-            windows[-1][1].append((zq, c))
+        if groups and hi < groups[-1][0] + _WINDOW and lo >= groups[-1][0]:
+            groups[-1][1].append((zq, c))
         else:
-            windows.append((lo, [(zq, c)]))
-    for lo, terms in windows:
-        hi = max(max(zq) for zq, _ in terms)
-        w = hi - lo + 1
+            groups.append((lo, [(zq, c)]))
+    windows = []
+    for lo, items in groups:
+        w = max(max(zq) for zq, _ in items) - lo + 1
         small = np.zeros((B,) + (2,) * w)
-        for zq, c in terms:
+        for zq, c in items:
             sign = np.ones((1,) * (w + 1))
             for q in zq:
                 sh = [1] * (w + 1)
                 sh[1 + q - lo] = 2
                 sign = sign * np.array([1.0, -1.0]).reshape(sh)
             small += c.reshape((B,) + (1,) * w) * sign
-        d.reshape(B, 2 ** lo, 2 ** w, 2 ** (n - hi - 1))[...] += small.reshape(B, 1, 2 ** w, 1)
+        windows.append((lo, w, small.reshape(B, 2 ** w)))
+    return const, windows
+
+
+def _z_diagonal(d, n, diag_terms, B):
+    """``d[b, i] = sum_t c_t[b] (-1)**popcount(i & z_t)``, one broadcast pass a window."""
+    const, windows = _z_windows([(zq, c) for (xq, zq, ny), c in diag_terms], B)
+    d[...] = const.reshape(B, 1)
+    for lo, w, small in windows:
+        d.reshape(B, 2 ** lo, 2 ** w, 2 ** (n - lo - w))[...] += small.reshape(B, 1, 2 ** w, 1)
 
 
 @lru_cache(maxsize=4096)
