@@ -110,3 +110,22 @@ def test_adjoint_memory_stays_near_four_states():
     peak = tracemalloc.get_traced_memory()[1]
     tracemalloc.stop()
     assert peak <= 4.6 * 16 * 2 ** n
+
+
+@pytest.mark.parametrize("rows", [1, 2])
+def test_layered_circuit_blocks_pairs_and_tail(rows):
+    # layers of RY/RX on every qubit: commuting blocks, undone in pairs and a last-four block
+    n = 7
+    c = qg.Circuit(n)
+    for layer in range(3):
+        for q in range(n):
+            (c.ry if layer % 2 == 0 else c.rx)(q)
+        for q in range(n - 1):
+            c.cz(q, q + 1)
+    rng = np.random.default_rng(8)
+    H = _random_observable(n, rng, 4)
+    theta = rng.normal(size=(rows, c.n_params))
+    adj = jacobian(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)
+    # reference: the shift rule, a different algorithm on the same engine
+    shift = jacobian(lambda t: qg.expect(c, H, t))(theta)
+    assert np.allclose(adj, shift, atol=1e-10)
