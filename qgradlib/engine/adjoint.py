@@ -16,6 +16,7 @@ import weakref
 from functools import lru_cache
 
 import numpy as np
+from scipy.linalg.blas import zgemm
 
 from . import kernels
 from .memory import guard
@@ -77,8 +78,8 @@ def _block_plan(n, qubits, P):
     k = len(qubits)
     order = sorted(range(k), key=lambda i: qubits[i])
     sq = tuple(qubits[i] for i in order)
-    probe, axes = kernels._views(np.empty((P, 2 ** n), dtype=np.complex128), n, sq)
-    shape = list(probe.shape)
+    shape, axes = kernels._view_shape(P, n, sq)
+    shape = list(shape)
     shape[-1] *= 2
     ndim = len(shape)
     sub = "p" + "abcdefghijklmnoqrstuvwxyz"[:ndim - 1 - k]
@@ -265,8 +266,6 @@ def _tail_overlaps(both, n, P):
     """``S[p, i, j] = sum_r conj(lam[p, r, i]) psi[p, r, j]`` over the last ``_TAIL`` qubits:
     one BLAS product per row (conjugate transpose in BLAS, no copy), after which
     ``<lam|G|psi> = sum_ij G_ij S_ij`` for any G inside that window."""
-    from scipy.linalg.blas import zgemm
-
     D = 2 ** _TAIL
     out = np.empty((P, D, D), dtype=complex)
     for p in range(P):

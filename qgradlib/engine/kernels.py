@@ -66,9 +66,9 @@ def widen(mat, pos, width):
     return np.ascontiguousarray(t.transpose(perm)).reshape(lead + (D, D))
 
 
-def _views(arr, n, sq):
-    """``arr`` (B, 2**n) as (B, 2**a0, 2, 2**a1, 2, ..., 2**ak) with target axes listed."""
-    shape = [arr.shape[0]]
+def _view_shape(B, n, sq):
+    """Shape (B, 2**a0, 2, 2**a1, 2, ..., 2**ak) of `_views` and its target axes."""
+    shape = [B]
     axes = []
     prev = 0
     for q in sq:
@@ -77,6 +77,12 @@ def _views(arr, n, sq):
         shape.append(2)
         prev = q + 1
     shape.append(2 ** (n - prev))
+    return shape, axes
+
+
+def _views(arr, n, sq):
+    """``arr`` (B, 2**n) as (B, 2**a0, 2, 2**a1, 2, ..., 2**ak) with target axes listed."""
+    shape, axes = _view_shape(arr.shape[0], n, sq)
     return arr.reshape(shape), axes
 
 
