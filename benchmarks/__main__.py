@@ -75,7 +75,7 @@ def main(argv=None):
         print(f"\ncost-growth plot: {png}")
     doc = {"suite": "qgradlib benchmarks", "mode": mode, "repeats": repeats, "machine": machine,
            "seconds": time.perf_counter() - t0, "figures": results, "growth": growth,
-           "plot": None if growth is None else os.path.abspath(png)}
+           "plot": None if growth is None else os.path.relpath(os.path.abspath(png), root)}
     os.makedirs(os.path.dirname(os.path.abspath(out)), exist_ok=True)
     with open(out, "w") as fh:
         json.dump(doc, fh, indent=2)
