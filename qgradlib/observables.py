@@ -101,7 +101,7 @@ class Observable:
             xq, zq, ny = masks(word)
             x = sum(1 << (self._n - 1 - q) for q in xq)
             z = sum(1 << (self._n - 1 - q) for q in zq)
-            sign = 1 - 2 * (_popcount(idx & z) & 1)
+            sign = 1.0 - 2.0 * (_popcount(idx & z).astype(np.int64) & 1)
             # P|i> = i**ny (-1)**pop(i&z) |i^x>: column i, row i^x
             rows.append(idx ^ x)
             cols.append(idx)
