@@ -187,4 +187,7 @@ def _real(c, name):
 
 def _popcount(a):
     a = np.asarray(a, dtype=np.int64)
-    return np.bitwise_count(a) if hasattr(np, "bitwise_count") else np.vectorize(lambda v: bin(v).count("1"))(a)
+    # bitwise_count returns uint8, in which 1 - 2 * 1 wraps to 255: give back signed ints
+    if hasattr(np, "bitwise_count"):
+        return np.bitwise_count(a).astype(np.int64)
+    return np.vectorize(lambda v: bin(v).count("1"), otypes=[np.int64])(a)
