@@ -410,6 +410,8 @@ def sample(circuit, theta, shots, seed=None) -> np.ndarray:
         raise ValueError("shots must be a positive int; got None")
     rng = make_rng(seed)
     psi = np.atleast_2d(state(circuit, theta))
+    # the draw holds one float and one int per shot: refuse what cannot fit
+    memory.guard(16 * shots * psi.shape[0], f"{shots:,} shots of {psi.shape[0]} circuit(s)")
     p = np.clip(np.abs(psi) ** 2, 0, None)
     ledger.record(psi.shape[0], 1, shots, {"sample": psi.shape[0]})
     out = np.stack([rng.choice(p.shape[1], size=shots, p=row / row.sum()) for row in p])

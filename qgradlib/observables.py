@@ -139,6 +139,8 @@ class Observable:
         return self._combine(other, -1.0)
 
     def __mul__(self, scalar):
+        if isinstance(scalar, (complex, np.complexfloating)):
+            raise TypeError(f"scalar must be real (observables are Hermitian); got {scalar!r}")
         if not isinstance(scalar, Real) or isinstance(scalar, bool):
             return NotImplemented
         s = _real(scalar, "scalar")
