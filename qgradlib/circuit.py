@@ -281,7 +281,11 @@ def check_theta(circuit: Circuit, theta):
 
     raw = getval(theta)
     if isinstance(raw, (list, tuple)):
-        raw = np.asarray(raw)
+        try:
+            raw = np.asarray(raw)
+        except ValueError:  # rows of different lengths
+            raise ValueError(f"theta must have shape ({circuit.n_params},) or (B, {circuit.n_params}); "
+                             "got a ragged sequence") from None
         theta = raw
     if not isinstance(raw, (np.ndarray, Real, np.generic)) or isinstance(raw, bool):
         raise TypeError(f"theta must be a real array of shape ({circuit.n_params},) or "

@@ -139,6 +139,8 @@ class Observable:
         return self._combine(other, -1.0)
 
     def __mul__(self, scalar):
+        if isinstance(scalar, (complex, np.complexfloating)):
+            raise TypeError(f"scalar must be real (observables are Hermitian); got {scalar!r}")
         if not isinstance(scalar, Real) or isinstance(scalar, bool):
             return NotImplemented
         s = _real(scalar, "scalar")
@@ -187,4 +189,7 @@ def _real(c, name):
 
 def _popcount(a):
     a = np.asarray(a, dtype=np.int64)
-    return np.bitwise_count(a) if hasattr(np, "bitwise_count") else np.vectorize(lambda v: bin(v).count("1"))(a)
+    # bitwise_count returns uint8, in which 1 - 2 * 1 wraps to 255: give back signed ints
+    if hasattr(np, "bitwise_count"):
+        return np.bitwise_count(a).astype(np.int64)
+    return np.vectorize(lambda v: bin(v).count("1"), otypes=[np.int64])(a)
