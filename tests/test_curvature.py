@@ -13,7 +13,7 @@ from autograd import hessian as ag_hessian
 from scipy.linalg import expm
 
 import qgradlib as qg
-from qgradlib import curvature
+from qgradlib import curvature, metric
 from reference import curv_dense as ref
 
 X = np.array([[0, 1], [1, 0]], dtype=complex)
@@ -244,7 +244,7 @@ def test_overlap_circuits_a_device_would_run_give_the_metric(name):
     # Mari, Bromley and Killoran 2021: g = -1/2 Hessian of |<psi(phi)|psi(phi + x)>|^2 at x = 0.
     # The ledger's "overlap" count is that plan; evaluating it must reproduce the metric.
     c, th = CASES[name][0]()
-    np.testing.assert_allclose(curvature._overlap_metric(c, th), ref.metric(c, th), atol=1e-9)
+    np.testing.assert_allclose(metric._overlap_metric(c, th), ref.metric(c, th), atol=1e-9)
 
 
 def test_exact_metric_ledger_counts_overlap_circuits():

@@ -6,6 +6,7 @@ from pathlib import Path
 import pytest
 
 import qgradlib.curvature
+import qgradlib.metric
 import qgradlib.stencils
 
 DOC = Path(__file__).resolve().parents[1] / "docs" / "curvature.md"
@@ -21,7 +22,7 @@ def test_doc_block_runs(k, capsys):
     exec(compile(BLOCKS[k], f"{DOC.name}[block {k}]", "exec"), {"__name__": "__doc_example__"})
 
 
-@pytest.mark.parametrize("module", [qgradlib.curvature, qgradlib.stencils])
+@pytest.mark.parametrize("module", [qgradlib.curvature, qgradlib.metric, qgradlib.stencils])
 def test_docstring_examples(module):
     result = doctest.testmod(module, optionflags=doctest.ELLIPSIS)
     assert result.attempted > 0 and result.failed == 0
