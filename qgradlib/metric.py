@@ -272,7 +272,9 @@ def metric_tensor(circuit, theta, approx=None) -> np.ndarray:
     Returns
     -------
     ndarray (m, m)
-        The metric in gate-angle space mapped by the chain rule, ``A.T g_phi A``.
+        The metric in gate-angle space mapped by the chain rule, ``A.T g_phi A``. With an
+        approximation, a parameter shared by gates of different layers collects their
+        blocks through ``A`` (its diagonal entry sums the gates' variances, scaled).
 
     Notes
     -----

@@ -453,3 +453,31 @@ def test_bad_input_is_refused_with_a_named_argument():
         warnings.simplefilter("error")
         assert curvature.hessian(qg.Circuit(1).h(0), qg.Observable({"X": 1.0}),
                                  np.zeros(0)).hessian.shape == (0, 0)
+
+
+# -- random circuits ----------------------------------------------------------------------
+from hypothesis import given, strategies as st  # noqa: E402
+
+_MENU = [("ry", 1), ("rx", 1), ("rz", 1), ("crx", 2), ("cry", 2), ("rzz", 2), ("cphase", 2),
+         ("h", 1), ("cnot", 2), ("sx", 1)]
+
+
+@given(ops=st.lists(st.tuples(st.sampled_from(_MENU), st.permutations([0, 1])), min_size=2, max_size=6),
+       share=st.booleans(), seed=st.integers(0, 2 ** 16))
+def test_random_circuits_hessian_and_metric_vs_dense_reference(ops, share, seed):
+    # source: the expm / expm_frechet dense reference (FD of its exact gradient, its metric)
+    c = qg.Circuit(2)
+    for (name, k), qs in ops:
+        method = getattr(c, name)
+        args = tuple(qs[:k])
+        if name in ("h", "cnot", "sx"):
+            method(*args)
+        elif share and c.n_params:
+            method(*args, param=0, scale=1.5)     # reuse theta[0], scaled
+        else:
+            method(*args)
+    c.ry(0)
+    th = np.random.default_rng(seed).uniform(-np.pi, np.pi, c.n_params)
+    r = curvature.hessian(c, OBS2, th)
+    np.testing.assert_allclose(r.hessian, ref.hessian_fd(c, OBS2, th), atol=2e-7)
+    np.testing.assert_allclose(curvature.metric_tensor(c, th), ref.metric(c, th), atol=1e-12)
