@@ -1,5 +1,6 @@
 """qgradlib: parameter-shift gradients, curvature and shot accounting for quantum circuits."""
 from . import gates
+from . import curvature
 from .circuit import Circuit, Operation
 from .expectation import expect, probabilities, sample, state
 from .gates import Gate

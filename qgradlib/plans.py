@@ -65,8 +65,12 @@ def _spread(gate, angles):
 
 
 def column_terms(circuit, column: int, angles, *, shift=None, fd_step=None, shots=None,
-                 splits=1, rng=None) -> list:
-    """The terms of d/dphi[column] (angles: that column's values over the rows)."""
+                 splits=1, rng=None, cuts=()) -> list:
+    """The terms of d/dphi[column] (angles: that column's values over the rows).
+
+    ``cuts``: split fractions the rows already carry in this column. The Duhamel integrand
+    has a kink at each, so exact quadrature is done piece by piece between them.
+    """
     op = circuit.parametric_operations[column]
     g = op.gate
     if g.kind == "generator":
@@ -74,7 +78,12 @@ def column_terms(circuit, column: int, angles, *, shift=None, fd_step=None, shot
         return [Term(column, float(s), None, float(c)) for s, c in zip(rule.shifts, rule.coefficients)]
     if g.kind == "hamiltonian":
         if shots is None:
-            r, w = quadrature_nodes(_spread(g, angles))
+            spread = _spread(g, angles)
+            edges = np.unique(np.concatenate([[0.0, 1.0], np.asarray(cuts, dtype=float)]))
+            pieces = [(lo, hi) for lo, hi in zip(edges[:-1], edges[1:]) if hi > lo]
+            nodes = [quadrature_nodes(spread * (hi - lo)) for lo, hi in pieces]
+            r = np.concatenate([lo + (hi - lo) * x for (lo, hi), (x, _) in zip(pieces, nodes)])
+            w = np.concatenate([(hi - lo) * v for (lo, hi), (_, v) in zip(pieces, nodes)])
         else:
             r = np.sort(rng.uniform(0.0, 1.0, size=int(splits)))
             w = np.full(r.size, 1.0 / r.size)
@@ -105,7 +114,8 @@ def first_order_points(circuit, phi, inserts, columns, **rule_options):
     P, G = raw.shape
     terms = []
     for j in columns:
-        terms.extend(column_terms(circuit, j, raw[:, j], **rule_options))
+        cuts = sorted({r for row in (inserts or ()) for r, _ in row.get(j, ())})
+        terms.extend(column_terms(circuit, j, raw[:, j], cuts=cuts, **rule_options))
     T = len(terms)
     delta = np.zeros((T, G))
     coeff = np.zeros((G, T))
