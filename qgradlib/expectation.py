@@ -76,7 +76,8 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
     """Measured values (P, K) at gate angles ``phi`` (P, G); identical rows run once."""
     phi = np.asarray(phi, dtype=float)
     P = phi.shape[0]
-    keys = [phi[p].tobytes() + (repr(sorted(inserts[p].items())).encode() if inserts else b"")
+    ticks = _angle_ticks(phi, spec.circuit)
+    keys = [ticks[p].tobytes() + (repr(sorted(inserts[p].items())).encode() if inserts else b"")
             for p in range(P)]
     first, inverse, rows = {}, np.empty(P, dtype=int), []
     for p, key in enumerate(keys):
@@ -88,6 +89,26 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
     ledger.record(len(rows), spec.settings, spec.shots or 0, Counter(labels[r] for r in rows))
     vals = _measure_rows(phi[rows], spec, None if inserts is None else [inserts[r] for r in rows])
     return vals[inverse]
+
+
+_TICK = 2.0 ** 44      # angles are compared on a grid of 2**-44 rad (about 6e-14)
+
+
+def _angle_ticks(phi, circuit):
+    """Angles on a fine grid, reduced modulo each gate's period where it has one.
+
+    Shifted points such as ``(a + pi/2) - pi/2`` or ``a + 2 pi`` differ from ``a`` only by
+    rounding or by a period: they are the same circuit, run once and counted once.
+    """
+    t = np.array(phi, dtype=float)
+    for k, op in enumerate(circuit.parametric_operations):
+        period = op.gate.period
+        if period is not None:
+            # reduce first, round after: a point just below a period rounds onto it, hence mod again
+            t[:, k] = np.mod(np.round(np.mod(t[:, k], period) * _TICK), np.round(period * _TICK))
+        else:
+            t[:, k] = np.round(t[:, k] * _TICK)
+    return t + 0.0          # -0.0 and 0.0 must give one key
 
 
 def _measure_rows(phi, spec, inserts):
@@ -258,8 +279,9 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
             raise ValueError(f"shift must be a number in the open interval (0, pi); got {shift!r}")
         shift = float(shift)
     if fd_step is not None:
-        if not isinstance(fd_step, Real) or not np.isfinite(fd_step) or fd_step <= 0:
-            raise ValueError(f"fd_step must be a positive finite number; got {fd_step!r}")
+        if not isinstance(fd_step, Real) or not np.isfinite(fd_step) or fd_step < 1e-12:
+            raise ValueError("fd_step must be a finite number of at least 1e-12 (smaller steps are "
+                             f"lost in the rounding of angles); got {fd_step!r}")
         fd_step = float(fd_step)
     if fd_kind not in ("central", "forward"):
         raise ValueError(f"fd_kind must be 'central' or 'forward'; got {fd_kind!r}")

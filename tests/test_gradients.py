@@ -241,5 +241,7 @@ def test_bad_gradient_options_name_the_argument():
         qg.expect(c, Z, np.array([0.1]), gradient="adjoint", shots=10)
     with pytest.raises(ValueError, match="fd_step"):
         qg.expect(c, Z, np.array([0.1]), gradient="finite-diff", fd_step=-1.0)
+    with pytest.raises(ValueError, match="fd_step"):
+        qg.expect(c, Z, np.array([0.1]), gradient="finite-diff", fd_step=1e-15)
     with pytest.raises(ValueError, match="fd_kind"):
         qg.expect(c, Z, np.array([0.1]), fd_kind="backward")
