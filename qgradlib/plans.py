@@ -64,9 +64,29 @@ def _spread(gate, angles):
     return 2.0 * worst
 
 
+def _quadrature(spread, breaks):
+    """Gauss-Legendre on each piece of [0, 1] cut at ``breaks``.
+
+    An evolution that already carries inserts (a derivative of a derivative) gives an
+    integrand with a kink at each of them; one rule across a kink converges slowly, one rule
+    per smooth piece is again exact.
+    """
+    edges = np.unique(np.concatenate([[0.0], np.asarray(breaks, dtype=float), [1.0]]))
+    nodes, weights = [], []
+    for lo, hi in zip(edges[:-1], edges[1:]):
+        r, w = quadrature_nodes(spread * (hi - lo))
+        nodes.append(lo + (hi - lo) * r)
+        weights.append((hi - lo) * w)
+    return np.concatenate(nodes), np.concatenate(weights)
+
+
 def column_terms(circuit, column: int, angles, *, shift=None, fd_step=None, shots=None,
-                 splits=1, rng=None) -> list:
-    """The terms of d/dphi[column] (angles: that column's values over the rows)."""
+                 splits=1, rng=None, breaks=()) -> list:
+    """The terms of d/dphi[column] (angles: that column's values over the rows).
+
+    ``breaks`` are split fractions already inserted into this column's evolution in some
+    row; the quadrature of the stochastic rule is cut there.
+    """
     op = circuit.parametric_operations[column]
     g = op.gate
     if g.kind == "generator":
@@ -74,7 +94,7 @@ def column_terms(circuit, column: int, angles, *, shift=None, fd_step=None, shot
         return [Term(column, float(s), None, float(c)) for s, c in zip(rule.shifts, rule.coefficients)]
     if g.kind == "hamiltonian":
         if shots is None:
-            r, w = quadrature_nodes(_spread(g, angles))
+            r, w = _quadrature(_spread(g, angles), breaks)
         else:
             r = np.sort(rng.uniform(0.0, 1.0, size=int(splits)))
             w = np.full(r.size, 1.0 / r.size)
@@ -105,7 +125,8 @@ def first_order_points(circuit, phi, inserts, columns, **rule_options):
     P, G = raw.shape
     terms = []
     for j in columns:
-        terms.extend(column_terms(circuit, j, raw[:, j], **rule_options))
+        breaks = sorted({r for row in inserts for r, _ in row.get(j, ())}) if inserts else ()
+        terms.extend(column_terms(circuit, j, raw[:, j], breaks=breaks, **rule_options))
     T = len(terms)
     delta = np.zeros((T, G))
     coeff = np.zeros((G, T))
