@@ -8,7 +8,8 @@ the ``gradient=`` option:
   one batch *through `evaluate` itself*, so the VJP is again differentiable (a shift of a
   shift) and `autograd.hessian` works;
 - ``"finite-diff"``: central (or forward) differences, also through `evaluate`;
-- ``"adjoint"``: the exact adjoint method (first derivatives, simulator only).
+- ``"adjoint"``: the exact adjoint method (simulator only); nested derivatives differentiate
+  the adjoint Jacobian by shift rules (`qgradlib.adjoint_nested`).
 
 ``theta -> phi`` is the circuit's linear angle map, written in autograd.numpy, so autograd
 applies the chain rule ``A.T @ dE/dphi`` for shared and scaled parameters by itself.
@@ -27,9 +28,9 @@ from autograd.tracer import Box, getval
 from . import ledger
 from .circuit import Circuit, check_theta
 from .engine import memory
-from .engine.adjoint import adjoint_gradient
-from .engine.measure import apply_observable, expectations, probabilities as _marginals
-from .engine.statevector import apply_diagonal, run
+from .adjoint_nested import adjoint_jacobian, adjoint_vjp, check_nested
+from .engine.measure import expectations, probabilities as _marginals
+from .engine.statevector import run
 from .measurement import make_rng, n_settings, sample_estimate
 from .observables import Observable
 from .plans import first_order_points
@@ -180,22 +181,10 @@ def _fd_jacobian(ans, phi, spec, inserts):
 
 def _adjoint_vjp(phi, spec, g):
     if isinstance(phi, Box) or isinstance(g, Box):
-        raise ValueError("gradient='adjoint' gives first derivatives only; for second and higher "
-                         "derivatives use gradient='shift' or qgradlib.curvature")
-    g = np.asarray(g, dtype=float)
-    n = spec.circuit.n_qubits
-    if spec.kind == "expect":
-        def apply(psi):
-            out = np.zeros_like(psi)
-            for k, obs in enumerate(spec.observables):
-                out += g[:, k, None] * apply_observable(psi, n, obs)
-            return out
-    else:
-        qubits = tuple(range(n)) if spec.qubits is None else spec.qubits
-
-        def apply(psi):
-            return apply_diagonal(psi.copy(), n, g.astype(complex), qubits)
-    return adjoint_gradient(spec.circuit, np.asarray(phi), apply, spec.columns)
+        # a derivative of the derivative: the adjoint Jacobian, itself differentiated by shifts
+        check_nested(spec)
+        return anp.einsum("pk,pkg->pg", g, adjoint_jacobian(phi, spec))
+    return adjoint_vjp(phi, spec, g)
 
 
 def _evaluate_vjp(ans, phi, spec, inserts=None, purposes="value"):
