@@ -348,7 +348,7 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     >>> from autograd import grad
     >>> c = qg.Circuit(1).ry(0)
     >>> Z = qg.Observable({"Z": 1.0})
-    >>> round(float(qg.expect(c, Z, np.array([0.4]))), 6) == round(np.cos(0.4), 6)
+    >>> bool(round(float(qg.expect(c, Z, np.array([0.4]))), 6) == round(np.cos(0.4), 6))
     True
     >>> bool(np.isclose(grad(lambda t: qg.expect(c, Z, t))(np.array([0.4]))[0], -np.sin(0.4)))
     True
