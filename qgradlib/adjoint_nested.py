@@ -10,6 +10,17 @@ frequencies it has in ``phi_j``), so ``d/dphi_j J = sum_t c_t J(phi + s_t e_j)``
 rule. The shifted Jacobians are computed by `adjoint_jacobian` again, as one batch, so a
 Hessian (or a third derivative) is adjoint gradients at shifted angles. Gates without a
 finite rule (Hamiltonian and function gates) are refused for nested use.
+
+Examples
+--------
+>>> import numpy as np
+>>> import qgradlib as qg
+>>> from autograd import hessian
+>>> c = qg.Circuit(1).ry(0)
+>>> Z = qg.Observable({"Z": 1.0})
+>>> h = hessian(lambda t: qg.expect(c, Z, t, gradient="adjoint"))(np.array([0.3]))
+>>> bool(np.isclose(h[0, 0], -np.cos(0.3)))     # <Z> = cos(a)
+True
 """
 from __future__ import annotations
 

@@ -182,3 +182,15 @@ def test_summary_is_readable():
     assert "7 executions" in text and "CRX" in text and "RY" in text and "value" in text
     assert "no shots" in text
     assert repr(book) == "Ledger(executions=7, circuits=7, shots=0)"
+
+
+def test_one_batch_per_vjp_and_memory_chunks_agree():
+    # item 7: all shifted points of one VJP go to the engine in one call (one ledger record);
+    # a tiny memory budget splits the batch into chunks without changing any number
+    c = _ry_circuit(4)
+    theta = np.array([0.1, 0.2, 0.3, 0.4])
+    with qg.Ledger() as book:
+        g = grad(lambda t: qg.expect(c, Z0, t))(theta)
+    assert book.calls == 2                    # the value, then one batch of 8 shifted circuits
+    g_small = grad(lambda t: qg.expect(c, Z0, t, memory=1))(theta)
+    np.testing.assert_array_equal(g, g_small)
