@@ -245,3 +245,36 @@ def test_bad_gradient_options_name_the_argument():
         qg.expect(c, Z, np.array([0.1]), gradient="finite-diff", fd_step=1e-15)
     with pytest.raises(ValueError, match="fd_kind"):
         qg.expect(c, Z, np.array([0.1]), fd_kind="backward")
+
+
+def test_forward_differences_and_steps():
+    # forward differences: error ~ h |f''| / 2; central: ~ h**2 |f'''| / 6 (common practice)
+    rng = np.random.default_rng(12)
+    ops = scramble(2, rng) + [("RY", (0,), (0, 1.0, 0.0)), ("CRZ", (0, 1), (1, 1.0, 0.0))]
+    c = to_circuit(ops, 2)
+    obs, M = random_pauli_observable(2, rng)
+    theta = np.array([0.5, 1.1])
+    exact = ref.gradient(ops, theta, 2, M)
+    norm = sum(abs(v) for v in obs.terms.values())      # bounds every derivative of <obs>
+    for h in (1e-2, 1e-4):
+        fwd = _grad(c, obs, theta, "finite-diff", fd_kind="forward", fd_step=h)
+        cen = _grad(c, obs, theta, "finite-diff", fd_step=h)
+        assert np.abs(fwd - exact).max() < h * norm / 2 + 1e-9
+        assert np.abs(cen - exact).max() < h ** 2 * norm / 6 + 1e-9
+    # the forward error is really first order: not also below the central bound at h = 1e-2
+    fwd = _grad(c, obs, theta, "finite-diff", fd_kind="forward", fd_step=1e-2)
+    assert np.abs(fwd - exact).max() > 1e-2 ** 2 * norm / 6
+
+
+def test_function_gate_with_shots_uses_a_noise_safe_step():
+    # with shots the default step is 0.1 (as for finite-diff), not 1e-5: 1e5 times less noise.
+    # <X> after H, RY(a) is cos(a), derivative -sin(a) (expm_frechet reference below); with
+    # 4000 shots per value the estimate's standard deviation is below 1/(0.2 sqrt(2 * 4000))
+    # = 0.056, plus a truncation bias ~ 0.1**2 / 6; |error| < 0.3 fails with probability < 1e-6
+    gate = _function_gate()
+    c = qg.Circuit(1).h(0).add(gate, 0)
+    theta = np.array([0.4])
+    exact = ref.gradient([("H", (0,), None), ("RY", (0,), (0, 1.0, 0.0))], theta, 1, ref.PX)
+    with pytest.warns(UserWarning, match="approximate"):
+        g = _grad(c, qg.Observable({"X": 1.0}), theta, "shift", shots=4000, seed=2)
+    assert abs(g[0] - exact[0]) < 0.3
