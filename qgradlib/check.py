@@ -100,7 +100,9 @@ class GradientReport:
 
     def __str__(self):
         mode = "exact simulation" if self.shots is None else f"{self.shots} shots per execution"
-        head = (f"gradient audit: {self.n_qubits} qubits, {self.n_params} parameters, {mode} "
+        plural = lambda k, word: f"{k} {word}" + ("" if k == 1 else "s")  # noqa: E731
+        head = (f"gradient audit: {plural(self.n_qubits, 'qubit')}, "
+                f"{plural(self.n_params, 'parameter')}, {mode} "
                 "(simulated numbers, not device measurements)")
         names = [m.method for m in self.methods]
         width = max(14, *(len(n) + 2 for n in names))

@@ -9,7 +9,8 @@ into their evolution. The derivative with respect to column ``j`` is
   Quantum 5, 386 (2021). By Duhamel's formula
   ``d/da f = int_0^1 dr [f(P-rotation by +pi/4 inserted at r) - f(... by -pi/4)]``
   (the inserted ``expm(-1j t P)`` has the two-term rule with shifts +-pi/4 and weight 1).
-  The integral is taken by Gauss-Legendre quadrature (exact to ~1e-12) or, with shots, by
+  The integral is taken by Gauss-Legendre quadrature (exact to ~1e-12; piecewise between
+  split points the evolution already carries, where the integrand has kinks) or, with shots, by
   sampling ``r`` uniformly (unbiased). Because the formula holds whatever splits the
   evolution already carries, it can be applied again for higher derivatives;
 - gates known only by a matrix function: a central finite difference (approximate).
