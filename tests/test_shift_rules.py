@@ -2,6 +2,7 @@
 import numpy as np
 import pytest
 from autograd import grad
+from hypothesis import given, settings, strategies as st
 
 import qgradlib as qg
 from derivative_cases import random_pauli_observable, scramble, to_circuit
@@ -177,3 +178,19 @@ def test_bad_rules_and_shifts_are_refused():
         ShiftRule.general([1.0, -2.0])
     with pytest.raises(TypeError, match="shift_rule"):
         qg.Gate.from_generator("g", np.diag([0.0, 1.0]), shift_rule={"pi/2": 0.5})
+
+
+@settings(max_examples=15)
+@given(st.lists(st.floats(0.2, 4.0), min_size=1, max_size=3,
+                unique_by=lambda w: round(w, 1)).filter(
+    lambda ws: min(np.diff(sorted(ws)), default=1.0) > 0.15),
+       st.integers(0, 2 ** 31))
+def test_derived_rule_is_exact_for_any_spectrum(freqs, seed):
+    # whatever rule is chosen (two-term, equidistant or general), it differentiates every
+    # trigonometric polynomial with those frequencies exactly (derivative written by hand)
+    rule = rule_for_frequencies(sorted(freqs))
+    rng = np.random.default_rng(seed)
+    f, df = _trig_poly(freqs, rng)
+    x = rng.uniform(-3, 3)
+    scale = sum(abs(c) for c in rule.coefficients) * 4       # size of the summed values
+    assert abs(rule.derivative(f, x) - df(x)) < 1e-9 * max(1.0, scale)
