@@ -179,3 +179,12 @@ def test_adjoint_nested_refuses_gates_without_a_rule():
     grad(f)(np.array([0.2]))                                # first order is fine
     with pytest.raises(ValueError, match="gradient='shift'"):
         hessian(f)(np.array([0.2]))
+
+
+@pytest.mark.parametrize("method", ["shift", "adjoint"])
+def test_hessian_of_a_list_of_observables(method):
+    ops, c, obs, Ms, theta = _case(11)
+    Hl = hessian(lambda t: qg.expect(c, list(obs), t, gradient=method))(theta)
+    assert Hl.shape == (2, 3, 3)
+    for k in range(2):
+        np.testing.assert_allclose(Hl[k], ref.hessian(ops, theta, N, Ms[k]), atol=1e-9)
