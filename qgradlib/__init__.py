@@ -1,6 +1,5 @@
 """qgradlib: parameter-shift gradients, curvature and shot accounting for quantum circuits."""
-from . import gates
-from . import curvature
+from . import check, curvature, gates
 from .circuit import Circuit, Operation
 from .expectation import expect, probabilities, sample, state
 from .gates import Gate

@@ -8,7 +8,8 @@ the ``gradient=`` option:
   one batch *through `evaluate` itself*, so the VJP is again differentiable (a shift of a
   shift) and `autograd.hessian` works;
 - ``"finite-diff"``: central (or forward) differences, also through `evaluate`;
-- ``"adjoint"``: the exact adjoint method (first derivatives, simulator only).
+- ``"adjoint"``: the exact adjoint method (simulator only); nested derivatives differentiate
+  the adjoint Jacobian by shift rules (`qgradlib.adjoint_nested`).
 
 ``theta -> phi`` is the circuit's linear angle map, written in autograd.numpy, so autograd
 applies the chain rule ``A.T @ dE/dphi`` for shared and scaled parameters by itself.
@@ -27,9 +28,9 @@ from autograd.tracer import Box, getval
 from . import ledger
 from .circuit import Circuit, check_theta
 from .engine import memory
-from .engine.adjoint import adjoint_gradient
-from .engine.measure import apply_observable, expectations, probabilities as _marginals
-from .engine.statevector import apply_diagonal, run
+from .adjoint_nested import adjoint_jacobian, adjoint_vjp, check_nested
+from .engine.measure import expectations, probabilities as _marginals
+from .engine.statevector import run
 from .measurement import make_rng, n_settings, sample_estimate
 from .observables import Observable
 from .plans import first_order_points
@@ -76,7 +77,8 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
     """Measured values (P, K) at gate angles ``phi`` (P, G); identical rows run once."""
     phi = np.asarray(phi, dtype=float)
     P = phi.shape[0]
-    keys = [phi[p].tobytes() + (repr(sorted(inserts[p].items())).encode() if inserts else b"")
+    ticks = _angle_ticks(phi, spec.circuit)
+    keys = [ticks[p].tobytes() + (repr(sorted(inserts[p].items())).encode() if inserts else b"")
             for p in range(P)]
     first, inverse, rows = {}, np.empty(P, dtype=int), []
     for p, key in enumerate(keys):
@@ -88,6 +90,26 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
     ledger.record(len(rows), spec.settings, spec.shots or 0, Counter(labels[r] for r in rows))
     vals = _measure_rows(phi[rows], spec, None if inserts is None else [inserts[r] for r in rows])
     return vals[inverse]
+
+
+_TICK = 2.0 ** 44      # angles are compared on a grid of 2**-44 rad (about 6e-14)
+
+
+def _angle_ticks(phi, circuit):
+    """Angles on a fine grid, reduced modulo each gate's period where it has one.
+
+    Shifted points such as ``(a + pi/2) - pi/2`` or ``a + 2 pi`` differ from ``a`` only by
+    rounding or by a period: they are the same circuit, run once and counted once.
+    """
+    t = np.array(phi, dtype=float)
+    for k, op in enumerate(circuit.parametric_operations):
+        period = op.gate.period
+        if period is not None:
+            # reduce first, round after: a point just below a period rounds onto it, hence mod again
+            t[:, k] = np.mod(np.round(np.mod(t[:, k], period) * _TICK), np.round(period * _TICK))
+        else:
+            t[:, k] = np.round(t[:, k] * _TICK)
+    return t + 0.0          # -0.0 and 0.0 must give one key
 
 
 def _measure_rows(phi, spec, inserts):
@@ -159,22 +181,10 @@ def _fd_jacobian(ans, phi, spec, inserts):
 
 def _adjoint_vjp(phi, spec, g):
     if isinstance(phi, Box) or isinstance(g, Box):
-        raise ValueError("gradient='adjoint' gives first derivatives only; for second and higher "
-                         "derivatives use gradient='shift' or qgradlib.curvature")
-    g = np.asarray(g, dtype=float)
-    n = spec.circuit.n_qubits
-    if spec.kind == "expect":
-        def apply(psi):
-            out = np.zeros_like(psi)
-            for k, obs in enumerate(spec.observables):
-                out += g[:, k, None] * apply_observable(psi, n, obs)
-            return out
-    else:
-        qubits = tuple(range(n)) if spec.qubits is None else spec.qubits
-
-        def apply(psi):
-            return apply_diagonal(psi.copy(), n, g.astype(complex), qubits)
-    return adjoint_gradient(spec.circuit, np.asarray(phi), apply, spec.columns)
+        # a derivative of the derivative: the adjoint Jacobian, itself differentiated by shifts
+        check_nested(spec)
+        return anp.einsum("pk,pkg->pg", g, adjoint_jacobian(phi, spec))
+    return adjoint_vjp(phi, spec, g)
 
 
 def _evaluate_vjp(ans, phi, spec, inserts=None, purposes="value"):
@@ -258,8 +268,9 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
             raise ValueError(f"shift must be a number in the open interval (0, pi); got {shift!r}")
         shift = float(shift)
     if fd_step is not None:
-        if not isinstance(fd_step, Real) or not np.isfinite(fd_step) or fd_step <= 0:
-            raise ValueError(f"fd_step must be a positive finite number; got {fd_step!r}")
+        if not isinstance(fd_step, Real) or not np.isfinite(fd_step) or fd_step < 1e-12:
+            raise ValueError("fd_step must be a finite number of at least 1e-12 (smaller steps are "
+                             f"lost in the rounding of angles); got {fd_step!r}")
         fd_step = float(fd_step)
     if fd_kind not in ("central", "forward"):
         raise ValueError(f"fd_kind must be 'central' or 'forward'; got {fd_kind!r}")

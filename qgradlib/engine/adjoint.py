@@ -82,6 +82,9 @@ def adjoint_gradient(circuit, phi, apply_observable, columns=None) -> np.ndarray
         else:
             lam_k = both[P:].copy()
             both = _undo(both, n, g, op.qubits, a2)
+            if g.kind == "function":
+                from ..gates import warn_approximate
+                warn_approximate(g)      # the matrix derivative is a finite difference here too
             deriv = hamiltonian_derivative if g.kind == "hamiltonian" else _function_derivative
             D = np.stack([deriv(g, x) for x in a])
             dpsi = apply_matrix(both[:P], n, D, op.qubits)
