@@ -25,6 +25,8 @@ from numbers import Real
 
 import numpy as np
 
+from .gates import _square
+
 __all__ = ["Channel", "depolarizing", "dephasing", "bit_flip", "amplitude_damping", "from_kraus"]
 
 _I = np.eye(2, dtype=complex)
@@ -152,20 +154,8 @@ def from_kraus(operators, name: str = "kraus") -> Channel:
     if not isinstance(operators, (list, tuple)) or not operators:
         raise TypeError("operators must be a non-empty list of Kraus matrices [K0, K1, ...]; "
                         f"got {type(operators).__name__}")
-    ops = []
-    for i, k in enumerate(operators):
-        try:
-            a = np.asarray(k, dtype=complex)
-        except (TypeError, ValueError):
-            raise TypeError(f"operators[{i}] must be a numeric matrix; got {type(k).__name__}") from None
-        if a.ndim != 2 or a.shape[0] != a.shape[1]:
-            raise ValueError(f"operators[{i}] must be a square matrix; got shape {a.shape}")
-        if not np.all(np.isfinite(a)):
-            raise ValueError(f"operators[{i}] must have finite entries")
-        ops.append(a)
+    ops = [_square(k, f"operators[{i}]") for i, k in enumerate(operators)]
     d = ops[0].shape[0]
-    if d < 2 or d & (d - 1):
-        raise ValueError(f"operators must be 2**k x 2**k matrices (2, 4, 8, ...); got {d}x{d}")
     if any(a.shape != (d, d) for a in ops):
         raise ValueError(f"operators must all have the same shape ({d}, {d}); got "
                          f"{[a.shape for a in ops]}")
