@@ -28,10 +28,11 @@ from . import ledger
 from .circuit import Circuit, check_theta
 from .engine import memory
 from .engine.adjoint import adjoint_gradient
-from .engine.density import density_expectations, diagonal, marginal, run_density
+from .engine.density import density_expectations, marginal, run_density
 from .engine.measure import apply_observable, expectations
 from .engine.statevector import apply_diagonal, run
-from .measurement import ALLOCATIONS, apply_readout, check_readout, make_rng, measure_row, plan_measurements
+from .measurement import (ALLOCATIONS, apply_readout, check_readout, make_rng, measure,
+                          outcome_distribution, plan_measurements)
 from .observables import Observable
 from .plans import first_order_points
 
@@ -124,13 +125,10 @@ def _readout(states, spec, noisy):
             # the exact value needs no settings: index arithmetic on the state or on rho
             vals = (density_expectations if noisy else expectations)(states, n, spec.observables)
             return vals, np.zeros_like(vals)
-        res = [measure_row(row, spec.plan, spec.shots, spec.rng, density=noisy,
-                           allocation=spec.allocation, readout=spec.readout) for row in states]
-        return np.array([m for m, _ in res]), np.array([v for _, v in res])
-    p = diagonal(states, n) if noisy else np.abs(states) ** 2
-    p = np.clip(p, 0, None)
-    p = np.stack([apply_readout(row / row.sum(), n, spec.readout) for row in p])
-    p = marginal(p, n, spec.qubits)
+        return measure(states, spec.plan, spec.shots, spec.rng, density=noisy,
+                       allocation=spec.allocation, readout=spec.readout)
+    p = marginal(apply_readout(outcome_distribution(states, n, density=noisy), n, spec.readout),
+                 n, spec.qubits)
     if spec.shots is not None:
         p = np.stack([spec.rng.multinomial(spec.shots, r / r.sum()) for r in p]) / spec.shots
     return p, np.zeros_like(p)
@@ -487,12 +485,12 @@ def sample(circuit, theta, shots, seed=None, *, readout=None) -> np.ndarray:
         raise ValueError("shots must be a positive int; got None")
     rng = make_rng(seed)
     flips = check_readout(readout, circuit.n_qubits)
+    n = circuit.n_qubits
     if circuit.has_noise:
-        n = circuit.n_qubits
-        p = np.clip(diagonal(density_matrix(circuit, theta).reshape(-1, 4 ** n), n), 0.0, None)
+        states = density_matrix(circuit, theta).reshape(-1, 4 ** n)
     else:
-        p = np.abs(np.atleast_2d(state(circuit, theta))) ** 2
-    p = np.stack([apply_readout(row / row.sum(), circuit.n_qubits, flips) for row in p])
+        states = np.atleast_2d(state(circuit, theta))
+    p = apply_readout(outcome_distribution(states, n, density=circuit.has_noise), n, flips)
     ledger.record(p.shape[0], 1, shots, {"sample": p.shape[0]})
     out = np.stack([rng.choice(p.shape[1], size=shots, p=row / row.sum()) for row in p])
     return out if np.ndim(getval(theta)) == 2 else out[0]

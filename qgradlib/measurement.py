@@ -42,7 +42,8 @@ from .engine.statevector import apply_matrix
 from .observables import Observable
 
 __all__ = ["Setting", "MeasurementPlan", "measurement_settings", "n_settings", "plan_measurements",
-           "allocate", "apply_readout", "check_readout", "measure_row", "make_rng", "ALLOCATIONS"]
+           "allocate", "apply_readout", "check_readout", "measure", "outcome_distribution", "make_rng",
+           "ALLOCATIONS"]
 
 ALLOCATIONS = ("uniform", "weighted")
 
@@ -172,6 +173,8 @@ def check_readout(readout, n: int):
     if isinstance(readout, (Real, np.floating, np.integer)) and not isinstance(readout, (bool, np.bool_)):
         vals = [readout] * n
     else:
+        if isinstance(readout, (str, bytes)):
+            raise TypeError(f"readout must be a flip probability or a sequence of one per qubit; got {readout!r}")
         try:
             vals = list(readout)
         except TypeError:
@@ -190,65 +193,68 @@ def check_readout(readout, n: int):
 
 
 def apply_readout(p, n: int, flips) -> np.ndarray:
-    """The outcome distribution (2**n,) after bit ``q`` flips with probability ``flips[q]``."""
+    """Outcome distributions (..., 2**n) after bit ``q`` flips with probability ``flips[q]``."""
     if flips is None:
         return p
-    t = np.asarray(p, dtype=float).reshape((2,) * n)
+    p = np.asarray(p, dtype=float)
+    lead = p.shape[:-1]
+    t = p.reshape(lead + (2,) * n)
     for q, e in enumerate(flips):
         if e:
-            t = (1.0 - e) * t + e * np.flip(t, axis=q)
-    return t.reshape(-1)
+            t = (1.0 - e) * t + e * np.flip(t, axis=len(lead) + q)
+    return t.reshape(p.shape)
 
 
-def outcome_distribution(row, n: int, basis: str | None = None, *, density=False) -> np.ndarray:
-    """Probabilities (2**n,) of reading ``row`` (a state, or a vectorised rho) in ``basis``."""
-    r = row.reshape(1, -1)
+def outcome_distribution(states, n: int, basis: str | None = None, *, density=False) -> np.ndarray:
+    """Probabilities (B, 2**n) of reading ``states`` (states, or vectorised rho) in ``basis``."""
+    r = states
     for q, b in enumerate(basis or ""):
         if b in _ROT:
             r = apply_unitary(r, n, _ROT[b], (q,)) if density else apply_matrix(r, n, _ROT[b], (q,))
-    p = density_probabilities(r, n)[0] if density else np.abs(r[0]) ** 2
+    p = density_probabilities(r, n) if density else np.abs(r) ** 2
     p = np.clip(p, 0.0, None)
-    return p / p.sum()
+    return p / p.sum(axis=1, keepdims=True)
 
 
 def _draw(p, values, shots, rng):
-    """Mean (K,) and variance of the mean (K,) of ``values`` (K, D) over outcomes drawn from p."""
+    """Means (B, K) and variances of the means (B, K) of ``values`` (K, D), outcomes from p (B, D)."""
     if shots is None:
-        return values @ p, np.zeros(values.shape[0])
+        return p @ values.T, np.zeros((p.shape[0], values.shape[0]))
     counts = rng.multinomial(shots, p)
-    mean = values @ counts / shots
+    mean = counts @ values.T / shots
     if shots < 2:
-        return mean, np.full(values.shape[0], np.inf)
-    var = ((values - mean[:, None]) ** 2) @ counts / (shots - 1)
+        return mean, np.full(mean.shape, np.inf)
+    # sample variance (ddof=1) from the first two moments of the counts
+    var = np.maximum(counts @ (values ** 2).T - shots * mean ** 2, 0.0) / (shots - 1)
     return mean, var / shots
 
 
-def measure_row(row, plan: MeasurementPlan, shots, rng, *, density=False, allocation="uniform",
-                readout=None):
-    """Estimates (K,) and their variances (K,) for one state or vectorised rho.
+def measure(states, plan: MeasurementPlan, shots, rng, *, density=False, allocation="uniform",
+            readout=None):
+    """Estimates (B, K) and their variances (B, K) for a batch of states or vectorised rho.
 
-    ``shots=None`` gives the exact value under the readout model (variance 0).
+    ``shots=None`` gives the exact values under the readout model (variance 0).
     """
     n = plan.n_qubits
-    K = plan.constants.size
-    mean, var = plan.constants.astype(float).copy(), np.zeros(K)
+    B = states.shape[0]
+    mean = np.tile(plan.constants.astype(float), (B, 1))
+    var = np.zeros_like(mean)
     per = [None] * plan.n_settings if shots is None else allocate(plan.weights, shots, allocation)
     for g, setting in enumerate(plan.settings):
-        p = apply_readout(outcome_distribution(row, n, setting.basis, density=density), n, readout)
+        p = apply_readout(outcome_distribution(states, n, setting.basis, density=density), n, readout)
         signs = np.stack([_signs(n, [q for q, w in enumerate(word) if w != "I"])
                           for word, _ in setting.terms])
         m, v = _draw(p, plan.coefficients[g] @ signs, per[g], rng)
         mean += m
         var += v
     for i, (k, ev, vec) in enumerate(plan.dense):
-        s = per[len(plan.settings) + i]
         if density:
             D = 2 ** n
-            p = np.real(np.einsum("ia,ij,ja->a", vec.conj(), row.reshape(D, D), vec))
+            p = np.real(np.einsum("ia,bij,ja->ba", vec.conj(), states.reshape(B, D, D), vec))
         else:
-            p = np.abs(vec.conj().T @ row) ** 2
+            p = np.abs(states @ vec.conj()) ** 2
         p = np.clip(p, 0.0, None)
-        m, v = _draw(p / p.sum(), ev[None, :], s, rng)
-        mean[k] += m[0]
-        var[k] += v[0]
+        m, v = _draw(p / p.sum(axis=1, keepdims=True), ev[None, :], per[len(plan.settings) + i], rng)
+        mean[:, k] += m[:, 0]
+        var[:, k] += v[:, 0]
     return mean, var
