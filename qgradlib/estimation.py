@@ -3,10 +3,10 @@
 `estimate` samples every measurement setting of the observables (see
 `qgradlib.measurement`) and reports the mean with its standard error
 ``sqrt(sum_g var_g / s_g)``, from the sample variance ``var_g`` of the ``s_g`` shots of
-setting ``g``. `estimate_gradient` runs the shift plan of every trainable parameter; the
-shifted circuits are sampled independently, so with merged coefficients ``w_u`` of the
-distinct points ``u`` (the shift rule's coefficients through the chain rule
-``A.T @ dE/dphi``) the gradient is ``sum_u w_u f_u`` and its variance ``sum_u w_u**2 var(f_u)``.
+setting ``g``. `estimate_gradient` runs the shift plan of every trainable parameter, every
+point ``u`` of it as its own independently sampled circuit, so with weights ``w_u`` (the
+shift rule's coefficients through the chain rule ``A.T @ dE/dphi``) the gradient is
+``sum_u w_u f_u`` and its variance ``sum_u w_u**2 var(f_u)``.
 
 Both are simulations of what a device would report, not device measurements: the shot noise
 is drawn from the simulated state's exact probabilities, and noise channels are models.
@@ -38,7 +38,7 @@ from autograd.tracer import getval
 
 from . import ledger
 from .circuit import check_theta
-from .expectation import _check_circuit, _measure_rows, _observables, _spec, unique_rows
+from .expectation import _check_circuit, _measure_rows, _observables, _spec
 from .plans import first_order_points
 
 __all__ = ["Estimate", "GradientEstimate", "estimate", "estimate_gradient"]
@@ -137,6 +137,11 @@ def estimate(circuit, observables, theta, *, shots, seed=None, allocation="unifo
     -------
     Estimate
 
+    Notes
+    -----
+    Every row of a batched ``theta`` is its own run with its own shots, even where rows
+    repeat (`expect` runs repeated rows once).
+
     Examples
     --------
     >>> import numpy as np
@@ -148,14 +153,14 @@ def estimate(circuit, observables, theta, *, shots, seed=None, allocation="unifo
     """
     spec, single, batched, phi = _prepare(circuit, observables, theta, shots, seed, allocation,
                                           readout, memory_budget=memory)
-    rows, inverse = unique_rows(phi)
-    ledger.record(len(rows), spec.settings, spec.shots, {"value": len(rows)})
-    mean, var = _measure_rows(phi[rows], spec, None, errors=True)
-    value = _shape(mean[inverse], single, batched)
-    se = _shape(np.sqrt(var[inverse]), single, batched)
+    P = phi.shape[0]
+    ledger.record(P, spec.settings, spec.shots, {"value": P})
+    mean, var = _measure_rows(phi, spec, None, errors=True)
+    value = _shape(mean, single, batched)
+    se = _shape(np.sqrt(var), single, batched)
     if np.ndim(value) == 0:
         value, se = float(value), float(se)
-    executions = len(rows) * spec.settings
+    executions = P * spec.settings
     return Estimate(value, se, executions, executions * spec.shots, spec.settings)
 
 
@@ -199,22 +204,14 @@ def estimate_gradient(circuit, observables, theta, *, shots, seed=None, allocati
     T = coeff.shape[1]
     grad = np.zeros((P, K, m))
     se = np.zeros((P, K, m))
-    rows = []
     if T:
-        points = np.asarray(points)
-        rows, inverse = unique_rows(points, inserts)
-        ledger.record(len(rows), spec.settings, spec.shots, Counter(names[r] for r in rows))
-        mean, var = _measure_rows(points[rows], spec, None if inserts is None else
-                                  [inserts[r] for r in rows], errors=True)
+        ledger.record(P * T, spec.settings, spec.shots, Counter(names))
+        mean, var = _measure_rows(np.asarray(points), spec, inserts, errors=True)
         A, _ = circuit.angle_map()
         weights = A.T @ coeff                      # (m, T): shift coefficients through the chain rule
-        for p in range(P):
-            # coinciding points of one row are one sample: merge their weights before squaring
-            uniq, where = np.unique(inverse[p * T:(p + 1) * T], return_inverse=True)
-            w = np.zeros((m, uniq.size))
-            np.add.at(w.T, where, weights.T)
-            grad[p] = (w @ mean[uniq]).T
-            se[p] = np.sqrt((w ** 2) @ var[uniq]).T
-    executions = len(rows) * spec.settings
+        mean, var = mean.reshape(P, T, K), var.reshape(P, T, K)
+        grad = np.einsum("it,ptk->pki", weights, mean)
+        se = np.sqrt(np.einsum("it,ptk->pki", weights ** 2, var))
+    executions = P * T * spec.settings
     return GradientEstimate(_shape(grad, single, batched), _shape(se, single, batched),
-                            executions, executions * spec.shots, len(rows))
+                            executions, executions * spec.shots, P * T)

@@ -80,15 +80,6 @@ class Spec:
 def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
     """Measured values (P, K) at gate angles ``phi`` (P, G); identical rows run once."""
     phi = np.asarray(phi, dtype=float)
-    rows, inverse = unique_rows(phi, inserts)
-    labels = [purposes] * phi.shape[0] if isinstance(purposes, str) else list(purposes)
-    ledger.record(len(rows), spec.settings, spec.shots or 0, Counter(labels[r] for r in rows))
-    vals = _measure_rows(phi[rows], spec, None if inserts is None else [inserts[r] for r in rows])
-    return vals[inverse]
-
-
-def unique_rows(phi, inserts=None):
-    """``(rows, inverse)``: the first row of each distinct point, and where every row maps."""
     P = phi.shape[0]
     keys = [phi[p].tobytes() + (repr(sorted(inserts[p].items())).encode() if inserts else b"")
             for p in range(P)]
@@ -98,7 +89,10 @@ def unique_rows(phi, inserts=None):
             first[key] = len(rows)
             rows.append(p)
         inverse[p] = first[key]
-    return rows, inverse
+    labels = [purposes] * P if isinstance(purposes, str) else list(purposes)
+    ledger.record(len(rows), spec.settings, spec.shots or 0, Counter(labels[r] for r in rows))
+    vals = _measure_rows(phi[rows], spec, None if inserts is None else [inserts[r] for r in rows])
+    return vals[inverse]
 
 
 def _measure_rows(phi, spec, inserts, errors=False):
@@ -379,7 +373,7 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     >>> from autograd import grad
     >>> c = qg.Circuit(1).ry(0)
     >>> Z = qg.Observable({"Z": 1.0})
-    >>> round(float(qg.expect(c, Z, np.array([0.4]))), 6) == round(np.cos(0.4), 6)
+    >>> bool(round(float(qg.expect(c, Z, np.array([0.4]))), 6) == round(np.cos(0.4), 6))
     True
     >>> bool(np.isclose(grad(lambda t: qg.expect(c, Z, t))(np.array([0.4]))[0], -np.sin(0.4)))
     True

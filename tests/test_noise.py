@@ -297,6 +297,20 @@ def test_adjoint_is_refused_for_noisy_circuits_at_the_call():
         qg.state(c, theta)
 
 
+def test_pure_state_kernels_refuse_channels_with_a_clear_message():
+    # code written for pure states (the statevector run, the adjoint pass) meets a channel's
+    # missing unitary as a ValueError that points to the density-matrix path
+    from qgradlib.engine import run
+    from qgradlib.engine.adjoint import adjoint_gradient
+
+    c, H, theta = _noisy()
+    phi = np.atleast_2d(c.angles(theta))
+    with pytest.raises(ValueError, match="density-matrix path"):
+        run(c, phi)
+    with pytest.raises(ValueError, match="density-matrix path"):
+        adjoint_gradient(c, phi, lambda psi: psi)
+
+
 @pytest.mark.parametrize("method,arg,bad", [("depolarize", "p", 1.2), ("dephase", "p", -0.1),
                                             ("bit_flip", "p", float("nan")),
                                             ("amplitude_damp", "gamma", 1.5)])
