@@ -18,7 +18,7 @@ import numpy as np
 from . import ledger as _ledger
 from .circuit import Circuit, check_theta
 from .expectation import evaluate
-from .plans import _spread, column_terms, quadrature_nodes
+from .plans import _spread, column_terms
 from .stencils import duhamel_rule, gate_stencil
 
 __all__ = ["Plan", "build_plan", "run_plan", "tensor", "prepare"]
@@ -62,13 +62,9 @@ def _column_rules(circuit, phi, columns, max_order, *, shift, fd_step, shots, sp
         first = [((t.split,), t.coefficient) for t in
                  column_terms(circuit, c, phi[c:c + 1], shots=shots, splits=splits, rng=rng)]
         spread = _spread(g, [phi[c]])
-
-        def nodes(lo, hi, spread=spread):
-            r, w = quadrature_nodes(spread * (hi - lo))
-            return lo + (hi - lo) * r, (hi - lo) * w
         rules[c] = [[(0.0, (), 1.0)]] + [
             [(0.0, cuts, w) for cuts, w in
-             duhamel_rule(k, nodes, first=first, shots=shots, splits=splits, rng=rng)]
+             duhamel_rule(k, spread, first=first, shots=shots, splits=splits, rng=rng)]
             for k in range(1, max_order + 1)]
     return rules
 

@@ -65,7 +65,7 @@ def _spread(gate, angles):
     return 2.0 * worst
 
 
-def _quadrature(spread, breaks):
+def piecewise_quadrature(spread, breaks):
     """Gauss-Legendre on each piece of [0, 1] cut at ``breaks``.
 
     An evolution that already carries inserts (a derivative of a derivative) gives an
@@ -95,7 +95,7 @@ def column_terms(circuit, column: int, angles, *, shift=None, fd_step=None, shot
         return [Term(column, float(s), None, float(c)) for s, c in zip(rule.shifts, rule.coefficients)]
     if g.kind == "hamiltonian":
         if shots is None:
-            r, w = _quadrature(_spread(g, angles), breaks)
+            r, w = piecewise_quadrature(_spread(g, angles), breaks)
         else:
             r = np.sort(rng.uniform(0.0, 1.0, size=int(splits)))
             w = np.full(r.size, 1.0 / r.size)

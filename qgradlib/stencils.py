@@ -30,6 +30,7 @@ from math import ceil, factorial
 import numpy as np
 
 from .gates import warn_approximate
+from .plans import piecewise_quadrature
 
 __all__ = ["Stencil", "trig_stencil", "fd_stencil", "gate_stencil", "duhamel_rule"]
 
@@ -156,7 +157,7 @@ def gate_stencil(gate, max_order: int, *, shift=None, fd_step=None) -> Stencil:
                      "Hamiltonian gates use duhamel_rule")
 
 
-def duhamel_rule(order: int, nodes, *, first=None, shots=None, splits=1, rng=None):
+def duhamel_rule(order: int, spread: float, *, first=None, shots=None, splits=1, rng=None):
     """k-th derivative of a Hamiltonian gate's angle as inserted rotations (stochastic rule).
 
     Returns ``[(splits, weight), ...]`` where ``splits`` is a sorted tuple of ``(r, t)``:
@@ -165,10 +166,11 @@ def duhamel_rule(order: int, nodes, *, first=None, shots=None, splits=1, rng=Non
     ``int_0^1 dr [entry + (r, +pi/4)] - [entry + (r, -pi/4)]``; the formula holds whatever
     splits the evolution already carries, so applying it k times gives the k-th derivative.
 
-    ``nodes(lo, hi) -> (r, w)`` gives exact quadrature on ``[lo, hi]``. Existing splits cut
-    the integrand into smooth pieces (it has a kink at each), so without shots every piece
-    gets its own Gauss-Legendre rule. With ``shots`` the split points are sampled uniformly,
-    ``splits`` per application, which keeps every order unbiased.
+    ``spread`` bounds the integrand's frequency; existing splits cut the integrand into
+    smooth pieces (it has a kink at each), so without shots every piece gets its own
+    Gauss-Legendre rule (`qgradlib.plans.piecewise_quadrature`). With ``shots`` the split
+    points are sampled uniformly, ``splits`` per application, which keeps every order
+    unbiased.
 
     ``first`` (optional) are the order-1 entries to build on, so that every order of one
     column starts from the same first-order splits (for example those of
@@ -182,13 +184,7 @@ def duhamel_rule(order: int, nodes, *, first=None, shots=None, splits=1, rng=Non
         nxt = []
         for cuts, weight in entries:
             if shots is None:
-                edges = [0.0] + sorted({r for r, _ in cuts}) + [1.0]
-                rs, ws = [], []
-                for lo, hi in zip(edges[:-1], edges[1:]):
-                    if hi - lo > 0:
-                        r, w = nodes(lo, hi)
-                        rs.extend(r)
-                        ws.extend(w)
+                rs, ws = piecewise_quadrature(spread, [r for r, _ in cuts])
             else:
                 rs = np.sort(rng.uniform(0.0, 1.0, size=int(splits)))
                 ws = np.full(rs.size, 1.0 / rs.size)
