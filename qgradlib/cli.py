@@ -41,7 +41,48 @@ def demo(args) -> int:
     return 0
 
 
-_SECTIONS = []
+def audit(sc, args):
+    from . import check
+
+    print(_rule("gradient audit at the starting point"))
+    print(check.gradients(sc.circuit, sc.hamiltonian, sc.theta0))
+
+
+def ledger(sc, args):
+    from autograd import grad
+
+    from . import Ledger, expect
+
+    print(_rule("ledger: one shift-rule gradient"))
+    with Ledger() as book:
+        grad(lambda t: expect(sc.circuit, sc.hamiltonian, t))(sc.theta0)
+    print(book.summary())
+
+
+def shots_and_noise(sc, args):
+    from autograd import grad
+
+    from . import estimate_gradient, expect
+
+    print(_rule(f"gradient at {sc.shots} shots per setting, and under noise"))
+    est = estimate_gradient(sc.circuit, sc.hamiltonian, sc.theta0, shots=sc.shots, seed=args.seed)
+    exact = grad(lambda t: expect(sc.circuit, sc.hamiltonian, t))(sc.theta0)
+    noisy = grad(lambda t: expect(sc.noisy_circuit, sc.hamiltonian, t))(sc.theta0)
+    print(f"{'d/dtheta':<10}{'exact':>11}{'shot estimate':>16}{'std error':>11}"
+          f"{f'exact, {sc.noise:.0%} depol.':>22}")
+    for k in range(min(6, sc.circuit.n_params)):
+        print(f"[{k}]{'':<7}{exact[k]:>11.5f}{est.gradient[k]:>16.5f}{est.standard_error[k]:>11.5f}"
+              f"{noisy[k]:>22.5f}")
+    if sc.circuit.n_params > 6:
+        print(f"... ({sc.circuit.n_params - 6} more parameters)")
+    z = np.abs(est.gradient - exact) / est.standard_error
+    print(f"shot estimate: {est.executions} executions, {est.shots} shots; "
+          f"{np.mean(z < 2):.0%} of components within 2 standard errors of exact")
+    print(f"noise shrinks the gradient: |noisy| / |exact| = "
+          f"{np.linalg.norm(noisy) / np.linalg.norm(exact):.3f}")
+
+
+_SECTIONS = [audit, ledger, shots_and_noise]
 
 
 def main(argv=None) -> int:

@@ -29,6 +29,9 @@ class Scenario:
     hamiltonian: Observable
     circuit: Circuit
     theta0: np.ndarray
+    noisy_circuit: Circuit
+    noise: float
+    shots: int
 
     def ground_energy(self) -> float:
         """Exact ground energy from scipy.sparse.linalg.eigsh."""
@@ -50,21 +53,32 @@ def ring_hamiltonian(n: int, coupling: float, drive: float) -> Observable:
     return Observable(terms)
 
 
-def ring_circuit(n: int, layers: int) -> Circuit:
-    """RY on every qubit, then a CNOT ring, ``layers`` times, then a final RY layer."""
+def ring_circuit(n: int, layers: int, noise: float = 0.0) -> Circuit:
+    """RY on every qubit, then a CNOT ring, ``layers`` times, then a final RY layer.
+
+    With ``noise`` > 0 every qubit is depolarised with that probability after each ring of
+    CNOTs (a simple model of two-qubit gate error; the parameters stay the same).
+    """
     c = Circuit(n)
     for _ in range(layers):
         for q in range(n):
             c.ry(q)
         for q in range(n):
             c.cnot(q, (q + 1) % n)
+        if noise:
+            for q in range(n):
+                c.depolarize(q, noise)
     for q in range(n):
         c.ry(q)
     return c
 
 
 def kestrel(n: int = 6, layers: int = 2, seed: int = 7) -> Scenario:
-    """The Kestrel ring scenario (defaults: 6 qubits, 2 layers)."""
+    """The Kestrel ring scenario (defaults: 6 qubits, 2 layers).
+
+    Its device budget is 1000 shots per measurement setting per circuit, and its noise
+    model a 1% depolarising error on every qubit after each CNOT ring (both invented).
+    """
     circuit = ring_circuit(n, layers)
     rng = np.random.default_rng(seed)
     theta0 = rng.normal(0.0, 0.3, size=circuit.n_params)
@@ -75,4 +89,7 @@ def kestrel(n: int = 6, layers: int = 2, seed: int = 7) -> Scenario:
         hamiltonian=ring_hamiltonian(n, 1.0, 0.7),
         circuit=circuit,
         theta0=theta0,
+        noisy_circuit=ring_circuit(n, layers, noise=0.01),
+        noise=0.01,
+        shots=1000,
     )
