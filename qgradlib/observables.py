@@ -187,4 +187,6 @@ def _real(c, name):
 
 def _popcount(a):
     a = np.asarray(a, dtype=np.int64)
-    return np.bitwise_count(a) if hasattr(np, "bitwise_count") else np.vectorize(lambda v: bin(v).count("1"))(a)
+    # bitwise_count returns uint8, and 1 - 2 * parity must not wrap around: back to int64
+    out = np.bitwise_count(a) if hasattr(np, "bitwise_count") else np.vectorize(lambda v: bin(v).count("1"))(a)
+    return out.astype(np.int64)
