@@ -1,5 +1,5 @@
 """qgradlib: parameter-shift gradients, curvature and shot accounting for quantum circuits."""
-from . import gates
+from . import gates, models, optimize
 from .circuit import Circuit, Operation
 from .expectation import expect, probabilities, sample, state
 from .gates import Gate
@@ -10,4 +10,14 @@ from .shift_rules import ShiftRule
 __version__ = "0.1.0"
 
 __all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", "expect",
-           "probabilities", "state", "sample", "gates", "__version__"]
+           "probabilities", "state", "sample", "gates", "models", "optimize", "plot",
+           "__version__"]
+
+
+def __getattr__(name):
+    # qgradlib.plot needs matplotlib, an optional extra: import it only when asked for
+    if name == "plot":
+        import importlib
+
+        return importlib.import_module(".plot", __name__)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
