@@ -1,5 +1,5 @@
 """qgradlib: parameter-shift gradients, curvature and shot accounting for quantum circuits."""
-from . import gates, models, optimize
+from . import gates, models, optimize, workflows
 from .circuit import Circuit, Operation
 from .expectation import expect, probabilities, sample, state
 from .gates import Gate
@@ -10,8 +10,8 @@ from .shift_rules import ShiftRule
 __version__ = "0.1.0"
 
 __all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", "expect",
-           "probabilities", "state", "sample", "gates", "models", "optimize", "plot",
-           "__version__"]
+           "probabilities", "state", "sample", "gates", "models", "optimize",
+           "workflows", "plot", "__version__"]
 
 
 def __getattr__(name):
