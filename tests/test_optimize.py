@@ -1,8 +1,4 @@
 """Optimisers: one-step hand computations, published results, scipy interop, refusals."""
-import importlib
-import sys
-import types
-
 import autograd
 import autograd.numpy as anp
 import numpy as np
@@ -15,42 +11,12 @@ from qgradlib import models
 from qgradlib.optimize import minimize, minimize_expectation, spsa_estimate
 from qgradlib.rotosolve import sinusoid_minimum
 
-
-# -- a stand-in for qgradlib.curvature, used only while that module has not landed -------------------
-def _standin_metric(circuit, theta, approx=None):
-    # Fubini-Study metric Re(<d_i psi|d_j psi> - <d_i psi|psi><psi|d_j psi>) from central
-    # differences of the state: independent of the shift rules (full metric; approx ignored)
-    h = 1e-5
-    psi = qg.state(circuit, theta)
-    d = np.array([(qg.state(circuit, theta + h * e) - qg.state(circuit, theta - h * e)) / (2 * h)
-                  for e in np.eye(theta.size)])
-    overlap = d.conj() @ psi
-    return (d.conj() @ d.T - np.outer(overlap, overlap.conj())).real
-
-
-def _standin_hessian(circuit, observable, theta, shots=None, seed=None):
-    f = lambda t: qg.expect(circuit, observable, t, shots=shots, seed=seed)  # noqa: E731
-    with qg.Ledger() as book:
-        value, gradient = autograd.value_and_grad(f)(theta)
-        hess = autograd.hessian(f)(theta)
-    return types.SimpleNamespace(value=float(value), gradient=np.asarray(gradient),
-                                 hessian=np.asarray(hess), executions=book.executions)
+import curvature_standin
 
 
 @pytest.fixture
 def curvature(monkeypatch):
-    try:
-        real = importlib.import_module("qgradlib.curvature")
-        if hasattr(real, "metric_tensor") and hasattr(real, "hessian"):
-            return real
-    except ImportError:
-        pass
-    standin = types.ModuleType("qgradlib.curvature")
-    standin.metric_tensor = _standin_metric
-    standin.hessian = _standin_hessian
-    monkeypatch.setitem(sys.modules, "qgradlib.curvature", standin)
-    monkeypatch.setattr(qg, "curvature", standin, raising=False)
-    return standin
+    return curvature_standin.install(monkeypatch)
 
 
 Z1 = qg.Observable({"Z": 1.0})
