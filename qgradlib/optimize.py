@@ -5,20 +5,16 @@ values plus classical terms, for instance). `minimize_expectation` trains one ex
 value and can use the circuit itself: its metric tensor, its shift-rule Hessian, or the
 sinusoidal shape of the cost in each parameter.
 
-========== ===================================================================== =========
-method     update                                                                needs
-========== ===================================================================== =========
-"gd"       ``x - stepsize * g``                                                  cost
-"adam"     Kingma and Ba, ICLR 2015 (bias-corrected moments)                     cost
-"spsa"     simultaneous perturbation, two evaluations per gradient estimate      cost
-           (Spall, IEEE Trans. Autom. Control 37, 332 (1992))
-"natural"  ``x - stepsize * (F + regulariser I)^-1 g`` with F the metric tensor  circuit
-           (Stokes, Izaac, Killoran and Carleo, Quantum 4, 269 (2020))
-"newton"   ``x - stepsize * (H + mu I)^-1 g`` with the shift-rule Hessian H and  circuit
-           Levenberg-Marquardt damping mu
-"rotosolve" exact minimum in one parameter at a time from three evaluations      circuit
-           (Ostaszewski, Grant and Benedetti, Quantum 5, 391 (2021))
-========== ===================================================================== =========
+- ``"gd"``: ``x - stepsize * g``;
+- ``"adam"``: bias-corrected moment estimates (Kingma and Ba, ICLR 2015);
+- ``"spsa"``: a random two-evaluation gradient estimate (Spall, IEEE Trans. Autom. Control
+  37, 332 (1992));
+- ``"natural"`` (needs the circuit): ``x - stepsize * (F + regulariser I)^-1 g`` with F the
+  metric tensor (Stokes, Izaac, Killoran and Carleo, Quantum 4, 269 (2020));
+- ``"newton"`` (needs the circuit): ``x - stepsize * (H + mu I)^-1 g`` with the shift-rule
+  Hessian H and Levenberg-Marquardt damping mu;
+- ``"rotosolve"`` (needs the circuit): the exact minimum in one parameter at a time from three
+  evaluations (Ostaszewski, Grant and Benedetti, Quantum 5, 391 (2021)).
 
 Every run is wrapped in a `qgradlib.Ledger`: the result carries the executions and shots a
 device would have needed, besides ``x, fun, jac, nit, success, status, message`` and a
@@ -186,7 +182,8 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
     Notes
     -----
     "natural" uses ``qgradlib.curvature.metric_tensor`` (the Fubini-Study metric, the real part
-    of the quantum geometric tensor) and solves ``(F + regulariser I) d = g``.
+    of the quantum geometric tensor) and solves ``(F + regulariser I) d = g``. The metric is
+    taken as that function computes it, without shots; ``shots`` applies to the gradient.
 
     "newton" takes value, gradient and Hessian from one ``qgradlib.curvature.hessian`` call,
     solves ``(H + mu I) d = -g`` and keeps the step only if the cost falls (one more
