@@ -82,7 +82,60 @@ def shots_and_noise(sc, args):
           f"{np.linalg.norm(noisy) / np.linalg.norm(exact):.3f}")
 
 
-_SECTIONS = [audit, ledger, shots_and_noise]
+def training(sc, args):
+    from .workflows import compare_training
+
+    print(_rule("training: Adam and damped Newton side by side"))
+    cmp = compare_training(sc.circuit, sc.hamiltonian, sc.theta0, methods=("adam", "newton"),
+                           steps=args.steps, seed=args.seed, shots_per_execution=sc.shots,
+                           options={"adam": {"stepsize": 0.1}})
+    print(cmp.summary())
+    sc_best = min(cmp.results, key=lambda m: cmp.energies[m])
+    args.best = (sc_best, cmp.results[sc_best].x)
+    args.comparison = cmp
+    try:
+        from .plot import training as plot_training
+
+        plot_training(cmp.results, args.plot, title=f"{sc.name}: training")
+    except ImportError:
+        print("(matplotlib is not installed: no training plot; pip install \".[plot]\")")
+        return
+    print(f"training plot written to {args.plot}")
+
+
+def curvature_at_best(sc, args):
+    from . import Ledger, curvature
+
+    name, x = args.best
+    print(_rule(f"curvature at the best point (from {name})"))
+    with Ledger() as book:
+        r = curvature.hessian(sc.circuit, sc.hamiltonian, x)
+    ev = np.linalg.eigvalsh(r.hessian)
+    print(f"energy {r.value:.8f}, gradient norm {np.linalg.norm(r.gradient):.2e}")
+    print("Hessian eigenvalues: " + " ".join(f"{v:.4f}" for v in ev))
+    tol = 1e-6 * max(1.0, np.abs(ev).max())
+    if ev.min() > tol:
+        verdict = "all positive: a strict local minimum"
+    elif ev.min() > -tol:
+        verdict = "none negative, some flat: a minimum along a valley"
+    else:
+        verdict = "a negative eigenvalue: a saddle, not a minimum"
+    print(verdict)
+    print(f"cost of this Hessian on a device: {r.executions} executions "
+          f"({book.circuits} distinct circuits x measurement settings), "
+          f"{r.executions * sc.shots:,} shots at {sc.shots} per execution")
+
+
+def pricing(sc, args):
+    cmp = args.comparison
+    print(_rule("price of the same training on a device"))
+    for m in cmp.results:
+        print(f"{m:<8} {cmp.executions[m]:>9,} executions  {cmp.shots[m]:>14,} shots "
+              f"at {sc.shots} shots per execution")
+    print("(counts of circuits a device would run; the training above ran on the exact simulator)")
+
+
+_SECTIONS = [audit, ledger, shots_and_noise, training, curvature_at_best, pricing]
 
 
 def main(argv=None) -> int:
@@ -92,14 +145,15 @@ def main(argv=None) -> int:
     sub = parser.add_subparsers(dest="command", required=True)
     d = sub.add_parser("demo", help="run the Kestrel ring scenario (well under a minute)")
     d.add_argument("--qubits", type=int, default=6, help="ring size (default 6)")
-    d.add_argument("--layers", type=int, default=2, help="circuit layers (default 2)")
+    d.add_argument("--layers", type=int, default=None, help="circuit layers (default qubits // 2)")
+    d.add_argument("--steps", type=int, default=100, help="training steps per method (default 100)")
     d.add_argument("--seed", type=int, default=7, help="seed for the starting point and shots")
     d.add_argument("--plot", default="kestrel-training.png",
                    help="where to write the training plot when matplotlib is present")
     args = parser.parse_args(argv)
     if args.command == "demo":
-        if args.qubits < 2 or args.layers < 1:
-            parser.error("--qubits must be at least 2 and --layers at least 1")
+        if args.qubits < 2 or (args.layers is not None and args.layers < 1) or args.steps < 1:
+            parser.error("--qubits must be at least 2, --layers and --steps at least 1")
         return demo(args)
     return 2  # pragma: no cover
 

@@ -54,34 +54,37 @@ def ring_hamiltonian(n: int, coupling: float, drive: float) -> Observable:
 
 
 def ring_circuit(n: int, layers: int, noise: float = 0.0) -> Circuit:
-    """RY on every qubit, then a CNOT ring, ``layers`` times, then a final RY layer.
+    """Layers that follow the ring Hamiltonian itself, one coupling and one drive angle each.
 
-    With ``noise`` > 0 every qubit is depolarised with that probability after each ring of
-    CNOTs (a simple model of two-qubit gate error; the parameters stay the same).
+    Every qubit starts in |+> (H); each layer is RZZ on every ring edge sharing one angle,
+    then RX on every qubit sharing another (2 * ``layers`` parameters). With ``noise`` > 0
+    every qubit is depolarised with that probability after each ring of RZZ (a simple model
+    of two-qubit gate error; the parameters stay the same).
     """
     c = Circuit(n)
-    for _ in range(layers):
+    for q in range(n):
+        c.h(q)
+    for layer in range(layers):
         for q in range(n):
-            c.ry(q)
-        for q in range(n):
-            c.cnot(q, (q + 1) % n)
+            c.rzz(q, (q + 1) % n, param=2 * layer)
         if noise:
             for q in range(n):
                 c.depolarize(q, noise)
-    for q in range(n):
-        c.ry(q)
+        for q in range(n):
+            c.rx(q, param=2 * layer + 1)
     return c
 
 
-def kestrel(n: int = 6, layers: int = 2, seed: int = 7) -> Scenario:
-    """The Kestrel ring scenario (defaults: 6 qubits, 2 layers).
+def kestrel(n: int = 6, layers: int | None = None, seed: int = 7) -> Scenario:
+    """The Kestrel ring scenario (defaults: 6 qubits, n // 2 layers).
 
     Its device budget is 1000 shots per measurement setting per circuit, and its noise
     model a 1% depolarising error on every qubit after each CNOT ring (both invented).
     """
+    layers = max(1, n // 2) if layers is None else layers
     circuit = ring_circuit(n, layers)
     rng = np.random.default_rng(seed)
-    theta0 = rng.normal(0.0, 0.3, size=circuit.n_params)
+    theta0 = 0.3 + rng.normal(0.0, 0.05, size=circuit.n_params)
     return Scenario(
         name="Kestrel ring",
         story=(f"{n} qubits on a ring of the invented Kestrel test chip: ZZ coupling J = 1.0 "
