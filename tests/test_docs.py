@@ -40,6 +40,9 @@ def test_doc_page_examples_run(page, tmp_path, monkeypatch):
     namespace = {"__name__": f"docs_{page.stem}"}
     for i, code in enumerate(blocks):
         exec(compile(code, f"{page.name} [python block {i + 1}]", "exec"), namespace)
+    # a page that writes figures must write real ones (a blank PNG is a few hundred bytes)
+    for png in tmp_path.glob("*.png"):
+        assert png.stat().st_size > 5000, f"{page.name} wrote a near-empty figure {png.name}"
 
 
 @pytest.mark.parametrize("name", MODULES)
