@@ -1,7 +1,9 @@
 """qgradlib: parameter-shift gradients, curvature and shot accounting for quantum circuits."""
-from . import gates
+from . import channels, check, curvature, gates, models, optimize, workflows
+from .channels import Channel
 from .circuit import Circuit, Operation
-from .expectation import expect, probabilities, sample, state
+from .estimation import Estimate, GradientEstimate, estimate, estimate_gradient
+from .expectation import density_matrix, expect, probabilities, sample, state
 from .gates import Gate
 from .ledger import Ledger
 from .observables import Observable
@@ -10,4 +12,15 @@ from .shift_rules import ShiftRule
 __version__ = "0.1.0"
 
 __all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", "expect",
-           "probabilities", "state", "sample", "gates", "__version__"]
+           "probabilities", "state", "sample", "gates", "__version__",
+           "Channel", "channels", "density_matrix", "estimate", "estimate_gradient", "Estimate",
+           "GradientEstimate", "check", "curvature", "models", "optimize", "workflows", "plot"]
+
+
+def __getattr__(name):
+    # qgradlib.plot needs matplotlib, an optional extra: import it only when asked for
+    if name == "plot":
+        import importlib
+
+        return importlib.import_module(".plot", __name__)
+    raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

@@ -22,7 +22,9 @@ from numbers import Real
 import autograd.numpy as anp
 import numpy as np
 
+from . import channels as _ch
 from . import gates as _g
+from .channels import Channel
 from .gates import Gate
 
 __all__ = ["Circuit", "Operation"]
@@ -30,7 +32,7 @@ __all__ = ["Circuit", "Operation"]
 
 @dataclass(frozen=True)
 class Operation:
-    """One gate on some qubits; for parametric gates, how its angle is formed."""
+    """One gate (or noise `Channel`) on some qubits; for parametric gates, how its angle is formed."""
 
     gate: Gate
     qubits: tuple
@@ -87,6 +89,11 @@ class Circuit:
             self._pops = memo
         return memo[1]
 
+    @property
+    def has_noise(self) -> bool:
+        """True when some operation is a noise `Channel` (the density-matrix path runs it)."""
+        return any(isinstance(op.gate, Channel) for op in self._ops)
+
     def __len__(self):
         return len(self._ops)
 
@@ -95,7 +102,7 @@ class Circuit:
 
     # -- building -------------------------------------------------------------------------
     def add(self, gate: Gate, qubits, param=None, *, scale=1.0, offset=0.0, angle=None):
-        """Append ``gate`` on ``qubits`` (an int or a sequence of ints).
+        """Append ``gate`` (a `Gate` or a noise `Channel`) on ``qubits`` (an int or a sequence of ints).
 
         Examples
         --------
@@ -105,8 +112,8 @@ class Circuit:
         >>> qg.Circuit(2).add(qg.Gate.from_generator("zz", M), (0, 1)).n_params
         1
         """
-        if not isinstance(gate, Gate):
-            raise TypeError(f"gate must be a qgradlib Gate; got {type(gate).__name__}")
+        if not isinstance(gate, (Gate, Channel)):
+            raise TypeError(f"gate must be a qgradlib Gate or Channel; got {type(gate).__name__}")
         qs = self._qubits(qubits, gate)
         if not gate.parametric:
             if param is not None or angle is not None or scale != 1.0 or offset != 0.0:
@@ -270,6 +277,27 @@ class Circuit:
         """
         return self.rz(q).ry(q).rz(q)
 
+    # -- noise channels (no angle; see qgradlib.channels) ------------------------------------
+    def depolarize(self, q, p):
+        """rho -> (1 - p) rho + p I/2 on qubit ``q``."""
+        return self.add(_ch.depolarizing(p), q)
+
+    def dephase(self, q, p):
+        """rho -> (1 - p) rho + p Z rho Z on qubit ``q``."""
+        return self.add(_ch.dephasing(p), q)
+
+    def bit_flip(self, q, p):
+        """rho -> (1 - p) rho + p X rho X on qubit ``q``."""
+        return self.add(_ch.bit_flip(p), q)
+
+    def amplitude_damp(self, q, gamma):
+        """Decay |1> -> |0> with probability ``gamma`` on qubit ``q``."""
+        return self.add(_ch.amplitude_damping(gamma), q)
+
+    def kraus(self, qubits, operators):
+        """The channel rho -> sum_k K_k rho K_k^dagger on ``qubits`` (completeness checked)."""
+        return self.add(_ch.from_kraus(operators), qubits)
+
 
 def _finite(v, name):
     if isinstance(v, bool) or not isinstance(v, (Real, np.floating, np.integer)):
@@ -286,7 +314,11 @@ def check_theta(circuit: Circuit, theta):
 
     raw = getval(theta)
     if isinstance(raw, (list, tuple)):
-        raw = np.asarray(raw)
+        try:
+            raw = np.asarray(raw)
+        except ValueError:  # rows of different lengths
+            raise ValueError(f"theta must have shape ({circuit.n_params},) or (B, {circuit.n_params}); "
+                             "got a ragged sequence") from None
         theta = raw
     if not isinstance(raw, (np.ndarray, Real, np.generic)) or isinstance(raw, bool):
         raise TypeError(f"theta must be a real array of shape ({circuit.n_params},) or "

@@ -8,7 +8,8 @@ the ``gradient=`` option:
   one batch *through `evaluate` itself*, so the VJP is again differentiable (a shift of a
   shift) and `autograd.hessian` works;
 - ``"finite-diff"``: central (or forward) differences, also through `evaluate`;
-- ``"adjoint"``: the exact adjoint method (first derivatives, simulator only).
+- ``"adjoint"``: the exact adjoint method (simulator only); nested derivatives differentiate
+  the adjoint Jacobian by shift rules (`qgradlib.adjoint_nested`).
 
 ``theta -> phi`` is the circuit's linear angle map, written in autograd.numpy, so autograd
 applies the chain rule ``A.T @ dE/dphi`` for shared and scaled parameters by itself.
@@ -17,11 +18,10 @@ Simulator shortcuts that leave the ledger alone: the unique rows of one call are
 branches of a shared trunk where they agree on leading angles (`qgradlib.engine.branch`),
 and with ``gradient="adjoint"`` the forward call keeps its final states, weakly tied to the
 call's `Spec`, for the VJP to start from (one state per row, until the VJP runs or the call
-is forgotten).
+is forgotten; see `qgradlib.adjoint_nested`).
 """
 from __future__ import annotations
 
-import weakref
 from collections import Counter
 from dataclasses import dataclass
 from numbers import Real
@@ -34,21 +34,19 @@ from autograd.tracer import Box, getval
 from . import ledger
 from .circuit import Circuit, check_theta
 from .engine import memory
-from .engine.adjoint import adjoint_gradient
+from .adjoint_nested import adjoint_jacobian, adjoint_vjp, check_nested, keep_states
+from .engine.density import density_expectations, marginal, run_density
+from .engine.measure import expectations
 from .engine.branch import run_branched
-from .engine.measure import apply_observables, expectations, probabilities as _marginals
-from .engine.statevector import apply_diagonal, run
-from .measurement import make_rng, n_settings, sample_estimate
+from .engine.statevector import run
+from .measurement import (ALLOCATIONS, apply_readout, check_readout, make_rng, measure,
+                          outcome_distribution, plan_measurements)
 from .observables import Observable
 from .plans import first_order_points
 
-__all__ = ["expect", "probabilities", "state", "sample", "evaluate", "METHODS"]
+__all__ = ["expect", "probabilities", "state", "density_matrix", "sample", "evaluate", "METHODS"]
 
 METHODS = ("shift", "adjoint", "finite-diff")
-
-# final states of a forward evaluation with gradient="adjoint", held (weakly, by the Spec
-# of that call) until its VJP runs: the adjoint method then skips its own forward run
-_forward_states: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 
 
 @dataclass(frozen=True, eq=False)
@@ -69,6 +67,9 @@ class Spec:
     memory: int | None = None
     columns: tuple = ()
     settings: int = 1
+    allocation: str = "uniform"
+    readout: tuple | None = None   # per-qubit readout flip probabilities
+    plan: object = None            # measurement.MeasurementPlan of the observables
 
     @property
     def n_out(self):
@@ -88,7 +89,8 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
     """Measured values (P, K) at gate angles ``phi`` (P, G); identical rows run once."""
     phi = np.asarray(phi, dtype=float)
     P = phi.shape[0]
-    keys = [phi[p].tobytes() + (repr(sorted(inserts[p].items())).encode() if inserts else b"")
+    ticks = _angle_ticks(phi, spec.circuit)
+    keys = [ticks[p].tobytes() + (repr(sorted(inserts[p].items())).encode() if inserts else b"")
             for p in range(P)]
     first, inverse, rows = {}, np.empty(P, dtype=int), []
     for p, key in enumerate(keys):
@@ -98,52 +100,80 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
         inverse[p] = first[key]
     labels = [purposes] * P if isinstance(purposes, str) else list(purposes)
     ledger.record(len(rows), spec.settings, spec.shots or 0, Counter(labels[r] for r in rows))
-    keep = spec.gradient == "adjoint" and inserts is None and spec.shots is None
+    keep = (spec.gradient == "adjoint" and inserts is None and spec.shots is None
+            and not spec.circuit.has_noise)
     vals = _measure_rows(phi[rows], spec, None if inserts is None else [inserts[r] for r in rows],
                          keep=keep)
     if keep:
         vals, states = vals
         if states is not None:
             # the adjoint VJP starts from these final states instead of running again
-            _forward_states[spec] = (phi.tobytes(), states, inverse)
+            keep_states(spec, phi, states, inverse)
     return vals[inverse]
 
 
-def _measure_rows(phi, spec, inserts, keep=False):
-    """Values of the unique rows, in memory chunks; with ``keep`` also their final states
-    (or None when they did not fit in one chunk)."""
+_TICK = 2.0 ** 44      # angles are compared on a grid of 2**-44 rad (about 6e-14)
+
+
+def _angle_ticks(phi, circuit):
+    """Angles on a fine grid, reduced modulo each gate's period where it has one.
+
+    Shifted points such as ``(a + pi/2) - pi/2`` or ``a + 2 pi`` differ from ``a`` only by
+    rounding or by a period: they are the same circuit, run once and counted once.
+    """
+    t = np.array(phi, dtype=float)
+    for k, op in enumerate(circuit.parametric_operations):
+        period = op.gate.period
+        if period is not None:
+            # reduce first, round after: a point just below a period rounds onto it, hence mod again
+            t[:, k] = np.mod(np.round(np.mod(t[:, k], period) * _TICK), np.round(period * _TICK))
+        else:
+            t[:, k] = np.round(t[:, k] * _TICK)
+    return t + 0.0          # -0.0 and 0.0 must give one key
+
+
+def _measure_rows(phi, spec, inserts, errors=False, keep=False):
+    """Values (P, K) at the rows of ``phi``; with ``errors``, also their variances (P, K);
+    with ``keep``, also the final states (or None when they took more than one chunk)."""
     n = spec.circuit.n_qubits
-    per_row = 3 * 16 * 2 ** n
+    noisy = spec.circuit.has_noise
+    per_row = 3 * 16 * 2 ** (2 * n if noisy else n)
     budget = spec.memory if spec.memory is not None else max(per_row, memory.available_bytes() // 4)
     chunk = max(1, min(phi.shape[0], budget // per_row))
     out = np.empty((phi.shape[0], spec.n_out))
-    psi = None
+    var = np.zeros_like(out)
     for lo in range(0, phi.shape[0], chunk):
         hi = min(lo + chunk, phi.shape[0])
         ins = None if inserts is None else inserts[lo:hi]
-        # rows that share a prefix of angles (the points of a shift plan) run as branches
-        # of one trunk; a device would still run each circuit (the ledger counted them)
-        psi = run_branched(spec.circuit, phi[lo:hi], ins)
-        if psi is None:
-            psi = run(spec.circuit, phi[lo:hi], ins)
-        out[lo:hi] = _readout(psi, spec)
+        if noisy:
+            states = run_density(spec.circuit, phi[lo:hi], ins)
+        else:
+            # rows that share a prefix of angles (the points of a shift plan) run as branches
+            # of one trunk; a device would still run each circuit (the ledger counted them)
+            states = run_branched(spec.circuit, phi[lo:hi], ins)
+            if states is None:
+                states = run(spec.circuit, phi[lo:hi], ins)
+        out[lo:hi], var[lo:hi] = _readout(states, spec, noisy)
+    res = (out, var) if errors else out
     if keep:
-        return out, (psi if chunk >= phi.shape[0] else None)
-    return out
+        return res, (states if chunk >= phi.shape[0] else None)
+    return res
 
 
-def _readout(psi, spec):
+def _readout(states, spec, noisy):
     n = spec.circuit.n_qubits
-    if spec.shots is None:
-        if spec.kind == "expect":
-            return expectations(psi, n, spec.observables)
-        return _marginals(psi, n, spec.qubits)
     if spec.kind == "expect":
-        return np.array([[sample_estimate(row, n, obs, spec.shots, spec.rng)
-                          for obs in spec.observables] for row in psi])
-    p = _marginals(psi, n, spec.qubits)
-    p = np.clip(p, 0, None)
-    return np.stack([spec.rng.multinomial(spec.shots, r / r.sum()) for r in p]) / spec.shots
+        if spec.shots is None and spec.readout is None:
+            # the exact value needs no settings: index arithmetic on the state or on rho
+            vals = (density_expectations if noisy else expectations)(states, n, spec.observables)
+            return vals, np.zeros_like(vals)
+        return measure(states, spec.plan, spec.shots, spec.rng, density=noisy,
+                       allocation=spec.allocation, readout=spec.readout)
+    p = marginal(apply_readout(outcome_distribution(states, n, density=noisy), n, spec.readout),
+                 n, spec.qubits)
+    if spec.shots is not None:
+        p = np.stack([spec.rng.multinomial(spec.shots, r / r.sum()) for r in p]) / spec.shots
+    return p, np.zeros_like(p)
 
 
 def _jacobian(points, new_inserts, coeff, names, spec, P):
@@ -188,36 +218,10 @@ def _fd_jacobian(ans, phi, spec, inserts):
 
 def _adjoint_vjp(phi, spec, g):
     if isinstance(phi, Box) or isinstance(g, Box):
-        raise ValueError("gradient='adjoint' gives first derivatives only; for second and higher "
-                         "derivatives use gradient='shift' or qgradlib.curvature")
-    g = np.asarray(g, dtype=float)
-    n = spec.circuit.n_qubits
-    phi = np.asarray(phi, dtype=float)
-    if spec.kind == "expect":
-        def into(psi, out, scratch):
-            apply_observables(psi, n, spec.observables, g, out, scratch)
-    else:
-        qubits = tuple(range(n)) if spec.qubits is None else spec.qubits
-
-        def into(psi, out, scratch):
-            out[...] = psi
-            apply_diagonal(out, n, g.astype(complex), qubits)
-    # the states go straight into the call (no local name), so the adjoint can free them
-    # once copied into its stacked buffer
-    return adjoint_gradient(spec.circuit, phi, columns=spec.columns, observable_into=into,
-                            psi=_take_states(spec, phi))
-
-
-def _take_states(spec, phi):
-    """The forward evaluation's final states for ``phi`` (P, G), if they were kept."""
-    held = _forward_states.pop(spec, None)
-    if held is None or held[0] != phi.tobytes():
-        return None
-    _, states, inverse = held
-    del held
-    if inverse.size == states.shape[0] and np.array_equal(inverse, np.arange(inverse.size)):
-        return states
-    return states[inverse]
+        # a derivative of the derivative: the adjoint Jacobian, itself differentiated by shifts
+        check_nested(spec)
+        return anp.einsum("pk,pkg->pg", g, adjoint_jacobian(phi, spec))
+    return adjoint_vjp(phi, spec, g)
 
 
 def _evaluate_vjp(ans, phi, spec, inserts=None, purposes="value"):
@@ -289,20 +293,34 @@ def _check_qubits(qubits, n):
 
 
 def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, gradient="shift",
-          shift=None, fd_step=None, fd_kind="central", splits=1, memory_budget=None):
+          shift=None, fd_step=None, fd_kind="central", splits=1, memory_budget=None,
+          allocation="uniform", readout=None):
     if gradient not in METHODS:
         raise ValueError(f"gradient must be one of {METHODS}; got {gradient!r}")
     shots = _check_shots(shots)
     if gradient == "adjoint" and shots is not None:
         raise ValueError("gradient='adjoint' needs the exact state, which a device never has: "
                          "it cannot be combined with shots; use 'shift'")
+    if gradient == "adjoint" and circuit.has_noise:
+        raise ValueError("gradient='adjoint' runs on pure states and cannot differentiate a circuit "
+                         "with noise channels; use gradient='shift' (exact for noise that does not "
+                         "depend on the angles) or 'finite-diff'")
+    if allocation not in ALLOCATIONS:
+        raise ValueError(f"allocation must be one of {ALLOCATIONS}; got {allocation!r}")
+    readout = check_readout(readout, circuit.n_qubits)
+    if readout is not None and gradient == "adjoint":
+        raise ValueError("gradient='adjoint' cannot include readout error; use gradient='shift'")
+    if readout is not None and any(o.dense is not None for o in observables):
+        raise ValueError("readout= models bit flips of Pauli measurements; an observable with a "
+                         "dense part is measured in its own eigenbasis, which has no such bits")
     if shift is not None:
         if not isinstance(shift, Real) or not 0 < float(shift) < np.pi:
             raise ValueError(f"shift must be a number in the open interval (0, pi); got {shift!r}")
         shift = float(shift)
     if fd_step is not None:
-        if not isinstance(fd_step, Real) or not np.isfinite(fd_step) or fd_step <= 0:
-            raise ValueError(f"fd_step must be a positive finite number; got {fd_step!r}")
+        if not isinstance(fd_step, Real) or not np.isfinite(fd_step) or fd_step < 1e-12:
+            raise ValueError("fd_step must be a finite number of at least 1e-12 (smaller steps are "
+                             f"lost in the rounding of angles); got {fd_step!r}")
         fd_step = float(fd_step)
     if fd_kind not in ("central", "forward"):
         raise ValueError(f"fd_kind must be 'central' or 'forward'; got {fd_kind!r}")
@@ -312,17 +330,21 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
         raise ValueError(f"memory must be a positive number of bytes; got {memory_budget!r}")
     pops = circuit.parametric_operations
     columns = tuple(k for k, op in enumerate(pops) if op.param is not None and op.scale != 0.0)
-    if kind == "expect":
-        words = {w: 1.0 for o in observables for w in o.terms}
-        union = Observable(words) if words else None
-        settings = (n_settings(union) if union is not None else 0) + sum(o.dense is not None for o in observables)
-    else:
-        settings = 1
+    plan = plan_measurements(observables) if kind == "expect" else None
+    settings = plan.n_settings if plan is not None else 1
     # a guard at the call that asks for the state, not deep inside the engine
-    memory.guard(16 * 2 ** circuit.n_qubits, f"a state of {circuit.n_qubits} qubits")
+    _guard(circuit)
     return Spec(circuit, kind, observables, qubits, shots,
                 make_rng(seed) if shots is not None else None, gradient, shift, fd_step, fd_kind,
-                int(splits), memory_budget, columns, max(1, settings))
+                int(splits), memory_budget, columns, max(1, settings), allocation, readout, plan)
+
+
+def _guard(circuit):
+    n = circuit.n_qubits
+    if circuit.has_noise:
+        memory.guard(16 * 4 ** n, f"a density matrix of {n} qubits (a circuit with noise)")
+    else:
+        memory.guard(16 * 2 ** n, f"a state of {n} qubits")
 
 
 def _run(spec, theta):
@@ -334,7 +356,7 @@ def _run(spec, theta):
 
 # -- public functions ---------------------------------------------------------------------------
 def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shift", shift=None,
-           fd_step=None, fd_kind="central", splits=1, memory=None):
+           fd_step=None, fd_kind="central", splits=1, memory=None, allocation="uniform", readout=None):
     """Expectation value(s) of ``observables`` after ``circuit`` at parameters ``theta``.
 
     Differentiable with autograd (`grad`, `jacobian`, `hessian`, ...); the derivative is
@@ -346,11 +368,13 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     observables : Observable or list of Observable
     theta : array_like, shape (n_params,) or (B, n_params)
     shots : int, optional
-        Finite-shot estimate: ``shots`` readouts per measurement setting, per circuit.
+        Finite-shot estimate: on average ``shots`` readouts per measurement setting, per
+        circuit, so each circuit takes ``shots * n_settings`` in total (the ledger's count).
+        With ``allocation="uniform"`` every setting gets exactly ``shots``.
     seed : int or numpy.random.Generator, optional
         Randomness for shots and for the stochastic rule's split points.
     gradient : {"shift", "adjoint", "finite-diff"}
-        How autograd differentiates this call.
+        How autograd differentiates this call ("adjoint" is refused for noisy circuits).
     shift : float in (0, pi), optional
         Shift ``s`` of the two-term rule for single-frequency gates (default pi/2).
     fd_step : float, optional
@@ -360,6 +384,11 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
         With shots, split points sampled per Hamiltonian gate for the stochastic rule.
     memory : int, optional
         Bytes the engine may use for one chunk of a batch (default: a quarter of free memory).
+    allocation : {"uniform", "weighted"}
+        How a circuit's shots are split over its settings (see `qgradlib.measurement`).
+    readout : float or sequence of float in [0, 0.5], optional
+        Readout flip probability per qubit (one float: the same for all). With ``shots`` the
+        sampled bits carry it; without, the exact value under that readout model.
 
     Returns
     -------
@@ -371,7 +400,8 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     -----
     Exact values come from simulation. With ``shots`` the value is a sampled mean, which is
     how a device's estimate behaves statistically, but it is still a simulation, not a
-    measurement on hardware.
+    measurement on hardware. A circuit with noise channels runs on the density-matrix path;
+    its channels are models too. For standard errors use `qgradlib.estimate`.
 
     Examples
     --------
@@ -380,7 +410,7 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     >>> from autograd import grad
     >>> c = qg.Circuit(1).ry(0)
     >>> Z = qg.Observable({"Z": 1.0})
-    >>> round(float(qg.expect(c, Z, np.array([0.4]))), 6) == round(np.cos(0.4), 6)
+    >>> bool(np.isclose(qg.expect(c, Z, np.array([0.4])), np.cos(0.4)))
     True
     >>> bool(np.isclose(grad(lambda t: qg.expect(c, Z, t))(np.array([0.4]))[0], -np.sin(0.4)))
     True
@@ -389,7 +419,8 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     obs, single = _observables(observables, circuit.n_qubits)
     check_theta(circuit, theta)
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
-                 shift=shift, fd_step=fd_step, fd_kind=fd_kind, splits=splits, memory_budget=memory)
+                 shift=shift, fd_step=fd_step, fd_kind=fd_kind, splits=splits, memory_budget=memory,
+                 allocation=allocation, readout=readout)
     vals, batched = _run(spec, theta)
     if single:
         vals = vals[:, 0]
@@ -397,10 +428,11 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
 
 
 def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradient="shift",
-                  shift=None, fd_step=None, fd_kind="central", splits=1, memory=None):
+                  shift=None, fd_step=None, fd_kind="central", splits=1, memory=None, readout=None):
     """Probabilities of the outcomes on ``qubits`` (first listed = most significant bit).
 
-    Differentiable like `expect`. Returns shape (2**k,) or (B, 2**k).
+    Differentiable like `expect`. Returns shape (2**k,) or (B, 2**k). ``readout`` (per-qubit
+    flip probabilities) is applied to the outcome distribution before any sampling.
 
     Examples
     --------
@@ -414,13 +446,16 @@ def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradien
     qs = _check_qubits(qubits, circuit.n_qubits)
     check_theta(circuit, theta)
     spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
-                 shift=shift, fd_step=fd_step, fd_kind=fd_kind, splits=splits, memory_budget=memory)
+                 shift=shift, fd_step=fd_step, fd_kind=fd_kind, splits=splits, memory_budget=memory,
+                 readout=readout)
     vals, batched = _run(spec, theta)
     return vals if batched else vals[0]
 
 
 def state(circuit, theta) -> np.ndarray:
     """The final statevector, complex128 of shape (2**n,) or (B, 2**n). Not differentiable.
+
+    A circuit with noise channels has no pure state: use `density_matrix`.
 
     Examples
     --------
@@ -430,16 +465,43 @@ def state(circuit, theta) -> np.ndarray:
     [(0.7071+0j), (0.7071+0j)]
     """
     _check_circuit(circuit)
+    if circuit.has_noise:
+        raise ValueError("circuit has noise channels, so its final state is mixed: use "
+                         "qgradlib.density_matrix(circuit, theta) instead of state()")
     theta = np.asarray(getval(check_theta(circuit, theta)), dtype=float)
-    memory.guard(16 * 2 ** circuit.n_qubits, f"a state of {circuit.n_qubits} qubits")
+    _guard(circuit)
     phi = np.atleast_2d(circuit.angles(theta))
     psi = run(circuit, phi)
     return psi if theta.ndim == 2 else psi[0]
 
 
-def sample(circuit, theta, shots, seed=None) -> np.ndarray:
+def density_matrix(circuit, theta) -> np.ndarray:
+    """The final density matrix, complex128 of shape (2**n, 2**n) or (B, 2**n, 2**n).
+
+    Runs the density-matrix path (also for a circuit without noise). Not differentiable.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> rho = qg.density_matrix(qg.Circuit(1).h(0).dephase(0, 0.25), np.zeros(0))
+    >>> rho.real.round(3).tolist()
+    [[0.5, 0.25], [0.25, 0.5]]
+    """
+    _check_circuit(circuit)
+    theta = np.asarray(getval(check_theta(circuit, theta)), dtype=float)
+    n = circuit.n_qubits
+    memory.guard(16 * 4 ** n, f"a density matrix of {n} qubits")
+    rho = run_density(circuit, np.atleast_2d(circuit.angles(theta))).reshape(-1, 2 ** n, 2 ** n)
+    return rho if theta.ndim == 2 else rho[0]
+
+
+def sample(circuit, theta, shots, seed=None, *, readout=None) -> np.ndarray:
     """Basis-state indices of ``shots`` readouts of all qubits (big-endian), shape (shots,)
     or (B, shots).
+
+    Noisy circuits are sampled from the diagonal of their density matrix. ``readout``
+    (per-qubit flip probabilities in [0, 0.5]) flips the read bits with those probabilities.
 
     Examples
     --------
@@ -448,12 +510,20 @@ def sample(circuit, theta, shots, seed=None) -> np.ndarray:
     >>> qg.sample(qg.Circuit(2).x(0), np.zeros(0), shots=3, seed=0).tolist()
     [2, 2, 2]
     """
+    _check_circuit(circuit)
     shots = _check_shots(shots)
     if shots is None:
         raise ValueError("shots must be a positive int; got None")
     rng = make_rng(seed)
-    psi = np.atleast_2d(state(circuit, theta))
-    p = np.clip(np.abs(psi) ** 2, 0, None)
-    ledger.record(psi.shape[0], 1, shots, {"sample": psi.shape[0]})
+    flips = check_readout(readout, circuit.n_qubits)
+    n = circuit.n_qubits
+    if circuit.has_noise:
+        states = density_matrix(circuit, theta).reshape(-1, 4 ** n)
+    else:
+        states = np.atleast_2d(state(circuit, theta))
+    p = apply_readout(outcome_distribution(states, n, density=circuit.has_noise), n, flips)
+    # the draw holds one float and one int per shot: refuse what cannot fit
+    memory.guard(16 * shots * p.shape[0], f"{shots:,} shots of {p.shape[0]} circuit(s)")
+    ledger.record(p.shape[0], 1, shots, {"sample": p.shape[0]})
     out = np.stack([rng.choice(p.shape[1], size=shots, p=row / row.sum()) for row in p])
     return out if np.ndim(getval(theta)) == 2 else out[0]

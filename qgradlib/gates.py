@@ -264,7 +264,10 @@ class Gate:
             return self.unitary.copy()
         if angle is None:
             raise ValueError(f"gate {self.name!r} is parametric: give an angle")
-        a = np.asarray(angle, dtype=float)
+        a = np.asarray(angle)
+        if a.dtype.kind not in "fiu":
+            raise TypeError(f"angle must be a real number or an array of real numbers; got {angle!r}")
+        a = a.astype(float)
         scalar = a.ndim == 0
         a = a.reshape(-1)
         if not np.all(np.isfinite(a)):

@@ -85,7 +85,11 @@ class Ledger:
 
 
 def record(circuits: int, settings: int = 1, shots_per_setting: int = 0, purposes=None) -> None:
-    """Report work to every active ledger (called by the engine's callers)."""
+    """Report work to every active ledger (called by the engine's callers).
+
+    ``shots_per_setting`` is the mean over the settings: with a weighted shot allocation
+    the settings differ, but a circuit always takes ``settings * shots_per_setting``.
+    """
     active = _ACTIVE.get()
     if not active:
         return

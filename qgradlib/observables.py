@@ -101,7 +101,7 @@ class Observable:
             xq, zq, ny = masks(word)
             x = sum(1 << (self._n - 1 - q) for q in xq)
             z = sum(1 << (self._n - 1 - q) for q in zq)
-            sign = 1 - 2 * (_popcount(idx & z) & 1)
+            sign = 1.0 - 2.0 * (_popcount(idx & z).astype(np.int64) & 1)
             # P|i> = i**ny (-1)**pop(i&z) |i^x>: column i, row i^x
             rows.append(idx ^ x)
             cols.append(idx)
@@ -139,6 +139,8 @@ class Observable:
         return self._combine(other, -1.0)
 
     def __mul__(self, scalar):
+        if isinstance(scalar, (complex, np.complexfloating)):
+            raise TypeError(f"scalar must be real (observables are Hermitian); got {scalar!r}")
         if not isinstance(scalar, Real) or isinstance(scalar, bool):
             return NotImplemented
         s = _real(scalar, "scalar")
@@ -187,6 +189,7 @@ def _real(c, name):
 
 def _popcount(a):
     a = np.asarray(a, dtype=np.int64)
-    # bitwise_count returns uint8: widen it, or 1 - 2 * count wraps around to 255
-    out = np.bitwise_count(a) if hasattr(np, "bitwise_count") else np.vectorize(lambda v: bin(v).count("1"))(a)
-    return np.asarray(out, dtype=np.int64)
+    # bitwise_count returns uint8, in which 1 - 2 * 1 wraps to 255: give back signed ints
+    if hasattr(np, "bitwise_count"):
+        return np.bitwise_count(a).astype(np.int64)
+    return np.vectorize(lambda v: bin(v).count("1"), otypes=[np.int64])(a)

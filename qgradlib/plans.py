@@ -9,7 +9,8 @@ into their evolution. The derivative with respect to column ``j`` is
   Quantum 5, 386 (2021). By Duhamel's formula
   ``d/da f = int_0^1 dr [f(P-rotation by +pi/4 inserted at r) - f(... by -pi/4)]``
   (the inserted ``expm(-1j t P)`` has the two-term rule with shifts +-pi/4 and weight 1).
-  The integral is taken by Gauss-Legendre quadrature (exact to ~1e-12) or, with shots, by
+  The integral is taken by Gauss-Legendre quadrature (exact to ~1e-12; piecewise between
+  split points the evolution already carries, where the integrand has kinks) or, with shots, by
   sampling ``r`` uniformly (unbiased). Because the formula holds whatever splits the
   evolution already carries, it can be applied again for higher derivatives;
 - gates known only by a matrix function: a central finite difference (approximate).
@@ -64,9 +65,29 @@ def _spread(gate, angles):
     return 2.0 * worst
 
 
+def piecewise_quadrature(spread, breaks):
+    """Gauss-Legendre on each piece of [0, 1] cut at ``breaks``.
+
+    An evolution that already carries inserts (a derivative of a derivative) gives an
+    integrand with a kink at each of them; one rule across a kink converges slowly, one rule
+    per smooth piece is again exact.
+    """
+    edges = np.unique(np.concatenate([[0.0], np.asarray(breaks, dtype=float), [1.0]]))
+    nodes, weights = [], []
+    for lo, hi in zip(edges[:-1], edges[1:]):
+        r, w = quadrature_nodes(spread * (hi - lo))
+        nodes.append(lo + (hi - lo) * r)
+        weights.append((hi - lo) * w)
+    return np.concatenate(nodes), np.concatenate(weights)
+
+
 def column_terms(circuit, column: int, angles, *, shift=None, fd_step=None, shots=None,
-                 splits=1, rng=None) -> list:
-    """The terms of d/dphi[column] (angles: that column's values over the rows)."""
+                 splits=1, rng=None, breaks=()) -> list:
+    """The terms of d/dphi[column] (angles: that column's values over the rows).
+
+    ``breaks`` are split fractions already inserted into this column's evolution in some
+    row; the quadrature of the stochastic rule is cut there.
+    """
     op = circuit.parametric_operations[column]
     g = op.gate
     if g.kind == "generator":
@@ -74,7 +95,7 @@ def column_terms(circuit, column: int, angles, *, shift=None, fd_step=None, shot
         return [Term(column, float(s), None, float(c)) for s, c in zip(rule.shifts, rule.coefficients)]
     if g.kind == "hamiltonian":
         if shots is None:
-            r, w = quadrature_nodes(_spread(g, angles))
+            r, w = piecewise_quadrature(_spread(g, angles), breaks)
         else:
             r = np.sort(rng.uniform(0.0, 1.0, size=int(splits)))
             w = np.full(r.size, 1.0 / r.size)
@@ -85,7 +106,8 @@ def column_terms(circuit, column: int, angles, *, shift=None, fd_step=None, shot
         return out
     if g.kind == "function":
         warn_approximate(g)
-        h = 1e-5 if fd_step is None else fd_step
+        # with shots a tiny step would amplify the noise by 1/h: the same default as finite-diff
+        h = fd_step if fd_step is not None else (1e-5 if shots is None else 0.1)
         return [Term(column, h, None, 1 / (2 * h)), Term(column, -h, None, -1 / (2 * h))]
     raise AssertionError(g.kind)
 
@@ -105,7 +127,8 @@ def first_order_points(circuit, phi, inserts, columns, **rule_options):
     P, G = raw.shape
     terms = []
     for j in columns:
-        terms.extend(column_terms(circuit, j, raw[:, j], **rule_options))
+        breaks = sorted({r for row in inserts for r, _ in row.get(j, ())}) if inserts else ()
+        terms.extend(column_terms(circuit, j, raw[:, j], breaks=breaks, **rule_options))
     T = len(terms)
     delta = np.zeros((T, G))
     coeff = np.zeros((G, T))

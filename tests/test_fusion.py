@@ -157,7 +157,7 @@ def test_operations_that_are_not_gates_are_delegated_or_refused():
 
     c2 = qg.Circuit(1)
     c2._ops.append(qg.Operation(Opaque(), (0,)))
-    with pytest.raises(TypeError, match="apply_states"):
+    with pytest.raises(ValueError, match="density-matrix path"):
         run(c2, np.zeros((1, 0)))
 
 

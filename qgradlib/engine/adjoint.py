@@ -124,8 +124,9 @@ def _row_dots(a, b):
 def _undo_step(s, both, buf, n, phi, shared, table, P):
     """Apply the step's inverse to every stacked row; returns (current, spare)."""
     if s.kind == "external":
-        raise ValueError(f"the adjoint method cannot undo operation {s.op.gate!r}: it is not a gate "
-                         "(use gradient='shift' or 'finite-diff')")
+        raise ValueError(f"the adjoint method cannot undo operation {getattr(s.op.gate, 'name', s.op.gate)!r}: "
+                         "it is not a gate; a circuit with noise channels has no pure state and runs "
+                         "on the density-matrix path (use gradient='shift' or 'finite-diff')")
     if s.kind == "solo":
         g = s.op.gate
         qs = tuple(s.op.qubits)
@@ -299,6 +300,9 @@ def _derivative(s, both, buf, n, phi, P, grad):
             _apply_generator(g, both[:P], n, qs, mu)
             grad[:, col] = 2 * np.imag(_row_dots(both[P:], mu))
         return
+    if g.kind == "function":
+        from ..gates import warn_approximate
+        warn_approximate(g)      # the matrix derivative is a finite difference here too
     deriv = hamiltonian_derivative if g.kind == "hamiltonian" else _function_derivative
     a = phi[:, col]
     # <lam_k| dU |psi_{k-1}> with psi_{k-1} = U^dag psi_k: apply dU U^dag to psi_k

@@ -36,9 +36,13 @@ DIAG_WIDTH = 10
 _COST = {"diag": 1, "mono": 2, "dense": 3}
 
 
+GATE_KINDS = ("fixed", "generator", "hamiltonian", "function")
+
+
 def is_gate(obj) -> bool:
-    """True for objects the statevector engine applies itself (they have ``parametric``)."""
-    return hasattr(obj, "parametric")
+    """True for objects the statevector engine applies itself: those whose ``kind`` is a
+    gate kind (qgradlib `Gate`). Anything else (a noise channel, ``kind = "channel"``) is not."""
+    return getattr(obj, "kind", None) in GATE_KINDS
 
 
 @dataclass
@@ -121,6 +125,8 @@ def compile_program(circuit, fuse: bool, solo_columns=frozenset(), bake_fixed_an
     for op in circuit.operations:
         g = op.gate
         if not is_gate(g):
+            if getattr(g, "parametric", False):
+                col += 1     # it owns a column of phi (Circuit counts it), though not ours to apply
             steps.append(Step("external", tuple(op.qubits), op=op))
             for q in op.qubits:
                 last[q] = len(steps) - 1

@@ -9,9 +9,11 @@ Fusion is on by default; ``FUSE`` is the module-level default that ``run(..., fu
 reads (tests flip it to compare fused and unfused results). Fusion never changes a result by
 more than rounding (~1e-14).
 
-Operations whose gate object has no ``parametric`` attribute are not gates (a later channel
-kind, for instance): they take no column of ``phi``, and `run` hands the states to the
-object's ``apply_states(psi, n, qubits) -> psi`` method, or raises TypeError when it has none.
+Operations whose object's ``kind`` is not a gate kind (fixed, generator, hamiltonian,
+function) are not gates: a noise channel (``kind = "channel"``), for instance. They take no
+column of ``phi`` (unless they say ``parametric``), and `run` hands the states to the
+object's ``apply_states(psi, n, qubits) -> psi`` method, or raises ValueError pointing to the
+density-matrix path when it has none.
 """
 from __future__ import annotations
 
@@ -142,8 +144,11 @@ def _external(step, cur, n):
     obj = step.op.gate
     fn = getattr(obj, "apply_states", None)
     if fn is None:
-        raise TypeError(f"operation {obj!r} on qubits {tuple(step.op.qubits)} is not a gate and has "
-                        "no apply_states(psi, n, qubits) method: the statevector engine cannot apply it")
+        name = getattr(obj, "name", type(obj).__name__)
+        raise ValueError(f"operation {name!r} on qubits {tuple(step.op.qubits)} is not a gate (kind "
+                         f"{getattr(obj, 'kind', None)!r}) and has no apply_states(psi, n, qubits) "
+                         "method: the statevector engine cannot apply it; a circuit with noise "
+                         "channels has no pure state and runs on the density-matrix path")
     return np.ascontiguousarray(fn(cur, n, tuple(step.op.qubits)), dtype=complex)
 
 

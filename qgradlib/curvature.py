@@ -1,0 +1,251 @@
+"""Curvature: Hessians, derivative tensors of any order, the metric tensor, Fisher information.
+
+Derivatives are taken in gate-angle space ``phi`` and mapped to parameters ``theta`` by the
+chain rule: the angle map is linear, ``phi = A theta + b``, so a k-th order tensor is the
+``phi`` tensor contracted with ``A`` on every index (``H = A.T H_phi A``).
+
+In ``phi`` space every trainable column has one 1-D stencil for all orders
+(`qgradlib.stencils`): the point 0 and the shifts of its first-order rule. A mixed
+derivative ``d_i^a d_j^b ...`` is the tensor product of the order-a, order-b, ... rules of
+the columns involved. All products are merged into one set of distinct points (displaced
+coordinates are reduced modulo each gate's period before they are compared), and the points
+are evaluated in one batch through `qgradlib.expectation.evaluate`, which records the ledger.
+That is how a Hessian reuses the value and the gradient's points: for m two-term parameters,
+each in one gate, value + gradient + Hessian take 2 m**2 + 1 distinct circuits (Mari,
+Bromley and Killoran, Phys. Rev. A 103, 012405 (2021)).
+
+Hamiltonian gates take repeated stochastic (Duhamel) rules, gates known only by a matrix
+function take finite-difference stencils (with a warning). Values here are simulated: the
+execution counts say what a device would run, the numbers are not device measurements.
+
+The plans live in `qgradlib.higher_plans`; the metric tensor and its layers in
+`qgradlib.metric`, re-exported here.
+
+Examples
+--------
+>>> import numpy as np
+>>> import qgradlib as qg
+>>> from qgradlib import curvature
+>>> c = qg.Circuit(2).ry(0).ry(1)          # <ZZ> = cos(a) cos(b)
+>>> a, b = 0.3, 0.5
+>>> r = curvature.hessian(c, qg.Observable({"ZZ": 1.0}), np.array([a, b]))
+>>> r.executions          # 2 * 2**2 + 1
+9
+>>> exact = [[-np.cos(a) * np.cos(b), np.sin(a) * np.sin(b)],
+...          [np.sin(a) * np.sin(b), -np.cos(a) * np.cos(b)]]
+>>> bool(np.allclose(r.hessian, exact))
+True
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .expectation import _check_qubits, _observables, _spec
+from .higher_plans import build_plan, prepare, run_plan, tensor
+from .metric import Layer, layers, metric_tensor
+
+__all__ = ["HessianResult", "DerivativeTensors", "Layer", "hessian", "derivatives", "layers",
+           "metric_tensor", "fisher_information"]
+
+# -- results ------------------------------------------------------------------------------
+@dataclass(frozen=True, eq=False)
+class HessianResult:
+    """Value, gradient and Hessian from one merged batch of shifted circuits.
+
+    Attributes
+    ----------
+    value : float or ndarray (K,)
+    gradient : ndarray (m,) or (K, m)
+    hessian : ndarray (m, m) or (K, m, m)
+    executions : int
+        Distinct circuits times measurement settings, as counted by a `qgradlib.Ledger`.
+    shots : int
+        Total shots (0 for exact simulation).
+    """
+
+    value: object
+    gradient: np.ndarray
+    hessian: np.ndarray
+    executions: int
+    shots: int
+
+
+@dataclass(frozen=True, eq=False)
+class DerivativeTensors:
+    """All derivative tensors up to ``order``: ``tensors[k]`` has shape (m,)*k (after a
+    leading (K,) axis for a list of observables); ``tensors[0]`` is the value."""
+
+    tensors: tuple
+    order: int
+    executions: int
+    shots: int
+
+    @property
+    def value(self):
+        return self.tensors[0]
+
+    @property
+    def tensor(self):
+        """The tensor of the highest order."""
+        return self.tensors[self.order]
+
+def _check_order(order):
+    if isinstance(order, bool) or not isinstance(order, (int, np.integer)) or order < 1:
+        raise ValueError(f"order must be a positive int; got {order!r}")
+    return int(order)
+
+
+def _tensors(circuit, observables, theta, orders, *, shots, seed, shift, fd_step, splits, memory):
+    theta, phi, A = prepare(circuit, theta)
+    obs, single = _observables(observables, circuit.n_qubits)
+    spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, shift=shift,
+                 fd_step=fd_step, splits=splits, memory_budget=memory)
+    plan = build_plan(circuit, phi, spec.columns, orders, shift=spec.shift, fd_step=spec.fd_step,
+                       shots=spec.shots, splits=spec.splits, rng=spec.rng)
+    vals, book = run_plan(plan, spec, phi)
+    out = {k: tensor(plan, vals, spec.columns, A, k) for k in orders}
+    if single:
+        out = {k: v[0] for k, v in out.items()}
+    return out, book
+
+
+def hessian(circuit, observable, theta, *, shots=None, seed=None, memory=None, shift=None,
+            fd_step=None, splits=1) -> HessianResult:
+    """Value, gradient and Hessian of an expectation value from one merged shift plan.
+
+    Parameters
+    ----------
+    circuit : Circuit
+    observable : Observable or list of Observable
+    theta : array_like, shape (n_params,)
+    shots : int, optional
+        Finite-shot estimate: every distinct circuit is sampled ``shots`` times per setting.
+        Each entry of the result is then an unbiased estimate.
+    seed : int or numpy.random.Generator, optional
+    memory : int, optional
+        Bytes the engine may use for one chunk of the batch.
+    shift : float in (0, pi), optional
+        Two-term shift of single-frequency gates (default pi/2).
+    fd_step : float, optional
+        Step of the finite-difference stencils of gates known only by a matrix function.
+    splits : int
+        With shots, split points sampled per application of the stochastic rule.
+
+    Returns
+    -------
+    HessianResult
+
+    Notes
+    -----
+    In gate-angle space the plan needs ``1 + sum_i s_i + sum_{i<j} s_i s_j`` distinct
+    circuits for trainable columns with ``s_i`` shifts each (``s = 2`` for one frequency,
+    ``2R`` for R equidistant frequencies): ``2 m**2 + 1`` for m two-term columns (Mari,
+    Bromley and Killoran, Phys. Rev. A 103, 012405 (2021)). A parameter shared by several
+    gates counts once per gate. Hamiltonian gates need many more (quadrature nodes, or
+    sampled split points with shots).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(1).rx(0).ry(0)
+    >>> r = hessian(c, qg.Observable({"Z": 1.0}), np.array([0.2, 0.4]))
+    >>> r.executions, r.hessian.shape
+    (9, (2, 2))
+    """
+    out, book = _tensors(circuit, observable, theta, (0, 1, 2), shots=shots, seed=seed,
+                         shift=shift, fd_step=fd_step, splits=splits, memory=memory)
+    return HessianResult(_scalar(out[0]), out[1], out[2], book.executions, book.shots)
+
+
+def derivatives(circuit, observable, theta, order=2, *, shots=None, seed=None, memory=None,
+                shift=None, fd_step=None, splits=1) -> DerivativeTensors:
+    """Every derivative tensor of an expectation value up to ``order``, from one plan.
+
+    Parameters
+    ----------
+    circuit, observable, theta, shots, seed, memory, shift, fd_step, splits
+        As in `hessian`.
+    order : int
+        Highest order (1, 2, 3, 4, ...). The tensors of lower orders come with it: their
+        points are a subset of the highest order's for generator and function gates.
+
+    Returns
+    -------
+    DerivativeTensors
+        ``tensors[k]`` is the full symmetric k-th order tensor of shape (m,)*k.
+
+    Notes
+    -----
+    For two-term columns the distinct points are the displacements by 0 or +-pi/2 in at most
+    ``order`` columns at once: ``sum_{j<=order} C(G, j) 2**j`` circuits for G columns.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(1).ry(0)
+    >>> d = derivatives(c, qg.Observable({"Z": 1.0}), np.array([0.3]), order=4)
+    >>> bool(np.isclose(d.tensor[0, 0, 0, 0], np.cos(0.3))), d.executions
+    (True, 3)
+    """
+    k = _check_order(order)
+    out, book = _tensors(circuit, observable, theta, tuple(range(k + 1)), shots=shots, seed=seed,
+                         shift=shift, fd_step=fd_step, splits=splits, memory=memory)
+    tensors = (_scalar(out[0]),) + tuple(out[j] for j in range(1, k + 1))
+    return DerivativeTensors(tensors, k, book.executions, book.shots)
+
+
+def _scalar(v):
+    return float(v) if np.ndim(v) == 0 else v
+
+# -- Fisher information -------------------------------------------------------------------
+def fisher_information(circuit, theta, kind="classical", qubits=None, *, tol=1e-12,
+                       memory=None) -> np.ndarray:
+    """Fisher information of the parameters, shape (m, m).
+
+    Parameters
+    ----------
+    circuit : Circuit
+    theta : array_like, shape (n_params,)
+    kind : {"classical", "quantum"}
+        "classical": of the distribution of computational-basis outcomes on ``qubits``,
+        ``F_ij = sum_x d_i p_x d_j p_x / p_x``, with the derivatives of the probabilities
+        from one merged shift plan (recorded in the ledger). "quantum": ``4 g`` with ``g``
+        the exact `metric_tensor` (pure states; Meyer, Quantum 5, 539 (2021)).
+    qubits : sequence of int, optional
+        Measured qubits for the classical kind (default: all).
+    tol : float
+        Outcomes with ``p_x <= tol`` are left out of the sum (0/0 is taken as 0, the usual
+        convention). At parameters where a probability vanishes the classical Fisher
+        information can be discontinuous; this is a property of the quantity, not of the
+        method.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(1).ry(0)
+    >>> float(fisher_information(c, np.array([0.8])).round(12)[0, 0])
+    1.0
+    """
+    if kind not in ("classical", "quantum"):
+        raise ValueError(f"kind must be 'classical' or 'quantum'; got {kind!r}")
+    if kind == "quantum":
+        if qubits is not None:
+            raise ValueError("qubits applies to kind='classical'; the quantum Fisher information "
+                             "here is that of the whole (pure) output state")
+        return 4.0 * metric_tensor(circuit, theta)
+    if isinstance(tol, bool) or not isinstance(tol, (int, float)) or not 0 <= tol < 1:
+        raise ValueError(f"tol must be a number in [0, 1); got {tol!r}")
+    theta, phi, A = prepare(circuit, theta)
+    spec = _spec(circuit, "probs", qubits=_check_qubits(qubits, circuit.n_qubits),
+                 memory_budget=memory)
+    plan = build_plan(circuit, phi, spec.columns, (0, 1))
+    vals, _ = run_plan(plan, spec, phi)
+    p = np.clip(tensor(plan, vals, spec.columns, A, 0), 0.0, None)
+    J = tensor(plan, vals, spec.columns, A, 1)          # (outcomes, m)
+    keep = p > tol
+    return (J[keep].T / p[keep]) @ J[keep]

@@ -1,0 +1,163 @@
+"""Figures of training runs and cost landscapes (needs matplotlib: ``pip install qgradlib[plot]``).
+
+The figures are drawn on the Agg canvas without pyplot, so importing or using this module
+changes no global matplotlib state and needs no display. Each function returns the
+`matplotlib.figure.Figure` and, given ``path``, writes it there (PNG by the file ending).
+
+Examples
+--------
+>>> import autograd.numpy as anp
+>>> import numpy as np
+>>> import qgradlib as qg
+>>> run = qg.optimize.minimize(lambda t: anp.sum(anp.sin(t)), np.zeros(2), method="gd", steps=5)
+>>> len(qg.plot.training(run).axes)      # cost, executions (twin axis), gradient norm
+3
+"""
+from __future__ import annotations
+
+from numbers import Real
+
+import numpy as np
+
+__all__ = ["training", "landscape"]
+
+
+def _figure(**kwargs):
+    try:
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+        from matplotlib.figure import Figure
+    except ImportError as err:
+        raise ImportError("qgradlib.plot needs matplotlib, an optional extra: "
+                          "pip install 'qgradlib[plot]' (or pip install matplotlib)") from err
+    fig = Figure(**kwargs)
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _save(fig, path):
+    if path is not None:
+        fig.savefig(path, dpi=120)
+    return fig
+
+
+def _runs(result):
+    if isinstance(result, dict) and "history" not in result:
+        runs = dict(result)
+    else:
+        runs = {str(getattr(result, "method", None) or "run"): result}
+    if not runs:
+        raise ValueError("result must be an OptimizeResult from qgradlib.optimize, or a non-empty "
+                         "dict of them")
+    for name, r in runs.items():
+        h = r.get("history") if isinstance(r, dict) else None
+        if not isinstance(h, dict) or not {"cost", "grad_norm", "executions"} <= set(h):
+            raise TypeError(f"result {name!r} has no qgradlib history: pass the OptimizeResult "
+                            "returned by qgradlib.optimize.minimize or minimize_expectation")
+    return runs
+
+
+def training(result, path=None, *, title=None):
+    """Cost and gradient norm against step, with cumulative executions on a second axis.
+
+    Parameters
+    ----------
+    result : OptimizeResult or dict of {str: OptimizeResult}
+        One run, or several (drawn together, labelled by the keys).
+    path : str or path-like, optional
+        Where to write the figure (PNG for a ``.png`` ending).
+    title : str, optional
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Two panels: cost (left axis) and executions so far (right axis, dashed) against step;
+        gradient norm against step on a log scale.
+    """
+    runs = _runs(result)
+    fig = _figure(figsize=(7.0, 6.0))
+    top, bottom = fig.subplots(2, 1, sharex=True)
+    right = top.twinx()
+    for k, (name, r) in enumerate(runs.items()):
+        h = r["history"]
+        steps = np.arange(len(h["cost"]))
+        colour = f"C{k % 10}"
+        top.plot(steps, h["cost"], color=colour, label=name)
+        right.plot(steps, h["executions"], color=colour, linestyle="--", alpha=0.6)
+        gn = np.asarray(h["grad_norm"], dtype=float)
+        bottom.semilogy(steps, np.where(gn > 0, gn, np.nan), color=colour, label=name)
+    top.set_ylabel("cost")
+    right.set_ylabel("executions so far (dashed)")
+    bottom.set_ylabel("gradient norm")
+    bottom.set_xlabel("step")
+    top.legend(loc="upper right")
+    top.grid(alpha=0.3)
+    bottom.grid(alpha=0.3, which="both")
+    if title:
+        top.set_title(title)
+    fig.tight_layout()
+    return _save(fig, path)
+
+
+def landscape(cost, theta, i, j, path=None, *, span=np.pi, points=31, batched=False, title=None):
+    """The cost on a 2-D slice through ``theta``, varying parameters ``i`` and ``j``.
+
+    Parameters
+    ----------
+    cost : callable
+        ``cost(theta) -> float``; with ``batched=True``, ``cost(thetas)`` for thetas of shape
+        (B, m) returning shape (B,) (as `qgradlib.expect` does), which is much faster.
+    theta : array_like, shape (m,)
+        The centre of the slice; the other parameters stay at their values.
+    i, j : int
+        The two parameters to vary, over ``theta[i] +- span`` and ``theta[j] +- span``.
+    path : str or path-like, optional
+    span : float
+    points : int
+        Grid points per axis (at least 3).
+    batched : bool
+    title : str, optional
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        A filled contour plot with the centre marked.
+    """
+    if not callable(cost):
+        raise TypeError(f"cost must be callable; got {type(cost).__name__}")
+    theta = np.asarray(theta, dtype=float)
+    if theta.ndim != 1 or not np.all(np.isfinite(theta)):
+        raise ValueError(f"theta must be a finite 1-D array; got shape {theta.shape}")
+    for name, v in (("i", i), ("j", j)):
+        if isinstance(v, bool) or not isinstance(v, (int, np.integer)) or not 0 <= v < theta.size:
+            raise ValueError(f"{name} must be a parameter index in 0..{theta.size - 1}; got {v!r}")
+    if i == j:
+        raise ValueError("i and j must be different parameters")
+    if isinstance(span, bool) or not isinstance(span, Real) or not np.isfinite(span) or span <= 0:
+        raise ValueError(f"span must be a positive number; got {span!r}")
+    if isinstance(points, bool) or not isinstance(points, (int, np.integer)) or points < 3:
+        raise ValueError(f"points must be an int >= 3; got {points!r}")
+    fig = _figure(figsize=(6.0, 5.0))
+    a = theta[i] + np.linspace(-span, span, points)
+    b = theta[j] + np.linspace(-span, span, points)
+    A, B = np.meshgrid(a, b, indexing="xy")
+    grid = np.repeat(theta[None], A.size, axis=0)
+    grid[:, i] = A.ravel()
+    grid[:, j] = B.ravel()
+    if batched:
+        vals = np.asarray(cost(grid), dtype=float).reshape(-1)
+        if vals.size != A.size:
+            raise ValueError(f"batched cost must return one value per row ({A.size}); got {vals.size}")
+    else:
+        vals = np.array([float(cost(row)) for row in grid])
+    if not np.all(np.isfinite(vals)):
+        raise ValueError("cost returned NaN or inf on the slice")
+    ax = fig.subplots()
+    filled = ax.contourf(A, B, vals.reshape(A.shape), levels=25, cmap="viridis")
+    fig.colorbar(filled, ax=ax, label="cost")
+    ax.plot([theta[i]], [theta[j]], marker="x", color="white", markersize=9)
+    ax.set_xlabel(f"theta[{i}]")
+    ax.set_ylabel(f"theta[{j}]")
+    if title:
+        ax.set_title(title)
+    fig.tight_layout()
+    return _save(fig, path)
