@@ -92,7 +92,12 @@ class Circuit:
     @property
     def has_noise(self) -> bool:
         """True when some operation is a noise `Channel` (the density-matrix path runs it)."""
-        return any(isinstance(op.gate, Channel) for op in self._ops)
+        # memoised by length, like parametric_operations: operations are only appended
+        memo = getattr(self, "_noise_memo", None)
+        if memo is None or memo[0] != len(self._ops):
+            memo = (len(self._ops), any(isinstance(op.gate, Channel) for op in self._ops))
+            self._noise_memo = memo
+        return memo[1]
 
     def __len__(self):
         return len(self._ops)

@@ -22,6 +22,7 @@ is forgotten; see `qgradlib.adjoint_nested`).
 """
 from __future__ import annotations
 
+import weakref
 from collections import Counter
 from dataclasses import dataclass
 from numbers import Real
@@ -122,14 +123,29 @@ def _angle_ticks(phi, circuit):
     rounding or by a period: they are the same circuit, run once and counted once.
     """
     t = np.array(phi, dtype=float)
-    for k, op in enumerate(circuit.parametric_operations):
-        period = op.gate.period
-        if period is not None:
-            # reduce first, round after: a point just below a period rounds onto it, hence mod again
-            t[:, k] = np.mod(np.round(np.mod(t[:, k], period) * _TICK), np.round(period * _TICK))
-        else:
-            t[:, k] = np.round(t[:, k] * _TICK)
+    periods = _periods(circuit)
+    has = ~np.isnan(periods)
+    if np.any(has):
+        # reduce first, round after: a point just below a period rounds onto it, hence mod again
+        per = periods[has]
+        t[:, has] = np.mod(np.round(np.mod(t[:, has], per) * _TICK), np.round(per * _TICK))
+    if not np.all(has):
+        t[:, ~has] = np.round(t[:, ~has] * _TICK)
     return t + 0.0          # -0.0 and 0.0 must give one key
+
+
+_PERIODS: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
+
+
+def _periods(circuit):
+    """Each column's gate period (NaN where none), memoised per circuit (columns only grow)."""
+    pops = circuit.parametric_operations
+    hit = _PERIODS.get(circuit)
+    if hit is None or hit[0] != len(pops):
+        per = np.array([np.nan if op.gate.period is None else op.gate.period for op in pops], dtype=float)
+        hit = (len(pops), per)
+        _PERIODS[circuit] = hit
+    return hit[1]
 
 
 def _measure_rows(phi, spec, inserts, errors=False, keep=False):

@@ -17,6 +17,8 @@ alternate between two buffers instead of allocating a state per gate.
 """
 from __future__ import annotations
 
+from functools import lru_cache
+
 import numpy as np
 
 __all__ = ["sort_qubits", "widen", "apply_dense", "apply_monomial", "apply_diag",
@@ -52,18 +54,36 @@ def widen(mat, pos, width):
     """Embed a matrix on local qubits ``pos`` (ascending) into ``width`` qubits (identity on
     the rest). ``mat`` is (d, d) or (B, d, d)."""
     k = len(pos)
-    g = 2 ** (width - k)
+    if k == width:
+        return np.ascontiguousarray(mat)
+    idx = _widen_index(tuple(pos), width)
     lead = mat.shape[:-2]
+    flat = mat.reshape(lead + (-1,))
+    flat = np.concatenate([flat, np.zeros(lead + (1,), dtype=flat.dtype)], axis=-1)
+    # fancy indexing may lay the result out in another order; BLAS takes a C-ordered block
+    return np.ascontiguousarray(flat[..., idx])
+
+
+@lru_cache(maxsize=512)
+def _widen_index(pos, width):
+    """Flat indices of a (d, d) matrix laid out on ``width`` qubits (d*d: a zero entry)."""
+    k = len(pos)
     d = 2 ** k
-    full = (mat.reshape(lead + (d, 1, d, 1)) * np.eye(g).reshape((1,) * len(lead) + (1, g, 1, g)))
-    rest = [i for i in range(width) if i not in pos]
-    src = list(pos) + rest                      # factor order of ``full``
-    nl = len(lead)
-    t = full.reshape(lead + (2,) * (2 * width))
-    inv = [src.index(i) for i in range(width)]
-    perm = list(range(nl)) + [nl + i for i in inv] + [nl + width + i for i in inv]
     D = 2 ** width
-    return np.ascontiguousarray(t.transpose(perm)).reshape(lead + (D, D))
+    rest = [i for i in range(width) if i not in pos]
+    rows = np.arange(D)
+
+    def bits(v, qs):
+        out = np.zeros_like(v)
+        for q in qs:
+            out = (out << 1) | ((v >> (width - 1 - q)) & 1)
+        return out
+
+    ri, ci = bits(rows, pos)[:, None], bits(rows, pos)[None, :]
+    same = bits(rows, rest)[:, None] == bits(rows, rest)[None, :]
+    idx = np.where(same, ri * d + ci, d * d)
+    idx.setflags(write=False)
+    return idx
 
 
 def _view_shape(B, n, sq):
