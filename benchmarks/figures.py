@@ -10,7 +10,6 @@ import numpy as np
 from autograd import grad
 
 import qgradlib as qg
-from qgradlib.engine import statevector
 
 from .circuits import angles, ising, ising_terms, layered
 from .plain_sim import layered_energy
@@ -45,12 +44,7 @@ def gate_pass(sz, repeats):
     buf = np.empty_like(psi)
     base = lambda: np.multiply(psi, 1.0001, out=buf)  # noqa: E731
     t, b = paired(lambda: qg.state(c, theta), base, repeats, sz["min_time"])
-    old = statevector.FUSE
-    try:
-        statevector.FUSE = False
-        tu, bu = paired(lambda: qg.state(c, theta), base, repeats, sz["min_time"])
-    finally:
-        statevector.FUSE = old
+    tu, bu = paired(lambda: qg.state(c, theta, fuse=False), base, repeats, sz["min_time"])
     return _result("gate_pass", f"layered circuit, n = {n}: time per gate / one state pass", 2.0,
                    "<=", t / G / b, gates=G, seconds_per_gate=float(np.median(t) / G),
                    seconds_per_pass=float(np.median(b)),

@@ -85,7 +85,7 @@ def adjoint_vjp(phi, spec, g):
     # once copied into its stacked buffer
     return adjoint_gradient(spec.circuit, phi, columns=spec.columns,
                             observable_into=_weighted_observable(spec, g),
-                            psi=_take_states(spec, phi))
+                            psi=_take_states(spec, phi), fuse=spec.fuse)
 
 
 def check_nested(spec):

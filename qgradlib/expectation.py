@@ -71,6 +71,7 @@ class Spec:
     allocation: str = "uniform"
     readout: tuple | None = None   # per-qubit readout flip probabilities
     plan: object = None            # measurement.MeasurementPlan of the observables
+    fuse: bool = True              # gate fusion in the engine (never changes results beyond 1e-12)
 
     @property
     def n_out(self):
@@ -166,9 +167,9 @@ def _measure_rows(phi, spec, inserts, errors=False, keep=False):
         else:
             # rows that share a prefix of angles (the points of a shift plan) run as branches
             # of one trunk; a device would still run each circuit (the ledger counted them)
-            states = run_branched(spec.circuit, phi[lo:hi], ins)
+            states = run_branched(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse)
             if states is None:
-                states = run(spec.circuit, phi[lo:hi], ins)
+                states = run(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse)
         out[lo:hi], var[lo:hi] = _readout(states, spec, noisy)
     res = (out, var) if errors else out
     if keep:
@@ -268,6 +269,12 @@ def _check_circuit(circuit):
         raise TypeError(f"circuit must be a qgradlib Circuit; got {type(circuit).__name__}")
 
 
+def _check_fuse(fuse):
+    if not isinstance(fuse, (bool, np.bool_)):
+        raise TypeError(f"fuse must be True or False; got {fuse!r}")
+    return bool(fuse)
+
+
 def _check_shots(shots):
     if shots is None:
         return None
@@ -310,7 +317,7 @@ def _check_qubits(qubits, n):
 
 def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, gradient="shift",
           shift=None, fd_step=None, fd_kind="central", splits=1, memory_budget=None,
-          allocation="uniform", readout=None):
+          allocation="uniform", readout=None, fuse=True):
     if gradient not in METHODS:
         raise ValueError(f"gradient must be one of {METHODS}; got {gradient!r}")
     shots = _check_shots(shots)
@@ -352,7 +359,8 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
     _guard(circuit)
     return Spec(circuit, kind, observables, qubits, shots,
                 make_rng(seed) if shots is not None else None, gradient, shift, fd_step, fd_kind,
-                int(splits), memory_budget, columns, max(1, settings), allocation, readout, plan)
+                int(splits), memory_budget, columns, max(1, settings), allocation, readout, plan,
+                _check_fuse(fuse))
 
 
 def _guard(circuit):
@@ -372,7 +380,8 @@ def _run(spec, theta):
 
 # -- public functions ---------------------------------------------------------------------------
 def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shift", shift=None,
-           fd_step=None, fd_kind="central", splits=1, memory=None, allocation="uniform", readout=None):
+           fd_step=None, fd_kind="central", splits=1, memory=None, allocation="uniform", readout=None,
+           fuse=True):
     """Expectation value(s) of ``observables`` after ``circuit`` at parameters ``theta``.
 
     Differentiable with autograd (`grad`, `jacobian`, `hessian`, ...); the derivative is
@@ -405,6 +414,8 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     readout : float or sequence of float in [0, 0.5], optional
         Readout flip probability per qubit (one float: the same for all). With ``shots`` the
         sampled bits carry it; without, the exact value under that readout model.
+    fuse : bool
+        Gate fusion in the engine (on by default; it changes results by rounding only).
 
     Returns
     -------
@@ -436,7 +447,7 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     check_theta(circuit, theta)
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, fd_step=fd_step, fd_kind=fd_kind, splits=splits, memory_budget=memory,
-                 allocation=allocation, readout=readout)
+                 allocation=allocation, readout=readout, fuse=fuse)
     vals, batched = _run(spec, theta)
     if single:
         vals = vals[:, 0]
@@ -444,11 +455,13 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
 
 
 def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradient="shift",
-                  shift=None, fd_step=None, fd_kind="central", splits=1, memory=None, readout=None):
+                  shift=None, fd_step=None, fd_kind="central", splits=1, memory=None, readout=None,
+                  fuse=True):
     """Probabilities of the outcomes on ``qubits`` (first listed = most significant bit).
 
     Differentiable like `expect`. Returns shape (2**k,) or (B, 2**k). ``readout`` (per-qubit
-    flip probabilities) is applied to the outcome distribution before any sampling.
+    flip probabilities) is applied to the outcome distribution before any sampling; the other
+    options are those of `expect`.
 
     Examples
     --------
@@ -463,15 +476,16 @@ def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradien
     check_theta(circuit, theta)
     spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, fd_step=fd_step, fd_kind=fd_kind, splits=splits, memory_budget=memory,
-                 readout=readout)
+                 readout=readout, fuse=fuse)
     vals, batched = _run(spec, theta)
     return vals if batched else vals[0]
 
 
-def state(circuit, theta) -> np.ndarray:
+def state(circuit, theta, *, fuse=True) -> np.ndarray:
     """The final statevector, complex128 of shape (2**n,) or (B, 2**n). Not differentiable.
 
-    A circuit with noise channels has no pure state: use `density_matrix`.
+    A circuit with noise channels has no pure state: use `density_matrix`. ``fuse`` switches
+    gate fusion in the engine (results agree to rounding).
 
     Examples
     --------
@@ -487,7 +501,7 @@ def state(circuit, theta) -> np.ndarray:
     theta = np.asarray(getval(check_theta(circuit, theta)), dtype=float)
     _guard(circuit)
     phi = np.atleast_2d(circuit.angles(theta))
-    psi = run(circuit, phi)
+    psi = run(circuit, phi, fuse=_check_fuse(fuse))
     return psi if theta.ndim == 2 else psi[0]
 
 

@@ -33,14 +33,9 @@ def test_adjoint_matches_shift_rule_with_fusion_on_and_off(c, seed):
     H = _random_observable(c.n_qubits, rng)
     theta = rng.normal(size=(2, c.n_params))
     shift = jacobian(lambda t: qg.expect(c, H, t))(theta)
-    old = statevector.FUSE
-    try:
-        for fuse in (True, False):
-            statevector.FUSE = fuse
-            adj = jacobian(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)
-            assert np.allclose(adj, shift, atol=1e-9)
-    finally:
-        statevector.FUSE = old
+    for fuse in (True, False):
+        adj = jacobian(lambda t: qg.expect(c, H, t, gradient="adjoint", fuse=fuse))(theta)
+        assert np.allclose(adj, shift, atol=1e-9)
 
 
 def test_adjoint_against_scipy_check_grad():

@@ -9,7 +9,7 @@ import scipy.linalg
 from hypothesis import given, strategies as st
 
 import qgradlib as qg
-from qgradlib.engine import statevector
+from autograd import grad
 from qgradlib.engine.program import compile_program
 from qgradlib.engine.statevector import run
 from qgradlib.plans import first_order_points
@@ -99,14 +99,17 @@ def test_fusion_respects_inserted_rotations_of_hamiltonian_gates(c, seed):
     assert np.max(np.abs(fused - plain)) <= 1e-12
 
 
-def test_module_default_switches_fusion(monkeypatch):
+def test_the_fuse_option_switches_fusion_without_changing_results():
     c = qg.Circuit(3).h(0).ry(0).rz(0).cnot(0, 1).ry(1).h(2).cz(1, 2)
-    phi = np.atleast_2d(c.angles(np.array([0.3, 0.4, 0.5])))
-    monkeypatch.setattr(statevector, "FUSE", False)
-    off = run(c, phi)
-    monkeypatch.setattr(statevector, "FUSE", True)
-    on = run(c, phi)
-    assert np.max(np.abs(on - off)) <= 1e-12
+    theta = np.array([0.3, 0.4, 0.5])
+    H = qg.Observable({"ZZI": 1.0, "IXY": 0.5})
+    assert np.max(np.abs(qg.state(c, theta, fuse=True) - qg.state(c, theta, fuse=False))) <= 1e-12
+    assert abs(qg.expect(c, H, theta, fuse=True) - qg.expect(c, H, theta, fuse=False)) <= 1e-12
+    g_on = grad(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)
+    g_off = grad(lambda t: qg.expect(c, H, t, gradient="adjoint", fuse=False))(theta)
+    assert np.max(np.abs(g_on - g_off)) <= 1e-12
+    with pytest.raises(TypeError, match="fuse"):
+        qg.expect(c, H, theta, fuse="no")
 
 
 def test_runs_on_one_qubit_become_one_step_and_absorb_into_two_qubit_gates():

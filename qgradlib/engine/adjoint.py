@@ -182,7 +182,7 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
     psi : ndarray, shape (P, 2**n), optional
         The final states of a forward run at ``phi``, when the caller already has them.
     fuse : bool, optional
-        Fusion of the gates between trainable ones (default: the engine's ``FUSE``).
+        Fusion of the gates between trainable ones (on by default).
 
     Returns
     -------
@@ -199,14 +199,12 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
     >>> bool(np.isclose(g[0, 0], -np.sin(0.4)))
     True
     """
-    from . import statevector
-
     phi = np.asarray(phi, dtype=float)
     P, G = phi.shape
     n = circuit.n_qubits
     N = 2 ** n
     want = frozenset(range(G)) if columns is None else frozenset(int(c) for c in columns)
-    fuse = statevector.FUSE if fuse is None else bool(fuse)
+    fuse = True if fuse is None else bool(fuse)
     prog = program(circuit, fuse, want)
     if prog.const_columns and not np.all(phi[:, list(prog.const_columns)] == prog.const_angles):
         prog = program(circuit, fuse, want, bake_fixed_angles=False)

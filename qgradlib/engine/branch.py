@@ -18,7 +18,7 @@ import numpy as np
 
 from . import kernels
 from .program import program, step_matrix
-from .statevector import FUSE, _external, _solo, _table, zero_states
+from .statevector import _external, _solo, _table, zero_states
 
 __all__ = ["divergence", "run_branched"]
 
@@ -84,7 +84,7 @@ def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2):
     P, G = phi.shape
     if P < 2 or G == 0:
         return None
-    fuse = FUSE if fuse is None else bool(fuse)
+    fuse = True if fuse is None else bool(fuse)
     ref, ref_ins, first = divergence(phi, inserts)
     # every column where some row differs stays a step of its own: fusion may move a fused
     # gate across others, but never a kept one, so circuit order = step order for these

@@ -5,9 +5,9 @@ Gates act on reshaped views (see `qgradlib.engine.kernels`); no full-size matrix
 alternates between two state buffers, so a run holds two batches of states whatever its
 length.
 
-Fusion is on by default; ``FUSE`` is the module-level default that ``run(..., fuse=None)``
-reads (tests flip it to compare fused and unfused results). Fusion never changes a result by
-more than rounding (~1e-14).
+Fusion is on by default and switched per call (``run(..., fuse=False)``; the user-facing
+functions take ``fuse=`` and carry it in their `Spec`). It never changes a result by more than
+rounding (~1e-14).
 
 Operations whose object's ``kind`` is not a gate kind (fixed, generator, hamiltonian,
 function) are not gates: a noise channel (``kind = "channel"``), for instance. They take no
@@ -23,9 +23,7 @@ from . import kernels
 from .memory import guard
 from .program import is_gate, program, step_matrix
 
-__all__ = ["zero_states", "apply_matrix", "apply_diagonal", "apply_gate", "run", "FUSE"]
-
-FUSE = True
+__all__ = ["zero_states", "apply_matrix", "apply_diagonal", "apply_gate", "run"]
 
 
 def zero_states(n_qubits: int, batch: int = 1) -> np.ndarray:
@@ -167,7 +165,7 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
     psi : ndarray, shape (B, 2**n), optional
         Initial states (default |0...0>); not modified.
     fuse : bool, optional
-        Gate fusion on or off (default: the module-level ``FUSE``).
+        Gate fusion on (default) or off.
     keep : set of int
         Columns not to fuse with their neighbours.
     out : ndarray, shape (B, 2**n), optional
@@ -186,7 +184,7 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
         raise ValueError(f"phi must have shape (B, G); got {phi.shape}")
     B = phi.shape[0]
     n = circuit.n_qubits
-    fuse = FUSE if fuse is None else bool(fuse)
+    fuse = True if fuse is None else bool(fuse)
     solo = set(keep)
     if inserts is not None:
         for row in inserts:
