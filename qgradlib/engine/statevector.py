@@ -21,7 +21,7 @@ import numpy as np
 
 from . import kernels
 from .memory import guard
-from .program import is_gate, program, step_matrix
+from .program import program, step_matrix
 
 __all__ = ["zero_states", "apply_matrix", "apply_diagonal", "apply_gate", "run"]
 
