@@ -25,7 +25,7 @@ import numpy as np
 from autograd.extend import defvjp, primitive
 from autograd.tracer import Box, getval
 
-from . import ledger
+from . import distribute, ledger
 from .circuit import Circuit, check_theta
 from .engine import memory
 from .adjoint_nested import adjoint_jacobian, adjoint_vjp, check_nested
@@ -33,7 +33,7 @@ from .engine.density import density_expectations, marginal, run_density
 from .engine.measure import expectations
 from .engine.statevector import run
 from .measurement import (ALLOCATIONS, apply_readout, check_readout, make_rng, measure,
-                          outcome_distribution, plan_measurements)
+                          outcome_distribution, plan_measurements, point_generators)
 from .observables import Observable
 from .plans import first_order_points
 
@@ -63,6 +63,8 @@ class Spec:
     allocation: str = "uniform"
     readout: tuple | None = None   # per-qubit readout flip probabilities
     plan: object = None            # measurement.MeasurementPlan of the observables
+    executor: object = None        # where the unique rows run (qgradlib.distribute); None: here
+    chunk: int | None = None       # rows per task on the executor
 
     @property
     def n_out(self):
@@ -93,7 +95,8 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
         inverse[p] = first[key]
     labels = [purposes] * P if isinstance(purposes, str) else list(purposes)
     ledger.record(len(rows), spec.settings, spec.shots or 0, Counter(labels[r] for r in rows))
-    vals = _measure_rows(phi[rows], spec, None if inserts is None else [inserts[r] for r in rows])
+    vals = distribute.measure_rows(phi[rows], spec, None if inserts is None else
+                                   [inserts[r] for r in rows], index=rows)
     return vals[inverse]
 
 
@@ -136,17 +139,20 @@ def _measure_rows(phi, spec, inserts, errors=False):
 
 def _readout(states, spec, noisy):
     n = spec.circuit.n_qubits
+    # per-point streams (PointSeeds) follow the rows in the order the engine reads them out
+    rng = point_generators(spec.rng, states.shape[0]) if spec.shots is not None else spec.rng
     if spec.kind == "expect":
         if spec.shots is None and spec.readout is None:
             # the exact value needs no settings: index arithmetic on the state or on rho
             vals = (density_expectations if noisy else expectations)(states, n, spec.observables)
             return vals, np.zeros_like(vals)
-        return measure(states, spec.plan, spec.shots, spec.rng, density=noisy,
+        return measure(states, spec.plan, spec.shots, rng, density=noisy,
                        allocation=spec.allocation, readout=spec.readout)
     p = marginal(apply_readout(outcome_distribution(states, n, density=noisy), n, spec.readout),
                  n, spec.qubits)
     if spec.shots is not None:
-        p = np.stack([spec.rng.multinomial(spec.shots, r / r.sum()) for r in p]) / spec.shots
+        gens = rng if isinstance(rng, list) else [rng] * len(p)
+        p = np.stack([g.multinomial(spec.shots, r / r.sum()) for g, r in zip(gens, p)]) / spec.shots
     return p, np.zeros_like(p)
 
 
@@ -268,7 +274,7 @@ def _check_qubits(qubits, n):
 
 def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, gradient="shift",
           shift=None, fd_step=None, fd_kind="central", splits=1, memory_budget=None,
-          allocation="uniform", readout=None):
+          allocation="uniform", readout=None, executor=None, chunk=None):
     if gradient not in METHODS:
         raise ValueError(f"gradient must be one of {METHODS}; got {gradient!r}")
     shots = _check_shots(shots)
@@ -302,6 +308,7 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
         raise ValueError(f"splits must be a positive int; got {splits!r}")
     if memory_budget is not None and (not isinstance(memory_budget, (int, np.integer)) or memory_budget < 1):
         raise ValueError(f"memory must be a positive number of bytes; got {memory_budget!r}")
+    executor, chunk = distribute.check_executor(executor, chunk)
     pops = circuit.parametric_operations
     columns = tuple(k for k, op in enumerate(pops) if op.param is not None and op.scale != 0.0)
     plan = plan_measurements(observables) if kind == "expect" else None
@@ -310,7 +317,8 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
     _guard(circuit)
     return Spec(circuit, kind, observables, qubits, shots,
                 make_rng(seed) if shots is not None else None, gradient, shift, fd_step, fd_kind,
-                int(splits), memory_budget, columns, max(1, settings), allocation, readout, plan)
+                int(splits), memory_budget, columns, max(1, settings), allocation, readout, plan,
+                executor=executor, chunk=chunk)
 
 
 def _guard(circuit):
@@ -330,7 +338,8 @@ def _run(spec, theta):
 
 # -- public functions ---------------------------------------------------------------------------
 def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shift", shift=None,
-           fd_step=None, fd_kind="central", splits=1, memory=None, allocation="uniform", readout=None):
+           fd_step=None, fd_kind="central", splits=1, memory=None, allocation="uniform", readout=None,
+           executor=None, chunk=None):
     """Expectation value(s) of ``observables`` after ``circuit`` at parameters ``theta``.
 
     Differentiable with autograd (`grad`, `jacobian`, `hessian`, ...); the derivative is
@@ -363,6 +372,11 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     readout : float or sequence of float in [0, 0.5], optional
         Readout flip probability per qubit (one float: the same for all). With ``shots`` the
         sampled bits carry it; without, the exact value under that readout model.
+    executor : concurrent.futures.Executor or dask.distributed.Client, optional
+        Where the distinct circuits of every evaluation (values and shift plans) run, in
+        chunks (see `qgradlib.distribute`); results equal the serial ones.
+    chunk : int, optional
+        Circuits per task on ``executor`` (default: about 4 tasks per worker).
 
     Returns
     -------
@@ -394,7 +408,7 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     check_theta(circuit, theta)
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, fd_step=fd_step, fd_kind=fd_kind, splits=splits, memory_budget=memory,
-                 allocation=allocation, readout=readout)
+                 allocation=allocation, readout=readout, executor=executor, chunk=chunk)
     vals, batched = _run(spec, theta)
     if single:
         vals = vals[:, 0]
@@ -402,11 +416,13 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
 
 
 def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradient="shift",
-                  shift=None, fd_step=None, fd_kind="central", splits=1, memory=None, readout=None):
+                  shift=None, fd_step=None, fd_kind="central", splits=1, memory=None, readout=None,
+                  executor=None, chunk=None):
     """Probabilities of the outcomes on ``qubits`` (first listed = most significant bit).
 
     Differentiable like `expect`. Returns shape (2**k,) or (B, 2**k). ``readout`` (per-qubit
-    flip probabilities) is applied to the outcome distribution before any sampling.
+    flip probabilities) is applied to the outcome distribution before any sampling;
+    ``executor`` and ``chunk`` are as in `expect`.
 
     Examples
     --------
@@ -421,7 +437,7 @@ def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradien
     check_theta(circuit, theta)
     spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, fd_step=fd_step, fd_kind=fd_kind, splits=splits, memory_budget=memory,
-                 readout=readout)
+                 readout=readout, executor=executor, chunk=chunk)
     vals, batched = _run(spec, theta)
     return vals if batched else vals[0]
 
