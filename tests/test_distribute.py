@@ -20,8 +20,6 @@ from qgradlib import curvature, gates
 from qgradlib.distribute import ChunkError
 from reference import curv_dense as ref
 
-distributed = pytest.importorskip("distributed")
-
 X = np.array([[0, 1], [1, 0]], dtype=complex)
 
 
@@ -75,6 +73,7 @@ def pool():
 
 @pytest.fixture(scope="module")
 def client():
+    distributed = pytest.importorskip("distributed")   # the optional extra qgradlib[distributed]
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=None) as cluster, \
             distributed.Client(cluster) as c:
@@ -107,23 +106,34 @@ def _distributed(executor, chunk=None):
     return g, r, book
 
 
-@pytest.mark.parametrize("kind", ["threads", "process-pool", "dask-client", "dask-executor"])
-def test_executors_agree_with_serial_and_count_the_same(kind, serial, pool, client):
-    executor = {"threads": None, "process-pool": pool, "dask-client": client,
-                "dask-executor": client.get_executor() if kind == "dask-executor" else None}[kind]
-    if kind == "threads":
-        executor = ThreadPoolExecutor(3)
+@pytest.fixture(params=["process-pool", "dask-client", "dask-executor"])
+def executor(request):
+    if request.param == "process-pool":
+        return request.getfixturevalue("pool")
+    client = request.getfixturevalue("client")
+    return client if request.param == "dask-client" else client.get_executor()
+
+
+@pytest.mark.parametrize("chunk", [None, 5])
+def test_executors_agree_with_serial_and_count_the_same(executor, chunk, serial):
     g0, r0, book0 = serial
-    g, r, book = _distributed(executor, chunk=5 if kind == "dask-client" else None)
-    if kind == "threads":
-        executor.shutdown()
+    g, r, book = _distributed(executor, chunk)
     assert np.allclose(g, g0, rtol=0, atol=1e-12)
     assert np.allclose(r.hessian, r0.hessian, rtol=0, atol=1e-12)
     assert np.allclose(r.gradient, r0.gradient, rtol=0, atol=1e-12)
     assert abs(r.value - r0.value) < 1e-12
-    assert (book.circuits, book.executions, book.shots) == (book0.circuits, book0.executions, book0.shots)
+    assert (book.circuits, book.executions, book.shots) == \
+        (book0.circuits, book0.executions, book0.shots)
     assert book.by_purpose == book0.by_purpose
     assert r.executions == r0.executions
+
+
+def test_threads_agree_with_serial(serial):
+    g0, r0, _ = serial
+    with ThreadPoolExecutor(3) as threads:
+        g, r, _ = _distributed(threads)
+    assert np.allclose(g, g0, rtol=0, atol=1e-12)
+    assert np.allclose(r.hessian, r0.hessian, rtol=0, atol=1e-12)
 
 
 def test_metric_fisher_and_audit_on_an_executor(pool):
@@ -136,26 +146,29 @@ def test_metric_fisher_and_audit_on_an_executor(pool):
                            curvature.fisher_information(c, t, kind), rtol=0, atol=1e-12)
     report = qg.check.gradients(c, H, t, methods=("shift", "adjoint", "finite-diff"), executor=pool)
     assert report.ok(1e-6)
-    assert report["shift"].executions == qg.check.gradients(c, H, t, methods=("shift",))["shift"].executions
+    serial = qg.check.gradients(c, H, t, methods=("shift",))
+    assert report["shift"].executions == serial["shift"].executions
 
 
 # -- seeds ---------------------------------------------------------------------------------------
-def test_same_seed_same_shots_serial_and_distributed(pool, client):
+@pytest.mark.parametrize("chunk", [None, 2])
+def test_same_seed_same_shots_serial_and_distributed(executor, chunk):
     c, H, t = scenario()
     est = [qg.estimate_gradient(c, H, t, shots=300, seed=11, executor=e, chunk=k)
-           for e, k in ((None, None), (pool, 2), (client, 3))]
-    probs = [qg.probabilities(c, np.stack([t, t + 0.2, t - 0.5]), shots=500, seed=4, executor=e,
-                              chunk=k) for e, k in ((None, None), (pool, 1), (client, 2))]
-    hess = [curvature.hessian(c, H, t, shots=200, seed=9, executor=e).hessian for e in (None, client)]
-    for e in est[1:]:
-        assert np.allclose(e.gradient, est[0].gradient, rtol=0, atol=1e-12)
-        assert np.allclose(e.standard_error, est[0].standard_error, rtol=0, atol=1e-12)
-    for p in probs[1:]:
-        assert np.array_equal(p, probs[0])          # the same counts, drawn from the same streams
+           for e, k in ((None, None), (executor, chunk))]
+    thetas = np.stack([t, t + 0.2, t - 0.5])
+    probs = [qg.probabilities(c, thetas, shots=500, seed=4, executor=e, chunk=k)
+             for e, k in ((None, None), (executor, chunk))]
+    hess = [curvature.hessian(c, H, t, shots=200, seed=9, executor=e, chunk=k).hessian
+            for e, k in ((None, None), (executor, chunk))]
+    assert np.allclose(est[1].gradient, est[0].gradient, rtol=0, atol=1e-12)
+    assert np.allclose(est[1].standard_error, est[0].standard_error, rtol=0, atol=1e-12)
+    assert np.array_equal(probs[1], probs[0])       # the same counts, drawn from the same streams
     assert np.allclose(hess[1], hess[0], rtol=0, atol=1e-12)
-    # the shift estimate is unbiased (common practice); its standard errors are well under 0.1,
-    # so a 6-sigma bound fails by chance with probability below 1e-8 per entry
-    assert np.all(np.abs(est[0].gradient - ref.gradient(c, H, t)) < 6 * est[0].standard_error + 1e-12)
+    # the shift estimate is unbiased (common practice); a 6-sigma bound on each of the four
+    # entries fails by chance with probability below 1e-8 each
+    bound = 6 * est[0].standard_error + 1e-12
+    assert np.all(np.abs(est[0].gradient - ref.gradient(c, H, t)) < bound)
 
 
 def test_repeated_points_get_independent_streams():
@@ -173,12 +186,11 @@ def _fragile(fn):
     return c, qg.Observable({"ZZ": 1.0, "IX": 0.5})
 
 
-@pytest.mark.parametrize("kind", ["process-pool", "dask"])
-def test_an_erroring_chunk_surfaces_with_its_points(kind, pool, client):
+def test_an_erroring_chunk_surfaces_with_its_points(executor):
     c, H = _fragile(fails_above_five)
     thetas = np.array([[0.1, 0.2], [0.3, 0.4], [0.5, 4.0], [0.7, 5.5]])
     with pytest.raises(ChunkError) as info:
-        qg.expect(c, H, thetas, executor=pool if kind == "process-pool" else client, chunk=2)
+        qg.expect(c, H, thetas, executor=executor, chunk=2)
     err = info.value
     assert isinstance(err, RuntimeError) and isinstance(err.__cause__, ValueError)
     assert err.indices == (2, 3)
@@ -202,8 +214,9 @@ def test_a_dead_process_pool_worker_is_named_not_retried(tmp_path):
     c, H = _fragile(DiesOnce(str(tmp_path / "died"), os.getpid()))
     thetas = np.array([[0.1, 0.2], [0.3, 0.4]])
     spawn = multiprocessing.get_context("spawn")
-    with ProcessPoolExecutor(1, mp_context=spawn) as broken, pytest.raises(ChunkError, match="cannot retry") as info:
-        qg.expect(c, H, thetas, executor=broken, chunk=1)
+    with ProcessPoolExecutor(1, mp_context=spawn) as broken:
+        with pytest.raises(ChunkError, match="cannot retry") as info:
+            qg.expect(c, H, thetas, executor=broken, chunk=1)
     assert info.value.indices in ((0,), (1,))
 
 
