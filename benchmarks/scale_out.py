@@ -1,0 +1,167 @@
+"""Scale-out: wall time of a Hessian on two workers against the serial run, in the same run.
+
+The scenario is a hardware-efficient layer on n qubits (RY on every qubit, a CNOT ladder, RX
+on every qubit; 2n parameters) and an observable of two Pauli words, so the Hessian's merged
+plan has ``2 (2n)**2 + 1`` distinct circuits, each measured in two settings. Each figure is
+the median wall time over repeats of ``curvature.hessian``; the speed-up is the serial median
+over the executor's median. Serial and distributed runs use the same engine memory budget
+(``memory=``, batches of `BATCH` circuits), so they run the same batch shapes and only the
+parallelism differs. The pools are started and warmed up before timing (start-up and first
+call are reported separately); the runs take turns within every repeat, so changes in the
+machine's load fall on all of them alike; every distributed result is checked against the
+serial one to 1e-12.
+
+A machine's cores may be busy with other work: the last row of each size runs two copies
+of the serial job at once on the process pool, one per worker; ``2 T(one copy) / T(two
+copies)`` is the speed-up the free cores allowed during the run, the bound to read the other
+ratios against.
+
+Usage::
+
+    python benchmarks/scale_out.py              # print the table, rewrite it in docs/scale-out.md
+    python benchmarks/scale_out.py --no-write   # print only
+    python benchmarks/scale_out.py --qubits 14 --repeats 5
+
+The numbers are simulator timings on this machine, not device run times.
+"""
+from __future__ import annotations
+
+import argparse
+import multiprocessing
+import os
+import pathlib
+import re
+import statistics
+import sys
+import time
+from concurrent.futures import ProcessPoolExecutor
+from contextlib import ExitStack
+
+import numpy as np
+
+import qgradlib as qg
+from qgradlib import curvature
+
+DOC = pathlib.Path(__file__).resolve().parents[1] / "docs" / "scale-out.md"
+MARKS = ("<!-- scale-out-table start -->", "<!-- scale-out-table end -->")
+WORKERS = 2
+BATCH = 32              # circuits per engine batch, the same for every run (via memory=)
+
+
+def scenario(n):
+    c = qg.Circuit(n)
+    for q in range(n):
+        c.ry(q)
+    for q in range(n - 1):
+        c.cnot(q, q + 1)
+    for q in range(n):
+        c.rx(q)
+    H = qg.Observable({"Z" * n: 1.0, "X" + "I" * (n - 1): 0.5})
+    return c, H, np.linspace(0.1, 1.2, c.n_params)
+
+
+def timed(fn):
+    t0 = time.perf_counter()
+    out = fn()
+    return time.perf_counter() - t0, out
+
+
+def memory_for(n):
+    return BATCH * 3 * 16 * 2 ** n      # the engine's bytes per circuit, times the batch
+
+
+def serial_job(n):
+    """One whole serial Hessian, as a task (for the capacity check)."""
+    c, H, theta = scenario(n)
+    return curvature.hessian(c, H, theta, memory=memory_for(n)).executions
+
+
+def measure(n, repeats):
+    """Rows (label, workers, median seconds, ratio, first-call seconds, executions) for n qubits.
+
+    The runs take turns within every repeat, so a change in the machine's load falls on all
+    of them alike.
+    """
+    from distributed import Client, LocalCluster
+
+    c, H, theta = scenario(n)
+
+    def run(executor=None):
+        return curvature.hessian(c, H, theta, memory=memory_for(n), executor=executor)
+
+    _, reference = timed(run)
+    with ExitStack() as stack:
+        first = {}
+        t0 = time.perf_counter()
+        spawn = multiprocessing.get_context("spawn")
+        pool = stack.enter_context(ProcessPoolExecutor(WORKERS, mp_context=spawn))
+        run(pool)                               # warm-up: workers start and import qgradlib
+        first["pool"] = time.perf_counter() - t0
+        t0 = time.perf_counter()
+        cluster = stack.enter_context(LocalCluster(n_workers=WORKERS, threads_per_worker=1,
+                                                   processes=True, dashboard_address=None))
+        client = stack.enter_context(Client(cluster))
+        run(client)
+        first["dask"] = time.perf_counter() - t0
+        times = {"serial": [], "pool": [], "dask": [], "one": [], "two": []}
+        for _ in range(repeats):
+            for key, executor in (("serial", None), ("pool", pool), ("dask", client)):
+                seconds, r = timed(lambda: run(executor))
+                if np.max(np.abs(r.hessian - reference.hessian)) > 1e-12 \
+                        or r.executions != reference.executions:
+                    raise SystemExit(f"{key}: the distributed Hessian differs from the serial one")
+                times[key].append(seconds)
+            times["one"].append(timed(lambda: pool.submit(serial_job, n).result())[0])
+            times["two"].append(timed(lambda: [f.result() for f in
+                                               [pool.submit(serial_job, n) for _ in range(2)]])[0])
+    med = {k: statistics.median(v) for k, v in times.items()}
+    ex = reference.executions
+    return c, [("serial, this process", 1, med["serial"], 1.0, None, ex),
+               ("ProcessPoolExecutor (spawn)", WORKERS, med["pool"], med["serial"] / med["pool"],
+                first["pool"], ex),
+               ("dask LocalCluster, processes", WORKERS, med["dask"], med["serial"] / med["dask"],
+                first["dask"], ex),
+               ("capacity check: two serial copies at once", WORKERS, med["two"],
+                2 * med["one"] / med["two"], None, 2 * ex)]
+
+
+def table(qubits, repeats) -> str:
+    lines = ["| qubits | executions | run | workers | median wall time / s | speed-up vs serial "
+             "| start-up + first call / s |", "| --- | --- | --- | --- | --- | --- | --- |"]
+    for n in qubits:
+        c, rows = measure(n, repeats)
+        for label, w, seconds, ratio, first, executions in rows:
+            start = "" if first is None else f"{first:.2f}"
+            lines.append(f"| {n} | {executions:,} | {label} | {w} | {seconds:.2f} | {ratio:.2f} | {start} |")
+    note = (f"Hessian of a {c.n_params}-parameter layer (RY, CNOT ladder, RX) for the largest size; "
+            f"median of {repeats} runs after a warm-up, engine batches of {BATCH} circuits, "
+            f"default chunking ({qg.distribute.CHUNKS_PER_WORKER} tasks per worker), on a machine "
+            f"with {os.cpu_count()} cores. Simulator timings, not device run times.")
+    return "\n".join(lines) + "\n\n" + note + "\n"
+
+
+def rewrite(text, path=DOC):
+    start, end = MARKS
+    doc = path.read_text()
+    block = re.compile(re.escape(start) + ".*?" + re.escape(end), re.S)
+    if block.search(doc) is None:
+        raise SystemExit(f"no {start} ... {end} block in {path}")
+    path.write_text(block.sub(lambda _: start + "\n" + text + end, doc))
+
+
+def main(argv=None):
+    p = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    p.add_argument("--qubits", type=int, nargs="+", default=[6, 13],
+                   help="register sizes to time (default: 6, where overhead dominates, and 13)")
+    p.add_argument("--repeats", type=int, default=3)
+    p.add_argument("--no-write", action="store_true", help="print only; leave the docs alone")
+    args = p.parse_args(argv)
+    text = table(args.qubits, args.repeats)
+    print(text)
+    if not args.no_write:
+        rewrite(text)
+        print(f"written to {DOC}", file=sys.stderr)
+
+
+if __name__ == "__main__":
+    main()
