@@ -74,10 +74,13 @@ def pool():
 @pytest.fixture(scope="module")
 def client():
     distributed = pytest.importorskip("distributed")   # the optional extra qgradlib[distributed]
+    saved = dict(os.environ)    # dask's nannies write their workers' environment into ours
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=None) as cluster, \
             distributed.Client(cluster) as c:
         yield c
+    os.environ.clear()
+    os.environ.update(saved)
 
 
 @pytest.fixture(scope="module")
