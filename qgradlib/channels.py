@@ -59,6 +59,10 @@ class Channel:
     parametric = False
     diagonal = False
 
+    def __reduce__(self):
+        # rebuilt through _make, so the Kraus matrices come back read-only
+        return _make, (self.name, [np.array(k) for k in self.kraus])
+
     @property
     def unitary(self):
         # pure-state code reaches for a unitary; say why there is none instead of failing deep inside

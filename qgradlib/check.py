@@ -162,7 +162,8 @@ def _autograd_check(f, theta, rng):
     return passed, numeric
 
 
-def gradients(circuit, observable, theta, *, methods=METHODS, shots=None, seed=None):
+def gradients(circuit, observable, theta, *, methods=METHODS, shots=None, seed=None, executor=None,
+              chunk=None):
     """Audit the gradient of ``expect(circuit, observable, theta)`` across methods.
 
     Parameters
@@ -178,6 +179,11 @@ def gradients(circuit, observable, theta, *, methods=METHODS, shots=None, seed=N
         reference and autograd's check stay exact: neither is defined on shot noise).
     seed : int or numpy.random.Generator, optional
         Randomness for shots and for autograd's random check directions.
+    executor : concurrent.futures.Executor or dask.distributed.Client, optional
+        Where every method's circuits run (see `qgradlib.distribute`); the adjoint method's
+        backward pass runs here. Wall times then include the executor's overhead.
+    chunk : int, optional
+        Circuits per task on ``executor``.
 
     Returns
     -------
@@ -205,7 +211,8 @@ def gradients(circuit, observable, theta, *, methods=METHODS, shots=None, seed=N
     rng = make_rng(seed)
 
     def f(method, **kw):
-        return lambda t: expect(circuit, observable, t, gradient=method, **kw)
+        return lambda t: expect(circuit, observable, t, gradient=method, executor=executor,
+                                chunk=chunk, **kw)
 
     (_, ref), _, ref_seconds = _timed(_derivative(f("adjoint"), single), theta)
     ref = np.asarray(ref, dtype=float)

@@ -97,11 +97,13 @@ def _check_order(order):
     return int(order)
 
 
-def _tensors(circuit, observables, theta, orders, *, shots, seed, shift, fd_step, splits, memory):
+def _tensors(circuit, observables, theta, orders, *, shots, seed, shift, fd_step, splits, memory,
+             executor, chunk):
     theta, phi, A = prepare(circuit, theta)
     obs, single = _observables(observables, circuit.n_qubits)
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, shift=shift,
-                 fd_step=fd_step, splits=splits, memory_budget=memory)
+                 fd_step=fd_step, splits=splits, memory_budget=memory, executor=executor,
+                 chunk=chunk)
     plan = build_plan(circuit, phi, spec.columns, orders, shift=spec.shift, fd_step=spec.fd_step,
                        shots=spec.shots, splits=spec.splits, rng=spec.rng)
     vals, book = run_plan(plan, spec, phi)
@@ -112,7 +114,7 @@ def _tensors(circuit, observables, theta, orders, *, shots, seed, shift, fd_step
 
 
 def hessian(circuit, observable, theta, *, shots=None, seed=None, memory=None, shift=None,
-            fd_step=None, splits=1) -> HessianResult:
+            fd_step=None, splits=1, executor=None, chunk=None) -> HessianResult:
     """Value, gradient and Hessian of an expectation value from one merged shift plan.
 
     Parameters
@@ -132,6 +134,11 @@ def hessian(circuit, observable, theta, *, shots=None, seed=None, memory=None, s
         Step of the finite-difference stencils of gates known only by a matrix function.
     splits : int
         With shots, split points sampled per application of the stochastic rule.
+    executor : concurrent.futures.Executor or dask.distributed.Client, optional
+        Where the plan's distinct circuits run, in chunks (see `qgradlib.distribute`); the
+        result and the ledger equal the serial ones.
+    chunk : int, optional
+        Circuits per task on ``executor`` (default: about 4 tasks per worker).
 
     Returns
     -------
@@ -156,17 +163,18 @@ def hessian(circuit, observable, theta, *, shots=None, seed=None, memory=None, s
     (9, (2, 2))
     """
     out, book = _tensors(circuit, observable, theta, (0, 1, 2), shots=shots, seed=seed,
-                         shift=shift, fd_step=fd_step, splits=splits, memory=memory)
+                         shift=shift, fd_step=fd_step, splits=splits, memory=memory,
+                         executor=executor, chunk=chunk)
     return HessianResult(_scalar(out[0]), out[1], out[2], book.executions, book.shots)
 
 
 def derivatives(circuit, observable, theta, order=2, *, shots=None, seed=None, memory=None,
-                shift=None, fd_step=None, splits=1) -> DerivativeTensors:
+                shift=None, fd_step=None, splits=1, executor=None, chunk=None) -> DerivativeTensors:
     """Every derivative tensor of an expectation value up to ``order``, from one plan.
 
     Parameters
     ----------
-    circuit, observable, theta, shots, seed, memory, shift, fd_step, splits
+    circuit, observable, theta, shots, seed, memory, shift, fd_step, splits, executor, chunk
         As in `hessian`.
     order : int
         Highest order (1, 2, 3, 4, ...). The tensors of lower orders come with it: their
@@ -193,7 +201,8 @@ def derivatives(circuit, observable, theta, order=2, *, shots=None, seed=None, m
     """
     k = _check_order(order)
     out, book = _tensors(circuit, observable, theta, tuple(range(k + 1)), shots=shots, seed=seed,
-                         shift=shift, fd_step=fd_step, splits=splits, memory=memory)
+                         shift=shift, fd_step=fd_step, splits=splits, memory=memory,
+                         executor=executor, chunk=chunk)
     tensors = (_scalar(out[0]),) + tuple(out[j] for j in range(1, k + 1))
     return DerivativeTensors(tensors, k, book.executions, book.shots)
 
@@ -203,7 +212,7 @@ def _scalar(v):
 
 # -- Fisher information -------------------------------------------------------------------
 def fisher_information(circuit, theta, kind="classical", qubits=None, *, tol=1e-12,
-                       memory=None) -> np.ndarray:
+                       memory=None, executor=None, chunk=None) -> np.ndarray:
     """Fisher information of the parameters, shape (m, m).
 
     Parameters
@@ -222,6 +231,10 @@ def fisher_information(circuit, theta, kind="classical", qubits=None, *, tol=1e-
         convention). At parameters where a probability vanishes the classical Fisher
         information can be discontinuous; this is a property of the quantity, not of the
         method.
+    memory : int, optional
+        Bytes the engine may use for one chunk of the batch.
+    executor, chunk : optional
+        As in `hessian` (for "quantum", as in `metric_tensor`).
 
     Examples
     --------
@@ -237,12 +250,12 @@ def fisher_information(circuit, theta, kind="classical", qubits=None, *, tol=1e-
         if qubits is not None:
             raise ValueError("qubits applies to kind='classical'; the quantum Fisher information "
                              "here is that of the whole (pure) output state")
-        return 4.0 * metric_tensor(circuit, theta)
+        return 4.0 * metric_tensor(circuit, theta, executor=executor, chunk=chunk)
     if isinstance(tol, bool) or not isinstance(tol, (int, float)) or not 0 <= tol < 1:
         raise ValueError(f"tol must be a number in [0, 1); got {tol!r}")
     theta, phi, A = prepare(circuit, theta)
     spec = _spec(circuit, "probs", qubits=_check_qubits(qubits, circuit.n_qubits),
-                 memory_budget=memory)
+                 memory_budget=memory, executor=executor, chunk=chunk)
     plan = build_plan(circuit, phi, spec.columns, (0, 1))
     vals, _ = run_plan(plan, spec, phi)
     p = np.clip(tensor(plan, vals, spec.columns, A, 0), 0.0, None)

@@ -36,9 +36,9 @@ from dataclasses import dataclass
 import numpy as np
 from autograd.tracer import getval
 
-from . import ledger
+from . import distribute, ledger
 from .circuit import check_theta
-from .expectation import _check_circuit, _measure_rows, _observables, _spec
+from .expectation import _check_circuit, _observables, _spec
 from .plans import first_order_points
 
 __all__ = ["Estimate", "GradientEstimate", "estimate", "estimate_gradient"]
@@ -114,7 +114,7 @@ def _shape(a, single, batched, axis=1):
 
 
 def estimate(circuit, observables, theta, *, shots, seed=None, allocation="uniform", readout=None,
-             memory=None) -> Estimate:
+             memory=None, executor=None, chunk=None) -> Estimate:
     """Finite-shot value(s) of ``observables`` after ``circuit``, with standard errors.
 
     Parameters
@@ -132,6 +132,10 @@ def estimate(circuit, observables, theta, *, shots, seed=None, allocation="unifo
         Per-qubit readout flip probabilities applied to the sampled bits.
     memory : int, optional
         Bytes the engine may use for one chunk of a batch.
+    executor : concurrent.futures.Executor or dask.distributed.Client, optional
+        Where the circuits run, in chunks of ``chunk`` (see `qgradlib.distribute`); the same
+        seed gives the same numbers as a serial run.
+    chunk : int, optional
 
     Returns
     -------
@@ -152,10 +156,11 @@ def estimate(circuit, observables, theta, *, shots, seed=None, allocation="unifo
     (2, 2, 1000)
     """
     spec, single, batched, phi = _prepare(circuit, observables, theta, shots, seed, allocation,
-                                          readout, memory_budget=memory)
+                                          readout, memory_budget=memory, executor=executor,
+                                          chunk=chunk)
     P = phi.shape[0]
     ledger.record(P, spec.settings, spec.shots, {"value": P})
-    mean, var = _measure_rows(phi, spec, None, errors=True)
+    mean, var = distribute.measure_rows(phi, spec, None, errors=True)
     value = _shape(mean, single, batched)
     se = _shape(np.sqrt(var), single, batched)
     if np.ndim(value) == 0:
@@ -165,7 +170,8 @@ def estimate(circuit, observables, theta, *, shots, seed=None, allocation="unifo
 
 
 def estimate_gradient(circuit, observables, theta, *, shots, seed=None, allocation="uniform",
-                      readout=None, shift=None, splits=1, memory=None) -> GradientEstimate:
+                      readout=None, shift=None, splits=1, memory=None, executor=None,
+                      chunk=None) -> GradientEstimate:
     """Finite-shot parameter-shift gradient of ``observables`` with standard errors.
 
     Every trainable gate angle is differentiated by its shift rule (two-term, equidistant,
@@ -175,7 +181,7 @@ def estimate_gradient(circuit, observables, theta, *, shots, seed=None, allocati
 
     Parameters
     ----------
-    circuit, observables, theta, shots, seed, allocation, readout, memory
+    circuit, observables, theta, shots, seed, allocation, readout, memory, executor, chunk
         As in `estimate`; ``shots`` is per setting of every shifted circuit.
     shift : float in (0, pi), optional
         Shift of the two-term rule (default pi/2).
@@ -197,7 +203,8 @@ def estimate_gradient(circuit, observables, theta, *, shots, seed=None, allocati
     ((2,), 4, 1600)
     """
     spec, single, batched, phi = _prepare(circuit, observables, theta, shots, seed, allocation,
-                                          readout, shift=shift, splits=splits, memory_budget=memory)
+                                          readout, shift=shift, splits=splits, memory_budget=memory,
+                                          executor=executor, chunk=chunk)
     P, K, m = phi.shape[0], spec.n_out, circuit.n_params
     points, inserts, coeff, names = first_order_points(circuit, phi, None, spec.columns,
                                                        **spec.rule_options())
@@ -206,7 +213,7 @@ def estimate_gradient(circuit, observables, theta, *, shots, seed=None, allocati
     se = np.zeros((P, K, m))
     if T:
         ledger.record(P * T, spec.settings, spec.shots, Counter(names))
-        mean, var = _measure_rows(np.asarray(points), spec, inserts, errors=True)
+        mean, var = distribute.measure_rows(np.asarray(points), spec, inserts, errors=True)
         A, _ = circuit.angle_map()
         weights = A.T @ coeff                      # (m, T): shift coefficients through the chain rule
         mean, var = mean.reshape(P, T, K), var.reshape(P, T, K)

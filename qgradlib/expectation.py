@@ -32,7 +32,7 @@ import numpy as np
 from autograd.extend import defvjp, primitive
 from autograd.tracer import Box, getval
 
-from . import ledger
+from . import distribute, ledger
 from .circuit import Circuit, check_theta
 from .engine import memory
 from .adjoint_nested import adjoint_jacobian, adjoint_vjp, check_nested, keep_states
@@ -41,7 +41,7 @@ from .engine.measure import expectations
 from .engine.branch import run_branched
 from .engine.statevector import run
 from .measurement import (ALLOCATIONS, apply_readout, check_readout, make_rng, measure,
-                          outcome_distribution, plan_measurements)
+                          outcome_distribution, plan_measurements, point_generators)
 from .observables import Observable
 from .plans import first_order_points
 
@@ -72,6 +72,8 @@ class Spec:
     readout: tuple | None = None   # per-qubit readout flip probabilities
     plan: object = None            # measurement.MeasurementPlan of the observables
     fuse: bool = True              # gate fusion in the engine (never changes results beyond 1e-12)
+    executor: object = None        # where the unique rows run (qgradlib.distribute); None: here
+    chunk: int | None = None       # rows per task on the executor
 
     @property
     def n_out(self):
@@ -102,15 +104,16 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
         inverse[p] = first[key]
     labels = [purposes] * P if isinstance(purposes, str) else list(purposes)
     ledger.record(len(rows), spec.settings, spec.shots or 0, Counter(labels[r] for r in rows))
+    ins = None if inserts is None else [inserts[r] for r in rows]
     keep = (spec.gradient == "adjoint" and inserts is None and spec.shots is None
-            and not spec.circuit.has_noise)
-    vals = _measure_rows(phi[rows], spec, None if inserts is None else [inserts[r] for r in rows],
-                         keep=keep)
+            and not spec.circuit.has_noise and spec.executor is None)
     if keep:
-        vals, states = vals
+        vals, states = _measure_rows(phi[rows], spec, ins, keep=True)
         if states is not None:
             # the adjoint VJP starts from these final states instead of running again
             keep_states(spec, phi, states, inverse)
+    else:
+        vals = distribute.measure_rows(phi[rows], spec, ins, index=rows)
     return vals[inverse]
 
 
@@ -179,17 +182,20 @@ def _measure_rows(phi, spec, inserts, errors=False, keep=False):
 
 def _readout(states, spec, noisy):
     n = spec.circuit.n_qubits
+    # per-point streams (PointSeeds) follow the rows in the order the engine reads them out
+    rng = point_generators(spec.rng, states.shape[0]) if spec.shots is not None else spec.rng
     if spec.kind == "expect":
         if spec.shots is None and spec.readout is None:
             # the exact value needs no settings: index arithmetic on the state or on rho
             vals = (density_expectations if noisy else expectations)(states, n, spec.observables)
             return vals, np.zeros_like(vals)
-        return measure(states, spec.plan, spec.shots, spec.rng, density=noisy,
+        return measure(states, spec.plan, spec.shots, rng, density=noisy,
                        allocation=spec.allocation, readout=spec.readout)
     p = marginal(apply_readout(outcome_distribution(states, n, density=noisy), n, spec.readout),
                  n, spec.qubits)
     if spec.shots is not None:
-        p = np.stack([spec.rng.multinomial(spec.shots, r / r.sum()) for r in p]) / spec.shots
+        gens = rng if isinstance(rng, list) else [rng] * len(p)
+        p = np.stack([g.multinomial(spec.shots, r / r.sum()) for g, r in zip(gens, p)]) / spec.shots
     return p, np.zeros_like(p)
 
 
@@ -317,7 +323,7 @@ def _check_qubits(qubits, n):
 
 def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, gradient="shift",
           shift=None, fd_step=None, fd_kind="central", splits=1, memory_budget=None,
-          allocation="uniform", readout=None, fuse=True):
+          allocation="uniform", readout=None, fuse=True, executor=None, chunk=None):
     if gradient not in METHODS:
         raise ValueError(f"gradient must be one of {METHODS}; got {gradient!r}")
     shots = _check_shots(shots)
@@ -351,6 +357,7 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
         raise ValueError(f"splits must be a positive int; got {splits!r}")
     if memory_budget is not None and (not isinstance(memory_budget, (int, np.integer)) or memory_budget < 1):
         raise ValueError(f"memory must be a positive number of bytes; got {memory_budget!r}")
+    executor, chunk = distribute.check_executor(executor, chunk)
     pops = circuit.parametric_operations
     columns = tuple(k for k, op in enumerate(pops) if op.param is not None and op.scale != 0.0)
     plan = plan_measurements(observables) if kind == "expect" else None
@@ -360,7 +367,7 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
     return Spec(circuit, kind, observables, qubits, shots,
                 make_rng(seed) if shots is not None else None, gradient, shift, fd_step, fd_kind,
                 int(splits), memory_budget, columns, max(1, settings), allocation, readout, plan,
-                _check_fuse(fuse))
+                _check_fuse(fuse), executor=executor, chunk=chunk)
 
 
 def _guard(circuit):
@@ -381,7 +388,7 @@ def _run(spec, theta):
 # -- public functions ---------------------------------------------------------------------------
 def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shift", shift=None,
            fd_step=None, fd_kind="central", splits=1, memory=None, allocation="uniform", readout=None,
-           fuse=True):
+           fuse=True, executor=None, chunk=None):
     """Expectation value(s) of ``observables`` after ``circuit`` at parameters ``theta``.
 
     Differentiable with autograd (`grad`, `jacobian`, `hessian`, ...); the derivative is
@@ -416,6 +423,11 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
         sampled bits carry it; without, the exact value under that readout model.
     fuse : bool
         Gate fusion in the engine (on by default; it changes results by rounding only).
+    executor : concurrent.futures.Executor or dask.distributed.Client, optional
+        Where the distinct circuits of every evaluation (values and shift plans) run, in
+        chunks (see `qgradlib.distribute`); results equal the serial ones.
+    chunk : int, optional
+        Circuits per task on ``executor`` (default: about 4 tasks per worker).
 
     Returns
     -------
@@ -447,7 +459,7 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     check_theta(circuit, theta)
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, fd_step=fd_step, fd_kind=fd_kind, splits=splits, memory_budget=memory,
-                 allocation=allocation, readout=readout, fuse=fuse)
+                 allocation=allocation, readout=readout, fuse=fuse, executor=executor, chunk=chunk)
     vals, batched = _run(spec, theta)
     if single:
         vals = vals[:, 0]
@@ -456,7 +468,7 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
 
 def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradient="shift",
                   shift=None, fd_step=None, fd_kind="central", splits=1, memory=None, readout=None,
-                  fuse=True):
+                  fuse=True, executor=None, chunk=None):
     """Probabilities of the outcomes on ``qubits`` (first listed = most significant bit).
 
     Differentiable like `expect`. Returns shape (2**k,) or (B, 2**k). ``readout`` (per-qubit
@@ -476,7 +488,7 @@ def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradien
     check_theta(circuit, theta)
     spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, fd_step=fd_step, fd_kind=fd_kind, splits=splits, memory_budget=memory,
-                 readout=readout, fuse=fuse)
+                 readout=readout, fuse=fuse, executor=executor, chunk=chunk)
     vals, batched = _run(spec, theta)
     return vals if batched else vals[0]
 

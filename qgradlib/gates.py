@@ -15,6 +15,7 @@ True
 """
 from __future__ import annotations
 
+import pickle
 import warnings
 from dataclasses import dataclass, field
 from functools import cached_property
@@ -174,6 +175,33 @@ class Gate:
             raise ValueError(f"fn(0.0) must be {2**k}x{2**k} for n_qubits={k}; got {u.shape}")
         return cls(_name(name), k, "function", function=fn)
 
+    # -- pickling -------------------------------------------------------------------------
+    def __reduce__(self):
+        # the closed forms in _dense/_diag are closures, which pickle cannot carry: a standard
+        # gate is looked up by name (so it comes back as the same object) and a custom gate is
+        # rebuilt through the constructor that made it
+        if STANDARD.get(self.name) is self:
+            return _standard_gate, (self.name,)
+        if self._dense is not None:
+            raise pickle.PicklingError(f"gate {self.name!r} carries a private closed form and was not "
+                                       "built by a Gate constructor, so it cannot be rebuilt")
+        if self.kind == "fixed":
+            return _rebuild, ("fixed", self.name, np.array(self.unitary))
+        if self.kind == "generator":
+            return _rebuild, ("generator", self.name, np.array(self.generator), self.rule)
+        if self.kind == "hamiltonian":
+            return _rebuild, ("hamiltonian", self.name, np.array(self.drift), self.drive)
+        try:
+            pickle.dumps(self.function)
+        except Exception as err:
+            raise pickle.PicklingError(
+                f"gate {self.name!r} was built by Gate.from_function with {self.function!r}, which "
+                "the standard pickle module cannot pickle, so the gate cannot be sent to another "
+                "process (executor=): define the function with def at module level (not a lambda "
+                "or a nested function), or use a callable instance of a module-level class"
+            ) from err
+        return _rebuild, ("function", self.name, self.function, self.n_qubits)
+
     # -- properties -----------------------------------------------------------------------
     @property
     def parametric(self) -> bool:
@@ -299,6 +327,16 @@ class Gate:
         if self._diag is not None:
             return self._diag(np.asarray(a, dtype=float).reshape(-1))
         raise ValueError(f"gate {self.name!r} is not diagonal")
+
+
+def _standard_gate(name):
+    return STANDARD[name]
+
+
+def _rebuild(kind, name, *args):
+    build = {"fixed": Gate.fixed, "generator": Gate.from_generator,
+             "hamiltonian": Gate.from_hamiltonian, "function": Gate.from_function}[kind]
+    return build(name, *args)
 
 
 def hamiltonian_matrices(gate: Gate, a, inserts=()):

@@ -43,7 +43,7 @@ from .observables import Observable
 
 __all__ = ["Setting", "MeasurementPlan", "measurement_settings", "n_settings", "plan_measurements",
            "allocate", "apply_readout", "check_readout", "measure", "outcome_distribution", "make_rng",
-           "ALLOCATIONS"]
+           "PointSeeds", "point_generators", "ALLOCATIONS"]
 
 ALLOCATIONS = ("uniform", "weighted")
 
@@ -166,6 +166,38 @@ def make_rng(seed):
     raise TypeError(f"seed must be an int, a numpy.random.Generator or None; got {type(seed).__name__}")
 
 
+class PointSeeds:
+    """Independent random streams for consecutive evaluation points.
+
+    Point ``i`` of a call draws its shots from ``numpy.random.default_rng([base, i])``, so
+    its numbers depend on ``base`` (one draw from the user's generator per call) and on its
+    place in the call, not on which process samples it or in what chunks: serial and
+    distributed runs agree exactly. `take` hands out the streams of the next points in
+    order, which is how the engine walks through a batch.
+
+    Examples
+    --------
+    >>> seeds = PointSeeds(7, start=2)
+    >>> a = seeds.take(2)[1].random()           # point 3
+    >>> bool(a == np.random.default_rng([7, 3]).random())
+    True
+    """
+
+    def __init__(self, base: int, start: int = 0):
+        self.base = int(base)
+        self.next = int(start)
+
+    def take(self, count: int) -> list:
+        out = [np.random.default_rng([self.base, i]) for i in range(self.next, self.next + count)]
+        self.next += count
+        return out
+
+
+def point_generators(rng, count: int):
+    """A list of ``count`` per-point generators from `PointSeeds`; a Generator as it is."""
+    return rng.take(count) if isinstance(rng, PointSeeds) else rng
+
+
 def check_readout(readout, n: int):
     """Validate ``readout``: a float or n floats in [0, 0.5]; returns a tuple of n floats or None."""
     if readout is None:
@@ -220,7 +252,11 @@ def _draw(p, values, shots, rng):
     """Means (B, K) and variances of the means (B, K) of ``values`` (K, D), outcomes from p (B, D)."""
     if shots is None:
         return p @ values.T, np.zeros((p.shape[0], values.shape[0]))
-    counts = rng.multinomial(shots, p)
+    if isinstance(rng, list):   # one generator per point (PointSeeds)
+        counts = np.array([g.multinomial(shots, row) for g, row in zip(rng, p)],
+                          dtype=np.int64).reshape(p.shape)
+    else:
+        counts = rng.multinomial(shots, p)
     mean = counts @ values.T / shots
     if shots < 2:
         return mean, np.full(mean.shape, np.inf)
@@ -233,7 +269,8 @@ def measure(states, plan: MeasurementPlan, shots, rng, *, density=False, allocat
             readout=None):
     """Estimates (B, K) and their variances (B, K) for a batch of states or vectorised rho.
 
-    ``shots=None`` gives the exact values under the readout model (variance 0).
+    ``shots=None`` gives the exact values under the readout model (variance 0). ``rng`` is a
+    Generator, or a list of one Generator per state (each state's shots from its own stream).
     """
     n = plan.n_qubits
     B = states.shape[0]

@@ -12,6 +12,7 @@ from itertools import product
 
 import numpy as np
 
+from . import distribute
 from . import ledger as _ledger
 from .circuit import Circuit
 from .engine import memory
@@ -206,8 +207,21 @@ def _state_derivatives(circuit, phi, columns):
     return psi[0], psi[1:]
 
 
-def _exact_metric_phi(circuit, phi, columns):
-    psi, D = _state_derivatives(circuit, phi, columns)
+def _derivative_task(circuit, phi, columns):
+    return _state_derivatives(distribute.unpack(circuit), phi, columns)
+
+
+def _exact_metric_phi(circuit, phi, columns, executor=None, chunk=None):
+    if executor is None or not columns:
+        psi, D = _state_derivatives(circuit, phi, columns)
+    else:
+        # every task carries psi along and returns the derivative states of its columns
+        size = distribute.chunk_size(executor, len(columns), chunk)
+        jobs = [((phi, columns[lo:lo + size]), columns[lo:lo + size], phi[None])
+                for lo in range(0, len(columns), size)]
+        parts = distribute.run_chunks(executor, _derivative_task,
+                                      distribute.payload(executor, circuit, "the circuit"), jobs)
+        psi, D = parts[0][0], np.concatenate([d for _, d in parts])
     v = D @ psi.conj()                     # <psi|d_i psi>
     return np.real(D.conj() @ D.T) - np.real(np.outer(v.conj(), v))
 
@@ -253,7 +267,7 @@ def _overlap_plan(circuit, phi, columns):
     return plan, origin
 
 
-def metric_tensor(circuit, theta, approx=None) -> np.ndarray:
+def metric_tensor(circuit, theta, approx=None, *, executor=None, chunk=None) -> np.ndarray:
     """The Fubini-Study metric tensor of the circuit's output state, shape (m, m).
 
     ``g_ij = Re(<d_i psi|d_j psi> - <d_i psi|psi><psi|d_j psi>)`` in the parameters theta.
@@ -268,6 +282,12 @@ def metric_tensor(circuit, theta, approx=None) -> np.ndarray:
         the state before the layer, ``<K_i K_j> - <K_i><K_j>``; entries between layers are
         zero (Stokes, Izaac, Killoran and Carleo, Quantum 4, 269 (2020)). "diag": variances
         only.
+    executor : concurrent.futures.Executor or dask.distributed.Client, optional
+        For the exact metric: the state derivatives are computed in chunks of columns on it
+        (see `qgradlib.distribute`). The approximations are one pass over one state, with
+        nothing to split: they run here.
+    chunk : int, optional
+        Columns per task on ``executor`` (default: about 4 tasks per worker).
 
     Returns
     -------
@@ -301,11 +321,11 @@ def metric_tensor(circuit, theta, approx=None) -> np.ndarray:
     if approx not in (None, "block-diag", "diag"):
         raise ValueError(f"approx must be None, 'block-diag' or 'diag'; got {approx!r}")
     theta, phi, A = prepare(circuit, theta)
-    spec = _spec(circuit, "probs")
+    spec = _spec(circuit, "probs", executor=executor, chunk=chunk)
     columns = spec.columns
     Ac = A[list(columns)] if columns else np.zeros((0, A.shape[1]))
     if approx is None:
-        g = _exact_metric_phi(circuit, phi, columns)
+        g = _exact_metric_phi(circuit, phi, columns, spec.executor, spec.chunk)
         plan, origin = _overlap_plan(circuit, phi, columns)
         count = plan.n_points - len(origin)
         if count:
