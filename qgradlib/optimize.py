@@ -149,7 +149,8 @@ def minimize(cost, theta0, *, method="adam", steps=100, callback=None, progress=
 
 
 def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=None, seed=None,
-                         steps=100, callback=None, progress=None, **options):
+                         steps=100, callback=None, progress=None, executor=None, chunk=None,
+                         **options):
     """Minimise ``expect(circuit, observable, theta)`` over ``theta``.
 
     Parameters
@@ -168,6 +169,9 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
         Most updates; for "rotosolve" a step is one sweep through all parameters.
     callback, progress
         As in `minimize`.
+    executor, chunk
+        Where the circuits of every value, gradient, metric and Hessian run (see
+        `qgradlib.distribute`); the numbers and the ledger are those of a serial run.
     **options
         Those of `minimize`, plus ``gradient="shift"`` ("adjoint", "finite-diff") for gd,
         adam and natural, and: natural ``stepsize=0.05, regulariser=1e-3,
@@ -229,8 +233,10 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
     if gradient not in _GRADIENTS:
         raise ValueError(f"gradient must be one of {_GRADIENTS}; got {gradient!r}")
 
+    where = {"executor": executor, "chunk": chunk}
+
     def cost(t):
-        return expect(circuit, observable, t, shots=shots, seed=rng, gradient=gradient)
+        return expect(circuit, observable, t, shots=shots, seed=rng, gradient=gradient, **where)
 
     vg = autograd.value_and_grad(cost)
 
@@ -240,9 +246,9 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
 
     def values(X):
         return np.atleast_1d(np.asarray(expect(circuit, observable, np.asarray(X), shots=shots,
-                                               seed=rng), dtype=float))
+                                               seed=rng, **where), dtype=float))
 
-    problem = _Problem(value_and_grad, values, (circuit, observable, shots, rng))
+    problem = _Problem(value_and_grad, values, (circuit, observable, shots, rng), where)
     return _run(problem, method, x0, steps, opts, callback, progress, rng)
 
 
@@ -336,10 +342,11 @@ def _finite_vector(g, m):
 class _Problem:
     """What a method may ask: value and gradient, batched values, the circuit (or None)."""
 
-    def __init__(self, value_and_grad, values, circuit_parts):
+    def __init__(self, value_and_grad, values, circuit_parts, where=None):
         self.value_and_grad = value_and_grad
         self.values = values
         self.circuit_parts = circuit_parts
+        self.where = where or {}      # executor= and chunk= for the circuit evaluations
 
 
 class _Trace:
@@ -439,7 +446,8 @@ def _first_order_method(method, problem, m, o, rng):
         circuit = problem.circuit_parts[0]
 
         def natural(x, v, g, k):
-            F = np.asarray(curvature.metric_tensor(circuit, x, approx=o["approx"]), dtype=float)
+            F = np.asarray(curvature.metric_tensor(circuit, x, approx=o["approx"], **problem.where),
+                           dtype=float)
             A = F + o["regulariser"] * np.eye(m)
             return o["stepsize"] * np.linalg.lstsq(A, g, rcond=None)[0]
         return evaluate, natural
@@ -475,7 +483,7 @@ def _newton(problem, x, steps, trace, o):
     k = 0
     while True:
         if here is None:
-            r = curvature.hessian(circuit, observable, x, shots=shots, seed=rng)
+            r = curvature.hessian(circuit, observable, x, shots=shots, seed=rng, **problem.where)
             here = (float(r.value), np.asarray(r.gradient, dtype=float),
                     np.asarray(r.hessian, dtype=float))
         v, g, H = here

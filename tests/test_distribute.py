@@ -153,6 +153,16 @@ def test_metric_fisher_and_audit_on_an_executor(pool):
     assert report["shift"].executions == serial["shift"].executions
 
 
+@pytest.mark.parametrize("method", ["adam", "natural", "newton"])
+def test_optimisers_on_an_executor_repeat_the_serial_run(pool, method):
+    c, H, t = scenario()
+    runs = [qg.optimize.minimize_expectation(c, H, t, method=method, steps=3, progress=False,
+                                             **where) for where in ({}, {"executor": pool})]
+    # the executor only moves where circuits run: the same points, the same ledger
+    assert np.allclose(runs[0].x, runs[1].x, rtol=0, atol=1e-12)
+    assert runs[0].executions == runs[1].executions > 0
+
+
 # -- seeds ---------------------------------------------------------------------------------------
 @pytest.mark.parametrize("chunk", [None, 2])
 def test_same_seed_same_shots_serial_and_distributed(executor, chunk):
