@@ -18,7 +18,6 @@ from __future__ import annotations
 
 import argparse
 import pathlib
-import re
 import sys
 
 import numpy as np
@@ -29,6 +28,11 @@ import qgradlib as qg
 STEPS = (0.5, 0.1, 0.01, 1e-3, 1e-5)
 SHOTS = (None, 100, 10_000)
 REPEATS = 100
+try:                       # run as a script (python benchmarks/...py) or as a module
+    from doc_tables import rewrite_block
+except ImportError:        # pragma: no cover
+    from benchmarks.doc_tables import rewrite_block
+
 DOC = pathlib.Path(__file__).resolve().parents[1] / "docs" / "derivatives.md"
 START, END = "<!-- fd-table start -->", "<!-- fd-table end -->"
 
@@ -70,11 +74,7 @@ def table() -> str:
 
 
 def write(text: str, path=DOC) -> None:
-    doc = path.read_text()
-    pattern = re.compile(re.escape(START) + ".*?" + re.escape(END), re.S)
-    if not pattern.search(doc):
-        raise SystemExit(f"{path} has no {START} ... {END} block to rewrite")
-    path.write_text(pattern.sub(lambda _: f"{START}\n{text}{END}", doc))
+    rewrite_block(path, START, END, text)
 
 
 def main(argv=None):

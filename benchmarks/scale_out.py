@@ -33,7 +33,6 @@ import argparse
 import multiprocessing
 import os
 import pathlib
-import re
 import statistics
 import sys
 import time
@@ -44,6 +43,11 @@ import numpy as np
 
 import qgradlib as qg
 from qgradlib import curvature
+
+try:                       # run as a script (python benchmarks/...py) or as a module
+    from doc_tables import rewrite_block
+except ImportError:        # pragma: no cover
+    from benchmarks.doc_tables import rewrite_block
 
 DOC = pathlib.Path(__file__).resolve().parents[1] / "docs" / "scale-out.md"
 MARKS = ("<!-- scale-out-table start -->", "<!-- scale-out-table end -->")
@@ -170,12 +174,7 @@ def table(qubits, repeats) -> str:
 
 
 def rewrite(text, path=DOC):
-    start, end = MARKS
-    doc = path.read_text()
-    block = re.compile(re.escape(start) + ".*?" + re.escape(end), re.S)
-    if block.search(doc) is None:
-        raise SystemExit(f"no {start} ... {end} block in {path}")
-    path.write_text(block.sub(lambda _: start + "\n" + text + end, doc))
+    rewrite_block(path, *MARKS, text)
 
 
 def main(argv=None):
