@@ -1,14 +1,11 @@
 """qgradlib: parameter-shift gradients, curvature and shot accounting for quantum circuits."""
-from . import channels, check, curvature, distribute, gates, models, optimize, workflows
-from .channels import Channel
-from .circuit import Circuit, Operation
-from .distribute import ChunkError
-from .estimation import Estimate, GradientEstimate, estimate, estimate_gradient
-from .expectation import density_matrix, expect, probabilities, sample, state
-from .gates import Gate
-from .ledger import Ledger
-from .observables import Observable
-from .shift_rules import ShiftRule
+from . import check, curvature, shots
+from .circuits import Channel, Circuit, Gate, Observable, Operation, channels, gates
+from .evaluation import (ChunkError, Ledger, density_matrix, distribute, expect, probabilities,
+                         sample, state)
+from .rules import ShiftRule
+from .shots import Estimate, GradientEstimate, estimate, estimate_gradient
+from .train import models, optimize, workflows
 
 __version__ = "0.1.0"
 
@@ -16,7 +13,7 @@ __all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", 
            "probabilities", "state", "sample", "gates", "__version__",
            "Channel", "channels", "density_matrix", "estimate", "estimate_gradient", "Estimate",
            "GradientEstimate", "check", "curvature", "models", "optimize", "workflows", "plot",
-           "distribute", "ChunkError"]
+           "distribute", "ChunkError", "shots"]
 
 
 def __getattr__(name):

@@ -42,7 +42,7 @@ def demo(args) -> int:
 
 
 def audit(sc, args):
-    from . import check
+    from .check import audit as check
 
     print(_rule("gradient audit at the starting point"))
     print(check.gradients(sc.circuit, sc.hamiltonian, sc.theta0))
@@ -83,7 +83,7 @@ def shots_and_noise(sc, args):
 
 
 def training(sc, args):
-    from .workflows import compare_training
+    from .train.workflows import compare_training
 
     print(_rule("training: Adam and damped Newton side by side"))
     cmp = compare_training(sc.circuit, sc.hamiltonian, sc.theta0, methods=("adam", "newton"),
@@ -104,7 +104,8 @@ def training(sc, args):
 
 
 def curvature_at_best(sc, args):
-    from . import Ledger, curvature
+    from . import Ledger
+    from . import curvature
 
     name, x = args.best
     print(_rule(f"curvature at the best point (from {name})"))

@@ -14,8 +14,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .circuit import Circuit
-from .observables import Observable
+from .circuits.circuit import Circuit
+from .circuits.observables import Observable
 
 __all__ = ["Scenario", "kestrel"]
 

@@ -46,13 +46,13 @@ def _runs(result):
     else:
         runs = {str(getattr(result, "method", None) or "run"): result}
     if not runs:
-        raise ValueError("result must be an OptimizeResult from qgradlib.optimize, or a non-empty "
+        raise ValueError("result must be an OptimizeResult from qgradlib.train.optimize, or a non-empty "
                          "dict of them")
     for name, r in runs.items():
         h = r.get("history") if isinstance(r, dict) else None
         if not isinstance(h, dict) or not {"cost", "grad_norm", "executions"} <= set(h):
             raise TypeError(f"result {name!r} has no qgradlib history: pass the OptimizeResult "
-                            "returned by qgradlib.optimize.minimize or minimize_expectation")
+                            "returned by qgradlib.train.optimize.minimize or minimize_expectation")
     return runs
 
 

@@ -12,7 +12,7 @@ from hypothesis import given, strategies as st
 import qgradlib as qg
 from qgradlib.engine.branch import divergence, run_branched
 from qgradlib.engine.statevector import run
-from qgradlib.plans import first_order_points
+from qgradlib.rules.plans import first_order_points
 
 try:
     from .test_fusion import PULSE, circuits, dense_reference
@@ -83,7 +83,7 @@ def test_gradient_ledger_and_values_unchanged_by_branching(memory, monkeypatch):
         g = grad(f)(theta)
     # common practice: two-term rule, 2 circuits per parameter, plus the forward value
     assert book.circuits == 2 * c.n_params + 1
-    import qgradlib.expectation as ex
+    import qgradlib.evaluation.rows as ex
     monkeypatch.setattr(ex, "run_branched", lambda *a, **k: None)
     with qg.Ledger() as plain_book:
         g_plain = grad(f)(theta)

@@ -30,7 +30,7 @@ def test_report_sets_methods_side_by_side():
     assert r.max_deviation == max(m.deviation for m in r.methods)
     assert r.ok(1e-6) and not r.ok(1e-14)
     # device cost, counted by the ledger: (value + 2 RY + 4 CRX + 2 RZ) x settings
-    settings = qg.measurement.n_settings(obs)
+    settings = qg.shots.n_settings(obs)
     assert r["shift"].executions == 9 * settings
     assert r["finite-diff"].executions == (1 + 2 * 3) * settings
     assert r["adjoint"].executions is None

@@ -1,4 +1,4 @@
-"""Tests of qgradlib.curvature against outside references, each named beside its check.
+"""Tests of qgradlib.curvature.tensors against outside references, each named beside its check.
 
 References: tests/reference/curv_dense.py (full matrices, scipy.linalg.expm / expm_frechet,
 written for these tests), finite differences of its exact gradient, autograd's nested
@@ -13,7 +13,8 @@ from autograd import hessian as ag_hessian
 from scipy.linalg import expm
 
 import qgradlib as qg
-from qgradlib import curvature, metric
+from qgradlib import curvature
+from qgradlib.curvature import metric
 from reference import curv_dense as ref
 
 X = np.array([[0, 1], [1, 0]], dtype=complex)

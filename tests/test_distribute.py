@@ -17,7 +17,7 @@ from scipy.linalg import expm
 
 import qgradlib as qg
 from qgradlib import curvature, gates
-from qgradlib.distribute import ChunkError
+from qgradlib.evaluation.distribute import ChunkError
 from reference import curv_dense as ref
 
 X = np.array([[0, 1], [1, 0]], dtype=complex)

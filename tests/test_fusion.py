@@ -12,7 +12,7 @@ import qgradlib as qg
 from autograd import grad
 from qgradlib.engine.program import compile_program
 from qgradlib.engine.statevector import run
-from qgradlib.plans import first_order_points
+from qgradlib.rules.plans import first_order_points
 
 ONE = ["h", "x", "y", "z", "s", "t", "sx", "rx", "ry", "rz", "phase"]
 TWO = ["cnot", "cz", "swap", "crx", "cry", "crz", "cphase", "rxx", "ryy", "rzz"]

@@ -134,7 +134,7 @@ def test_custom_rule_given_by_the_user_is_used():
     with qg.Ledger() as book:
         g = _grad(c, obs, theta, "shift")
     np.testing.assert_allclose(g, ref.gradient(ops, theta, 2, M), atol=1e-10)
-    assert book.by_purpose["mine"] == 4 * qg.measurement.n_settings(obs)
+    assert book.by_purpose["mine"] == 4 * qg.shots.n_settings(obs)
 
 
 def test_rot_is_exact_rz_ry_rz():

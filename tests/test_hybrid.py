@@ -168,7 +168,7 @@ def test_adjoint_hessian_costs_no_device_executions():
     _, c, (o1, _), _, theta = _case(10)
     with qg.Ledger() as book:
         hessian(lambda t: qg.expect(c, o1, t, gradient="adjoint"))(theta)
-    assert book.executions == qg.measurement.n_settings(o1)
+    assert book.executions == qg.shots.n_settings(o1)
 
 
 def test_adjoint_nested_refuses_gates_without_a_rule():

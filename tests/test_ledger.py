@@ -64,7 +64,7 @@ def test_shots_are_executions_times_shots_per_execution():
     # common practice: every execution takes the same number of shots, per setting
     c = _ry_circuit(3)
     H = qg.Observable({"ZI": 1.0, "IZ": 0.5, "XX": 0.2})     # two qubit-wise commuting groups
-    assert qg.measurement.n_settings(H) == 2
+    assert qg.shots.n_settings(H) == 2
     with qg.Ledger() as book:
         grad(lambda t: qg.expect(c, H, t, shots=100, seed=0))(np.array([0.1, 0.2, 0.3]))
     assert book.circuits == 2 * 3 + 1

@@ -8,8 +8,8 @@ import scipy.sparse.linalg as sla
 
 import qgradlib as qg
 from qgradlib import models
-from qgradlib.optimize import minimize, minimize_expectation, spsa_estimate
-from qgradlib.rotosolve import sinusoid_minimum
+from qgradlib.train.optimize import minimize, minimize_expectation, spsa_estimate
+from qgradlib.train.rotosolve import sinusoid_minimum
 
 
 @pytest.fixture

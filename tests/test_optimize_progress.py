@@ -5,7 +5,7 @@ import pytest
 
 import qgradlib as qg
 from qgradlib import models
-from qgradlib.progress import wants_progress
+from qgradlib.train.progress import wants_progress
 
 
 def quad(t):

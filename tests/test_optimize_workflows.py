@@ -5,7 +5,7 @@ import scipy.sparse.linalg as sla
 
 import qgradlib as qg
 from qgradlib import models
-from qgradlib.workflows import compare_training, ground_energy
+from qgradlib.train.workflows import compare_training, ground_energy
 
 
 def test_compare_training_six_qubits():

@@ -11,7 +11,7 @@ import pytest
 import scipy.stats
 
 import qgradlib as qg
-from qgradlib.measurement import measurement_settings
+from qgradlib.engine.measurement import measurement_settings
 from reference import circuit_state, dense_expectation, dense_marginals, observable_dense
 
 P_THRESHOLD = 1e-3   # chi-square: false-failure rate 0.1 % per check

@@ -6,7 +6,7 @@ from hypothesis import given, settings, strategies as st
 
 import qgradlib as qg
 from derivative_cases import random_pauli_observable, scramble, to_circuit
-from qgradlib.shift_rules import ShiftRule, frequencies_of, rule_for_frequencies
+from qgradlib.rules.shift_rules import ShiftRule, frequencies_of, rule_for_frequencies
 from reference import derivatives as ref
 
 

@@ -11,7 +11,7 @@ from autograd import grad
 from hypothesis import given, strategies as st
 
 import qgradlib as qg
-from qgradlib.measurement import allocate, measurement_settings
+from qgradlib.engine.measurement import allocate, measurement_settings
 
 PAULI = {"I": np.eye(2), "X": np.array([[0, 1], [1, 0]]), "Y": np.array([[0, -1j], [1j, 0]]),
          "Z": np.diag([1.0, -1.0])}

@@ -28,7 +28,7 @@ __all__ = ["adjoint_gradient", "hamiltonian_derivative"]
 
 def hamiltonian_derivative(gate, a: float) -> np.ndarray:
     """d/da expm(-1j (W + a P)) by the Daleckii-Krein formula (exact)."""
-    from ..paulis import pauli_matrix
+    from ..circuits.paulis import pauli_matrix
 
     P = pauli_matrix(gate.drive)
     ev, vec = np.linalg.eigh(gate.drift + a * P)
@@ -299,7 +299,7 @@ def _derivative(s, both, buf, n, phi, P, grad):
             grad[:, col] = 2 * np.imag(_row_dots(both[P:], mu))
         return
     if g.kind == "function":
-        from ..gates import warn_approximate
+        from ..rules.shift_rules import warn_approximate
         warn_approximate(g)      # the matrix derivative is a finite difference here too
     deriv = hamiltonian_derivative if g.kind == "hamiltonian" else _function_derivative
     a = phi[:, col]

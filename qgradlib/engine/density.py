@@ -16,7 +16,7 @@ from collections import defaultdict
 
 import numpy as np
 
-from ..paulis import masks
+from ..circuits.paulis import masks
 from .measure import probabilities as _state_marginals
 from .memory import guard
 from .statevector import apply_diagonal, apply_matrix, zero_states
@@ -68,7 +68,7 @@ def run_density(circuit, phi, inserts=None) -> np.ndarray:
 
     ``inserts`` carries the split points of Hamiltonian gates, as in `statevector.run`.
     """
-    from ..gates import hamiltonian_matrices
+    from ..circuits.gates import hamiltonian_matrices
 
     phi = np.asarray(phi, dtype=float)
     B = phi.shape[0]

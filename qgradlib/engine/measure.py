@@ -12,7 +12,7 @@ from functools import lru_cache
 
 import numpy as np
 
-from ..paulis import masks
+from ..circuits.paulis import masks
 from .kernels import _views, apply_dense
 
 __all__ = ["pauli_expectation", "expectations", "probabilities"]
@@ -181,7 +181,7 @@ def _z_diagonal(d, n, diag_terms, B):
 
 @lru_cache(maxsize=4096)
 def _pauli_block(word):
-    from ..paulis import pauli_matrix
+    from ..circuits.paulis import pauli_matrix
 
     m = pauli_matrix(word)
     m.setflags(write=False)

@@ -116,7 +116,7 @@ def _table(prog, phi, shared):
 
 def _solo(step, cur, other, n, phi, inserts, shared):
     """A gate that is never fused: Hamiltonian or function gates, wide gates, kept columns."""
-    from ..gates import hamiltonian_matrices
+    from ..circuits.gates import hamiltonian_matrices
 
     g = step.op.gate
     qs = tuple(step.op.qubits)

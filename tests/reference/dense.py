@@ -1,6 +1,6 @@
 """An independent dense statevector simulator, the yardstick for the engine's tests.
 
-It shares no code with ``qgradlib.engine`` or ``qgradlib.gates``: it keeps its own table of
+It shares no code with ``qgradlib.engine`` or ``qgradlib.circuits.gates``: it keeps its own table of
 closed-form gate matrices and generators (written out entry by entry, `# common practice`),
 builds every operator as a full 2**n x 2**n matrix with ``numpy.kron`` and a permutation
 matrix, and multiplies. Slow and obvious on purpose. From a `qgradlib.Circuit` it reads only

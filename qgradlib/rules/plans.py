@@ -22,7 +22,7 @@ from math import factorial
 
 import numpy as np
 
-from .gates import warn_approximate
+from .shift_rules import warn_approximate
 
 __all__ = ["Term", "column_terms", "first_order_points", "quadrature_nodes"]
 
@@ -54,9 +54,7 @@ def quadrature_nodes(spread: float, tol: float = 1e-12):
 
 
 def _spread(gate, angles):
-    from .paulis import pauli_matrix
-
-    P = pauli_matrix(gate.drive)
+    P = gate.drive_matrix
     worst = 0.0
     for a in np.unique(np.asarray(angles, dtype=float)):
         ev = np.linalg.eigvalsh(gate.drift + a * P)

@@ -12,18 +12,16 @@ from itertools import product
 
 import numpy as np
 
-from . import distribute
-from . import ledger as _ledger
-from .circuit import Circuit
-from .engine import memory
-from .engine.adjoint import hamiltonian_derivative
-from .engine.statevector import apply_gate, apply_matrix, zero_states
-from .expectation import _spec, evaluate
-from .gates import warn_approximate
-from .higher_plans import build_plan, prepare, tensor
-from .measurement import measurement_settings
-from .observables import Observable
-from .paulis import pauli_matrix
+from ..evaluation import distribute
+from ..evaluation import ledger as _ledger
+from ..circuits.circuit import Circuit
+from ..engine import apply_matrix, layer_covariances, state_derivatives
+from ..evaluation.expectation import _spec, evaluate
+from ..rules.higher_plans import build_plan, tensor
+from .execute import prepare
+from ..engine.measurement import measurement_settings
+from ..circuits.observables import Observable
+from ..circuits.paulis import pauli_matrix
 
 __all__ = ["Layer", "layers", "metric_tensor"]
 
@@ -172,48 +170,13 @@ def layers(circuit) -> tuple:
 
 
 # -- the metric tensor --------------------------------------------------------------------
-def _derivative_matrix(gate, a):
-    """dU/da for a Hamiltonian (exact) or function gate (central difference)."""
-    if gate.kind == "hamiltonian":
-        return hamiltonian_derivative(gate, a)
-    warn_approximate(gate)
-    h = 1e-6
-    return (gate._matrices(np.array([a + h]))[0] - gate._matrices(np.array([a - h]))[0]) / (2 * h)
-
-
-def _state_derivatives(circuit, phi, columns):
-    """psi (d,) and d psi / d phi_c (len(columns), d) in one pass over the circuit."""
-    n = circuit.n_qubits
-    memory.guard(16 * (len(columns) + 1) * 2 ** n,
-                 f"{len(columns) + 1} states of {n} qubits for the state derivatives")
-    row = {c: i + 1 for i, c in enumerate(columns)}
-    psi = zero_states(n, len(columns) + 1)
-    col = -1
-    for op in circuit.operations:
-        g = op.gate
-        if not g.parametric:
-            psi = apply_gate(psi, n, g, op.qubits)
-            continue
-        col += 1
-        a = phi[col]
-        d = None
-        if col in row and g.kind != "generator":
-            d = apply_matrix(psi[:1], n, _derivative_matrix(g, a)[None], op.qubits)
-        psi = apply_gate(psi, n, g, op.qubits, np.array([a]))
-        if col in row:
-            if d is None:   # dU/da = -i G U: the generator acts after the gate
-                d = apply_matrix(psi[:1], n, -1j * np.asarray(g.generator), op.qubits)
-            psi[row[col]] = d[0]
-    return psi[0], psi[1:]
-
-
 def _derivative_task(circuit, phi, columns):
-    return _state_derivatives(distribute.unpack(circuit), phi, columns)
+    return state_derivatives(distribute.unpack(circuit), phi, columns)
 
 
 def _exact_metric_phi(circuit, phi, columns, executor=None, chunk=None):
     if executor is None or not columns:
-        psi, D = _state_derivatives(circuit, phi, columns)
+        psi, D = state_derivatives(circuit, phi, columns)
     else:
         # every task carries psi along and returns the derivative states of its columns
         size = distribute.chunk_size(executor, len(columns), chunk)
@@ -224,38 +187,6 @@ def _exact_metric_phi(circuit, phi, columns, executor=None, chunk=None):
         psi, D = parts[0][0], np.concatenate([d for _, d in parts])
     v = D @ psi.conj()                     # <psi|d_i psi>
     return np.real(D.conj() @ D.T) - np.real(np.outer(v.conj(), v))
-
-
-def _layer_metric_phi(circuit, phi, columns, lays, approx):
-    """Stokes et al.'s blocks: generator covariances in the state before each layer."""
-    n = circuit.n_qubits
-    pos = {c: i for i, c in enumerate(columns)}
-    start = {lay.columns[0]: lay for lay in lays}
-    pops = circuit.parametric_operations
-    g = np.zeros((len(columns), len(columns)))
-    psi = zero_states(n, 1)
-    col = -1
-    for op in circuit.operations:
-        if op.gate.parametric:
-            col += 1
-            lay = start.get(col)
-            if lay is not None and lay.effective:
-                d = apply_matrix(psi, n, _derivative_matrix(op.gate, phi[col])[None], op.qubits)
-                after = apply_gate(psi, n, op.gate, op.qubits, np.array([phi[col]]))
-                g[pos[col], pos[col]] = np.real(np.vdot(d, d)) - abs(np.vdot(after, d)) ** 2
-            elif lay is not None:
-                K = [apply_matrix(psi, n, np.asarray(pops[c].gate.generator), pops[c].qubits)[0]
-                     for c in lay.columns]
-                mean = [np.real(np.vdot(psi[0], k)) for k in K]
-                for a, ca in enumerate(lay.columns):
-                    for b, cb in enumerate(lay.columns):
-                        if approx == "diag" and a != b:
-                            continue
-                        g[pos[ca], pos[cb]] = np.real(np.vdot(K[a], K[b])) - mean[a] * mean[b]
-            psi = apply_gate(psi, n, op.gate, op.qubits, np.array([phi[col]]))
-        else:
-            psi = apply_gate(psi, n, op.gate, op.qubits)
-    return g
 
 
 def _overlap_plan(circuit, phi, columns):
@@ -284,7 +215,7 @@ def metric_tensor(circuit, theta, approx=None, *, executor=None, chunk=None) -> 
         only.
     executor : concurrent.futures.Executor or dask.distributed.Client, optional
         For the exact metric: the state derivatives are computed in chunks of columns on it
-        (see `qgradlib.distribute`). The approximations are one pass over one state, with
+        (see `qgradlib.evaluation.distribute`). The approximations are one pass over one state, with
         nothing to split: they run here.
     chunk : int, optional
         Columns per task on ``executor`` (default: about 4 tasks per worker).
@@ -332,7 +263,7 @@ def metric_tensor(circuit, theta, approx=None, *, executor=None, chunk=None) -> 
             _ledger.record(count, 1, 0, {"overlap": count})
     else:
         lays = layers(circuit)
-        g = _layer_metric_phi(circuit, phi, columns, lays, approx)
+        g = layer_covariances(circuit, phi, columns, lays, diagonal=approx == "diag")
         for lay in lays:
             s = lay.n_settings if approx == "block-diag" else lay.n_diag_settings
             _ledger.record(1, s, 0, {"metric": 1})
@@ -344,7 +275,7 @@ def _overlap_metric(circuit, theta):
     theta, phi, A = prepare(circuit, theta)
     columns = _spec(circuit, "probs").columns
     plan, origin = _overlap_plan(circuit, phi, columns)
-    psi0 = np.asarray(_state_derivatives(circuit, phi, ())[0])
+    psi0 = np.asarray(state_derivatives(circuit, phi, ())[0])
     spec = _spec(circuit, "expect", observables=(Observable.from_matrix(np.outer(psi0, psi0.conj())),))
     keep = [p for p in range(plan.n_points) if p not in origin]
     vals = np.ones((plan.n_points, 1))

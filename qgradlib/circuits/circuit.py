@@ -282,7 +282,7 @@ class Circuit:
         """
         return self.rz(q).ry(q).rz(q)
 
-    # -- noise channels (no angle; see qgradlib.channels) ------------------------------------
+    # -- noise channels (no angle; see qgradlib.circuits.channels) ------------------------------------
     def depolarize(self, q, p):
         """rho -> (1 - p) rho + p I/2 on qubit ``q``."""
         return self.add(_ch.depolarizing(p), q)

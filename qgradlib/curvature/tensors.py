@@ -5,11 +5,11 @@ chain rule: the angle map is linear, ``phi = A theta + b``, so a k-th order tens
 ``phi`` tensor contracted with ``A`` on every index (``H = A.T H_phi A``).
 
 In ``phi`` space every trainable column has one 1-D stencil for all orders
-(`qgradlib.stencils`): the point 0 and the shifts of its first-order rule. A mixed
+(`qgradlib.rules.stencils`): the point 0 and the shifts of its first-order rule. A mixed
 derivative ``d_i^a d_j^b ...`` is the tensor product of the order-a, order-b, ... rules of
 the columns involved. All products are merged into one set of distinct points (displaced
 coordinates are reduced modulo each gate's period before they are compared), and the points
-are evaluated in one batch through `qgradlib.expectation.evaluate`, which records the ledger.
+are evaluated in one batch through `qgradlib.evaluation.expectation.evaluate`, which records the ledger.
 That is how a Hessian reuses the value and the gradient's points: for m two-term parameters,
 each in one gate, value + gradient + Hessian take 2 m**2 + 1 distinct circuits (Mari,
 Bromley and Killoran, Phys. Rev. A 103, 012405 (2021)).
@@ -18,8 +18,8 @@ Hamiltonian gates take repeated stochastic (Duhamel) rules, gates known only by 
 function take finite-difference stencils (with a warning). Values here are simulated: the
 execution counts say what a device would run, the numbers are not device measurements.
 
-The plans live in `qgradlib.higher_plans`; the metric tensor and its layers in
-`qgradlib.metric`, re-exported here.
+The plans live in `qgradlib.rules.higher_plans`; the metric tensor and its layers in
+`qgradlib.curvature.metric`, Fisher information in `qgradlib.curvature.fisher`.
 
 Examples
 --------
@@ -42,12 +42,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .expectation import _check_qubits, _observables, _spec
-from .higher_plans import build_plan, prepare, run_plan, tensor
-from .metric import Layer, layers, metric_tensor
+from ..evaluation.expectation import _check_qubits, _observables, _spec
+from ..rules.higher_plans import build_plan, tensor
+from .execute import prepare, run_plan
 
-__all__ = ["HessianResult", "DerivativeTensors", "Layer", "hessian", "derivatives", "layers",
-           "metric_tensor", "fisher_information"]
+__all__ = ["HessianResult", "DerivativeTensors", "hessian", "derivatives"]
 
 # -- results ------------------------------------------------------------------------------
 @dataclass(frozen=True, eq=False)
@@ -135,7 +134,7 @@ def hessian(circuit, observable, theta, *, shots=None, seed=None, memory=None, s
     splits : int
         With shots, split points sampled per application of the stochastic rule.
     executor : concurrent.futures.Executor or dask.distributed.Client, optional
-        Where the plan's distinct circuits run, in chunks (see `qgradlib.distribute`); the
+        Where the plan's distinct circuits run, in chunks (see `qgradlib.evaluation.distribute`); the
         result and the ledger equal the serial ones.
     chunk : int, optional
         Circuits per task on ``executor`` (default: about 4 tasks per worker).
@@ -209,56 +208,3 @@ def derivatives(circuit, observable, theta, order=2, *, shots=None, seed=None, m
 
 def _scalar(v):
     return float(v) if np.ndim(v) == 0 else v
-
-# -- Fisher information -------------------------------------------------------------------
-def fisher_information(circuit, theta, kind="classical", qubits=None, *, tol=1e-12,
-                       memory=None, executor=None, chunk=None) -> np.ndarray:
-    """Fisher information of the parameters, shape (m, m).
-
-    Parameters
-    ----------
-    circuit : Circuit
-    theta : array_like, shape (n_params,)
-    kind : {"classical", "quantum"}
-        "classical": of the distribution of computational-basis outcomes on ``qubits``,
-        ``F_ij = sum_x d_i p_x d_j p_x / p_x``, with the derivatives of the probabilities
-        from one merged shift plan (recorded in the ledger). "quantum": ``4 g`` with ``g``
-        the exact `metric_tensor` (pure states; Meyer, Quantum 5, 539 (2021)).
-    qubits : sequence of int, optional
-        Measured qubits for the classical kind (default: all).
-    tol : float
-        Outcomes with ``p_x <= tol`` are left out of the sum (0/0 is taken as 0, the usual
-        convention). At parameters where a probability vanishes the classical Fisher
-        information can be discontinuous; this is a property of the quantity, not of the
-        method.
-    memory : int, optional
-        Bytes the engine may use for one chunk of the batch.
-    executor, chunk : optional
-        As in `hessian` (for "quantum", as in `metric_tensor`).
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> import qgradlib as qg
-    >>> c = qg.Circuit(1).ry(0)
-    >>> float(fisher_information(c, np.array([0.8])).round(12)[0, 0])
-    1.0
-    """
-    if kind not in ("classical", "quantum"):
-        raise ValueError(f"kind must be 'classical' or 'quantum'; got {kind!r}")
-    if kind == "quantum":
-        if qubits is not None:
-            raise ValueError("qubits applies to kind='classical'; the quantum Fisher information "
-                             "here is that of the whole (pure) output state")
-        return 4.0 * metric_tensor(circuit, theta, executor=executor, chunk=chunk)
-    if isinstance(tol, bool) or not isinstance(tol, (int, float)) or not 0 <= tol < 1:
-        raise ValueError(f"tol must be a number in [0, 1); got {tol!r}")
-    theta, phi, A = prepare(circuit, theta)
-    spec = _spec(circuit, "probs", qubits=_check_qubits(qubits, circuit.n_qubits),
-                 memory_budget=memory, executor=executor, chunk=chunk)
-    plan = build_plan(circuit, phi, spec.columns, (0, 1))
-    vals, _ = run_plan(plan, spec, phi)
-    p = np.clip(tensor(plan, vals, spec.columns, A, 0), 0.0, None)
-    J = tensor(plan, vals, spec.columns, A, 1)          # (outcomes, m)
-    keep = p > tol
-    return (J[keep].T / p[keep]) @ J[keep]

@@ -47,12 +47,12 @@ from autograd.tracer import getval
 from scipy.optimize import OptimizeResult
 
 from . import rotosolve as _roto
-from .circuit import Circuit, check_theta
-from .expectation import METHODS as _GRADIENTS
-from .expectation import expect
-from .ledger import Ledger
-from .measurement import make_rng
-from .observables import Observable
+from ..circuits.circuit import Circuit, check_theta
+from ..evaluation.expectation import METHODS as _GRADIENTS
+from ..evaluation.expectation import expect
+from ..evaluation.ledger import Ledger
+from ..engine.measurement import make_rng
+from ..circuits.observables import Observable
 from .progress import progress_bar
 
 __all__ = ["minimize", "minimize_expectation", "METHODS"]
@@ -171,7 +171,7 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
         As in `minimize`.
     executor, chunk
         Where the circuits of every value, gradient, metric and Hessian run (see
-        `qgradlib.distribute`); the numbers and the ledger are those of a serial run.
+        `qgradlib.evaluation.distribute`); the numbers and the ledger are those of a serial run.
     **options
         Those of `minimize`, plus ``gradient="shift"`` ("adjoint", "finite-diff") for gd,
         adam and natural, and: natural ``stepsize=0.05, regulariser=1e-3,
@@ -185,11 +185,11 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
 
     Notes
     -----
-    "natural" uses ``qgradlib.curvature.metric_tensor`` (the Fubini-Study metric, the real part
+    "natural" uses ``qgradlib.curvature.tensors.metric_tensor`` (the Fubini-Study metric, the real part
     of the quantum geometric tensor) and solves ``(F + regulariser I) d = g``. The metric is
     taken as that function computes it, without shots; ``shots`` applies to the gradient.
 
-    "newton" takes value, gradient and Hessian from one ``qgradlib.curvature.hessian`` call,
+    "newton" takes value, gradient and Hessian from one ``qgradlib.curvature.tensors.hessian`` call,
     solves ``(H + mu I) d = -g`` and keeps the step only if the cost falls (one more
     evaluation); ``mu`` starts at ``damping``, is divided by 10 after a kept step and
     multiplied by 10 after a refused one (Levenberg-Marquardt). Where H has a negative
@@ -441,7 +441,7 @@ def _first_order_method(method, problem, m, o, rng):
             return o["stepsize"] * mhat / (np.sqrt(vhat) + o["eps"])
         return evaluate, adam
     if method == "natural":
-        from . import curvature
+        from .. import curvature
 
         circuit = problem.circuit_parts[0]
 
@@ -474,7 +474,7 @@ def spsa_estimate(values, x, c, rng):
 
 
 def _newton(problem, x, steps, trace, o):
-    from . import curvature
+    from .. import curvature
 
     circuit, observable, shots, rng = problem.circuit_parts
     x = x.copy()

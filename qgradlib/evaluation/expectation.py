@@ -4,12 +4,12 @@ One autograd primitive, `evaluate`, maps a batch of gate-angle vectors ``phi`` (
 measured values (P, K). Its vector-Jacobian product is registered right below it and follows
 the ``gradient=`` option:
 
-- ``"shift"``: the shift plan of every trainable column (`qgradlib.plans`) is evaluated as
+- ``"shift"``: the shift plan of every trainable column (`qgradlib.rules.plans`) is evaluated as
   one batch *through `evaluate` itself*, so the VJP is again differentiable (a shift of a
   shift) and `autograd.hessian` works;
 - ``"finite-diff"``: central (or forward) differences, also through `evaluate`;
 - ``"adjoint"``: the exact adjoint method (simulator only); nested derivatives differentiate
-  the adjoint Jacobian by shift rules (`qgradlib.adjoint_nested`).
+  the adjoint Jacobian by shift rules (`qgradlib.evaluation.adjoint_nested`).
 
 ``theta -> phi`` is the circuit's linear angle map, written in autograd.numpy, so autograd
 applies the chain rule ``A.T @ dE/dphi`` for shared and scaled parameters by itself.
@@ -18,7 +18,7 @@ Simulator shortcuts that leave the ledger alone: the unique rows of one call are
 branches of a shared trunk where they agree on leading angles (`qgradlib.engine.branch`),
 and with ``gradient="adjoint"`` the forward call keeps its final states, weakly tied to the
 call's `Spec`, for the VJP to start from (one state per row, until the VJP runs or the call
-is forgotten; see `qgradlib.adjoint_nested`).
+is forgotten; see `qgradlib.evaluation.adjoint_nested`).
 """
 from __future__ import annotations
 
@@ -33,17 +33,16 @@ from autograd.extend import defvjp, primitive
 from autograd.tracer import Box, getval
 
 from . import distribute, ledger
-from .circuit import Circuit, check_theta
-from .engine import memory
+from ..circuits.circuit import Circuit, check_theta
+from ..engine import memory
 from .adjoint_nested import adjoint_jacobian, adjoint_vjp, check_nested, keep_states
-from .engine.density import density_expectations, marginal, run_density
-from .engine.measure import expectations
-from .engine.branch import run_branched
-from .engine.statevector import run
-from .measurement import (ALLOCATIONS, apply_readout, check_readout, make_rng, measure,
-                          outcome_distribution, plan_measurements, point_generators)
-from .observables import Observable
-from .plans import first_order_points
+from ..engine.density import run_density
+from ..engine.statevector import run
+from ..engine.measurement import (ALLOCATIONS, apply_readout, check_readout, make_rng,
+                                  outcome_distribution, plan_measurements)
+from .rows import measure_rows_here
+from ..circuits.observables import Observable
+from ..rules.plans import first_order_points
 
 __all__ = ["expect", "probabilities", "state", "density_matrix", "sample", "evaluate", "METHODS"]
 
@@ -72,7 +71,7 @@ class Spec:
     readout: tuple | None = None   # per-qubit readout flip probabilities
     plan: object = None            # measurement.MeasurementPlan of the observables
     fuse: bool = True              # gate fusion in the engine (never changes results beyond 1e-12)
-    executor: object = None        # where the unique rows run (qgradlib.distribute); None: here
+    executor: object = None        # where the unique rows run (qgradlib.evaluation.distribute); None: here
     chunk: int | None = None       # rows per task on the executor
 
     @property
@@ -108,7 +107,7 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
     keep = (spec.gradient == "adjoint" and inserts is None and spec.shots is None
             and not spec.circuit.has_noise and spec.executor is None)
     if keep:
-        vals, states = _measure_rows(phi[rows], spec, ins, keep=True)
+        vals, states = measure_rows_here(phi[rows], spec, ins, keep=True)
         if states is not None:
             # the adjoint VJP starts from these final states instead of running again
             keep_states(spec, phi, states, inverse)
@@ -150,53 +149,6 @@ def _periods(circuit):
         hit = (len(pops), per)
         _PERIODS[circuit] = hit
     return hit[1]
-
-
-def _measure_rows(phi, spec, inserts, errors=False, keep=False):
-    """Values (P, K) at the rows of ``phi``; with ``errors``, also their variances (P, K);
-    with ``keep``, also the final states (or None when they took more than one chunk)."""
-    n = spec.circuit.n_qubits
-    noisy = spec.circuit.has_noise
-    per_row = 3 * 16 * 2 ** (2 * n if noisy else n)
-    budget = spec.memory if spec.memory is not None else max(per_row, memory.available_bytes() // 4)
-    chunk = max(1, min(phi.shape[0], budget // per_row))
-    out = np.empty((phi.shape[0], spec.n_out))
-    var = np.zeros_like(out)
-    for lo in range(0, phi.shape[0], chunk):
-        hi = min(lo + chunk, phi.shape[0])
-        ins = None if inserts is None else inserts[lo:hi]
-        if noisy:
-            states = run_density(spec.circuit, phi[lo:hi], ins)
-        else:
-            # rows that share a prefix of angles (the points of a shift plan) run as branches
-            # of one trunk; a device would still run each circuit (the ledger counted them)
-            states = run_branched(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse)
-            if states is None:
-                states = run(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse)
-        out[lo:hi], var[lo:hi] = _readout(states, spec, noisy)
-    res = (out, var) if errors else out
-    if keep:
-        return res, (states if chunk >= phi.shape[0] else None)
-    return res
-
-
-def _readout(states, spec, noisy):
-    n = spec.circuit.n_qubits
-    # per-point streams (PointSeeds) follow the rows in the order the engine reads them out
-    rng = point_generators(spec.rng, states.shape[0]) if spec.shots is not None else spec.rng
-    if spec.kind == "expect":
-        if spec.shots is None and spec.readout is None:
-            # the exact value needs no settings: index arithmetic on the state or on rho
-            vals = (density_expectations if noisy else expectations)(states, n, spec.observables)
-            return vals, np.zeros_like(vals)
-        return measure(states, spec.plan, spec.shots, rng, density=noisy,
-                       allocation=spec.allocation, readout=spec.readout)
-    p = marginal(apply_readout(outcome_distribution(states, n, density=noisy), n, spec.readout),
-                 n, spec.qubits)
-    if spec.shots is not None:
-        gens = rng if isinstance(rng, list) else [rng] * len(p)
-        p = np.stack([g.multinomial(spec.shots, r / r.sum()) for g, r in zip(gens, p)]) / spec.shots
-    return p, np.zeros_like(p)
 
 
 def _jacobian(points, new_inserts, coeff, names, spec, P):
@@ -417,7 +369,7 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     memory : int, optional
         Bytes the engine may use for one chunk of a batch (default: a quarter of free memory).
     allocation : {"uniform", "weighted"}
-        How a circuit's shots are split over its settings (see `qgradlib.measurement`).
+        How a circuit's shots are split over its settings (see `qgradlib.engine.measurement`).
     readout : float or sequence of float in [0, 0.5], optional
         Readout flip probability per qubit (one float: the same for all). With ``shots`` the
         sampled bits carry it; without, the exact value under that readout model.
@@ -425,7 +377,7 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
         Gate fusion in the engine (on by default; it changes results by rounding only).
     executor : concurrent.futures.Executor or dask.distributed.Client, optional
         Where the distinct circuits of every evaluation (values and shift plans) run, in
-        chunks (see `qgradlib.distribute`); results equal the serial ones.
+        chunks (see `qgradlib.evaluation.distribute`); results equal the serial ones.
     chunk : int, optional
         Circuits per task on ``executor`` (default: about 4 tasks per worker).
 

@@ -7,12 +7,13 @@ A shift rule is a set of shifts ``s_k`` and coefficients ``c_k`` with
 """
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 from functools import lru_cache
 
 import numpy as np
 
-__all__ = ["ShiftRule", "frequencies_of", "rule_for_frequencies"]
+__all__ = ["ShiftRule", "frequencies_of", "rule_for_frequencies", "warn_approximate"]
 
 # Eigenvalue differences closer than this are one frequency: generators are given as
 # float64 matrices, whose eigenvalues carry rounding of about 1e-15 * norm.
@@ -188,3 +189,10 @@ def rule_for_frequencies(freqs, shift=None) -> ShiftRule:
     if np.allclose(w / base, np.arange(1, w.size + 1), rtol=0, atol=1e-8):
         return ShiftRule.equidistant(base, w.size)
     return ShiftRule.general(w)
+
+
+def warn_approximate(gate):
+    """Warn that ``gate`` (known only by its matrix function) is differentiated approximately."""
+    warnings.warn(f"gate {gate.name!r} is known only by its matrix function, so the derivative "
+                  "of its angle is a central finite difference: approximate (truncation error "
+                  "~ step**2), not an exact shift rule", stacklevel=4)

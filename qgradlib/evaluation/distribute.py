@@ -3,7 +3,7 @@
 Every public function that evaluates circuits takes ``executor=``: any
 `concurrent.futures.Executor` (a ``ProcessPoolExecutor``, a ``ThreadPoolExecutor``, the
 ``get_executor()`` of a dask ``Client``) or a ``dask.distributed.Client`` itself. The one
-place it is used is where `qgradlib.expectation.evaluate` (and `qgradlib.estimate`) run
+place it is used is where `qgradlib.evaluation.expectation.evaluate` (and `qgradlib.estimate`) run
 their unique rows: `measure_rows` splits them into chunks (``chunk=`` rows each, or by
 default about `CHUNKS_PER_WORKER` chunks per worker), sends each chunk with a pickled copy of
 the evaluation's description (circuit, observables, options; no executor and no random
@@ -12,7 +12,7 @@ process, so it counts the same executions as a serial run.
 
 Shot noise does not depend on the chunking: every call draws one integer ``base`` from the
 user's generator, and point ``i`` of the call samples from ``default_rng([base, i])``
-(`qgradlib.measurement.PointSeeds`), wherever it runs.
+(`qgradlib.engine.measurement.PointSeeds`), wherever it runs.
 
 Failures:
 
@@ -51,7 +51,8 @@ from numbers import Integral
 
 import numpy as np
 
-from .measurement import PointSeeds
+from ..engine.measurement import PointSeeds
+from .rows import measure_rows_here
 
 __all__ = ["ChunkError", "measure_rows", "run_chunks", "workers", "check_executor", "chunk_size",
            "payload", "RETRIES", "CHUNKS_PER_WORKER"]
@@ -200,12 +201,11 @@ def run_chunks(executor, task, payload, jobs):
 
 
 def measure_chunk(spec, phi, inserts, start, base, errors):
-    """The task: `_measure_rows` on one chunk (``spec`` may come pickled)."""
+    """The task: `measure_rows_here` on one chunk (``spec`` may come pickled)."""
     spec = unpack(spec)
     if base is not None:
         spec = replace(spec, rng=PointSeeds(base, start))
-    from .expectation import _measure_rows      # expectation imports this module
-    return _measure_rows(phi, spec, inserts, errors=errors)
+    return measure_rows_here(phi, spec, inserts, errors=errors)
 
 
 def measure_rows(phi, spec, inserts=None, *, errors=False, index=None):

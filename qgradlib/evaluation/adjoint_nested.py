@@ -31,10 +31,10 @@ import numpy as np
 from autograd.extend import defvjp, primitive
 from autograd.tracer import getval
 
-from .engine.adjoint import adjoint_gradient
-from .engine.measure import apply_observables
-from .engine.statevector import apply_diagonal
-from .plans import first_order_points
+from ..engine.adjoint import adjoint_gradient
+from ..engine.measure import apply_observables
+from ..engine.statevector import apply_diagonal
+from ..rules.plans import first_order_points
 
 __all__ = ["adjoint_vjp", "adjoint_jacobian", "check_nested"]
 

@@ -1,7 +1,7 @@
 """Finite-shot estimates with standard errors: values and parameter-shift gradients.
 
 `estimate` samples every measurement setting of the observables (see
-`qgradlib.measurement`) and reports the mean with its standard error
+`qgradlib.engine.measurement`) and reports the mean with its standard error
 ``sqrt(sum_g var_g / s_g)``, from the sample variance ``var_g`` of the ``s_g`` shots of
 setting ``g``. `estimate_gradient` runs the shift plan of every trainable parameter, every
 point ``u`` of it as its own independently sampled circuit, so with weights ``w_u`` (the
@@ -36,10 +36,10 @@ from dataclasses import dataclass
 import numpy as np
 from autograd.tracer import getval
 
-from . import distribute, ledger
-from .circuit import check_theta
-from .expectation import _check_circuit, _observables, _spec
-from .plans import first_order_points
+from ..evaluation import distribute, ledger
+from ..circuits.circuit import check_theta
+from ..evaluation.expectation import _check_circuit, _observables, _spec
+from ..rules.plans import first_order_points
 
 __all__ = ["Estimate", "GradientEstimate", "estimate", "estimate_gradient"]
 
@@ -133,7 +133,7 @@ def estimate(circuit, observables, theta, *, shots, seed=None, allocation="unifo
     memory : int, optional
         Bytes the engine may use for one chunk of a batch.
     executor : concurrent.futures.Executor or dask.distributed.Client, optional
-        Where the circuits run, in chunks of ``chunk`` (see `qgradlib.distribute`); the same
+        Where the circuits run, in chunks of ``chunk`` (see `qgradlib.evaluation.distribute`); the same
         seed gives the same numbers as a serial run.
     chunk : int, optional
 

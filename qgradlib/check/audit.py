@@ -28,10 +28,10 @@ import numpy as np
 from autograd import make_vjp, value_and_grad
 from autograd.test_util import check_grads, make_numerical_jvp
 
-from .expectation import expect
-from .ledger import Ledger
-from .measurement import make_rng
-from .observables import Observable
+from ..evaluation.expectation import expect
+from ..evaluation.ledger import Ledger
+from ..engine.measurement import make_rng
+from ..circuits.observables import Observable
 
 __all__ = ["MethodAudit", "GradientReport", "gradients", "METHODS"]
 
@@ -180,7 +180,7 @@ def gradients(circuit, observable, theta, *, methods=METHODS, shots=None, seed=N
     seed : int or numpy.random.Generator, optional
         Randomness for shots and for autograd's random check directions.
     executor : concurrent.futures.Executor or dask.distributed.Client, optional
-        Where every method's circuits run (see `qgradlib.distribute`); the adjoint method's
+        Where every method's circuits run (see `qgradlib.evaluation.distribute`); the adjoint method's
         backward pass runs here. Wall times then include the executor's overhead.
     chunk : int, optional
         Circuits per task on ``executor``.

@@ -6,7 +6,7 @@ terminal, so scripts, logs, notebooks' captured output and test runs stay clean;
 
 Examples
 --------
->>> from qgradlib.progress import progress_bar
+>>> from qgradlib.train.progress import progress_bar
 >>> with progress_bar(False, total=3, desc="demo") as bar:
 ...     bar.update(1)
 ...     bar.set_postfix(cost=0.5)

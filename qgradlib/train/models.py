@@ -27,8 +27,8 @@ from numbers import Real
 
 import numpy as np
 
-from .circuit import Circuit
-from .observables import Observable
+from ..circuits.circuit import Circuit
+from ..circuits.observables import Observable
 
 __all__ = ["ising_chain", "heisenberg_chain", "maxcut", "cut_value", "ring", "layered", "qaoa"]
 

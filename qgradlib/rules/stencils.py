@@ -29,7 +29,7 @@ from math import ceil, factorial
 
 import numpy as np
 
-from .gates import warn_approximate
+from .shift_rules import warn_approximate
 from .plans import piecewise_quadrature
 
 __all__ = ["Stencil", "trig_stencil", "fd_stencil", "gate_stencil", "duhamel_rule"]
@@ -168,13 +168,13 @@ def duhamel_rule(order: int, spread: float, *, first=None, shots=None, splits=1,
 
     ``spread`` bounds the integrand's frequency; existing splits cut the integrand into
     smooth pieces (it has a kink at each), so without shots every piece gets its own
-    Gauss-Legendre rule (`qgradlib.plans.piecewise_quadrature`). With ``shots`` the split
+    Gauss-Legendre rule (`qgradlib.rules.plans.piecewise_quadrature`). With ``shots`` the split
     points are sampled uniformly, ``splits`` per application, which keeps every order
     unbiased.
 
     ``first`` (optional) are the order-1 entries to build on, so that every order of one
     column starts from the same first-order splits (for example those of
-    `qgradlib.plans.column_terms`).
+    `qgradlib.rules.plans.column_terms`).
     """
     k = _order(order)
     if k == 0:

@@ -30,7 +30,7 @@ class Comparison:
     Attributes
     ----------
     results : dict
-        Method name -> `scipy.optimize.OptimizeResult` (see `qgradlib.optimize`).
+        Method name -> `scipy.optimize.OptimizeResult` (see `qgradlib.train.optimize`).
     energies : dict
         Method name -> final cost.
     executions : dict
@@ -99,7 +99,7 @@ def compare_training(circuit, observable, theta0, methods=("adam", "rotosolve"),
     observable : Observable
     theta0 : array_like, shape (circuit.n_params,)
     methods : sequence of str
-        Names accepted by `qgradlib.optimize.minimize_expectation`.
+        Names accepted by `qgradlib.train.optimize.minimize_expectation`.
     steps : int or dict
         Steps per method (a dict maps method -> steps); for "rotosolve" a step is a sweep.
     seed : int

@@ -37,9 +37,9 @@ from numbers import Real
 
 import numpy as np
 
-from .engine.density import _signs, apply_unitary, density_probabilities
-from .engine.statevector import apply_matrix
-from .observables import Observable
+from .density import _signs, apply_unitary, density_probabilities
+from .statevector import apply_matrix
+from ..circuits.observables import Observable
 
 __all__ = ["Setting", "MeasurementPlan", "measurement_settings", "n_settings", "plan_measurements",
            "allocate", "apply_readout", "check_readout", "measure", "outcome_distribution", "make_rng",

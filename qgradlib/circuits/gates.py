@@ -16,14 +16,13 @@ True
 from __future__ import annotations
 
 import pickle
-import warnings
 from dataclasses import dataclass, field
 from functools import cached_property
 
 import numpy as np
 
 from .paulis import pauli_matrix, parse_pauli
-from .shift_rules import ShiftRule, frequencies_of, rule_for_frequencies
+from ..rules.shift_rules import ShiftRule, frequencies_of, rule_for_frequencies, warn_approximate
 
 __all__ = ["Gate", "STANDARD", "H", "X", "Y", "Z", "S", "T", "SX", "CNOT", "CZ", "SWAP",
            "RX", "RY", "RZ", "PHASE", "CRX", "CRY", "CRZ", "CPHASE", "RXX", "RYY", "RZZ"]
@@ -64,7 +63,7 @@ class Gate:
     """A quantum gate on ``n_qubits`` qubits.
 
     Build custom gates with `Gate.fixed`, `Gate.from_generator`, `Gate.from_hamiltonian`
-    or `Gate.from_function`; the standard gates live in :mod:`qgradlib.gates`.
+    or `Gate.from_function`; the standard gates live in :mod:`qgradlib.circuits.gates`.
 
     Attributes
     ----------
@@ -224,6 +223,11 @@ class Gate:
     def _eig(self):
         ev, vec = np.linalg.eigh(self.generator)
         return ev, vec
+
+    @cached_property
+    def drive_matrix(self):
+        """The dense matrix of a Hamiltonian gate's drive word (None for other kinds)."""
+        return None if self.drive is None else pauli_matrix(self.drive)
 
     @cached_property
     def spectrum(self) -> np.ndarray:
@@ -442,9 +446,3 @@ RZZ = _standard("RZZ", np.kron(_Z, _Z) / 2,
 
 STANDARD = {g.name: g for g in (H, X, Y, Z, S, T, SX, CNOT, CZ, SWAP, RX, RY, RZ, PHASE,
                                 CRX, CRY, CRZ, CPHASE, RXX, RYY, RZZ)}
-
-
-def warn_approximate(gate: Gate):
-    warnings.warn(f"gate {gate.name!r} is known only by its matrix function, so the derivative "
-                  "of its angle is a central finite difference: approximate (truncation error "
-                  "~ step**2), not an exact shift rule", stacklevel=4)

@@ -3,7 +3,7 @@
 A plan lists distinct points (gate-angle displacements, plus split points for Hamiltonian
 gates) and, for every multiset of columns ``(i, j, ...)``, the weights that turn the values
 at those points into ``d_i d_j ... f`` in gate-angle space. Each column contributes the rule
-of its own order from `qgradlib.stencils` (one stencil for all orders, so lower orders'
+of its own order from `qgradlib.rules.stencils` (one stencil for all orders, so lower orders'
 points are reused); the products are merged after reducing each displaced coordinate modulo
 its gate's period. `tensor` contracts a plan's values with the angle map on every index.
 """
@@ -15,13 +15,10 @@ from itertools import combinations_with_replacement, permutations, product
 
 import numpy as np
 
-from . import ledger as _ledger
-from .circuit import Circuit, check_theta
-from .expectation import evaluate
 from .plans import _spread, column_terms
 from .stencils import duhamel_rule, gate_stencil
 
-__all__ = ["Plan", "build_plan", "run_plan", "tensor", "prepare"]
+__all__ = ["Plan", "build_plan", "tensor"]
 
 # Displaced angles closer than this (after reduction by the period) are one point.
 _KEY_TOL = 1e-9
@@ -112,13 +109,6 @@ def build_plan(circuit, phi, columns, orders, *, shift=None, fd_step=None, shots
     return Plan(D, inserts if any(inserts) else None, purposes, entries)
 
 
-def run_plan(plan, spec, phi):
-    """Evaluate the plan's points in one batch; returns values (P, K) and the ledger."""
-    with _ledger.Ledger() as book:
-        vals = evaluate(phi[None, :] + plan.deltas, spec, plan.inserts, plan.purposes)
-    return np.asarray(vals), book
-
-
 def tensor(plan, vals, columns, A, k):
     """Order-k tensor in theta, shape (K,) + (m,)*k, from the plan's values (P, K)."""
     Gc, K = len(columns), vals.shape[1]
@@ -134,14 +124,3 @@ def tensor(plan, vals, columns, A, k):
         # contract the first phi axis; the new theta axis goes last, so the order is kept
         T = np.tensordot(T, Ac, axes=([1], [0]))
     return T
-
-
-def prepare(circuit, theta, name="theta"):
-    if not isinstance(circuit, Circuit):
-        raise TypeError(f"circuit must be a qgradlib Circuit; got {type(circuit).__name__}")
-    theta = np.asarray(check_theta(circuit, theta), dtype=float)
-    if theta.ndim != 1:
-        raise ValueError(f"{name} must be one parameter vector of shape ({circuit.n_params},); "
-                         f"got shape {theta.shape} (call once per point for a batch)")
-    phi = np.asarray(circuit.angles(theta), dtype=float)
-    return theta, phi, circuit.angle_map()[0]
