@@ -48,7 +48,7 @@ def rms_error(method, shots, step=None, seed=0):
     exact = grad(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)
     kw = {"gradient": method}
     if step is not None:
-        kw["fd_step"] = step
+        kw["step"] = step
     if shots is None:
         g = grad(lambda t: qg.expect(c, H, t, **kw))(theta)
         return float(np.sqrt(np.mean((g - exact) ** 2)))
@@ -64,7 +64,7 @@ def table() -> str:
     head = "| step h | " + " | ".join("exact values" if s is None else f"{s:,} shots" for s in SHOTS) + " |"
     lines = [head, "|" + " --- |" * (len(SHOTS) + 1)]
     for h in STEPS:
-        cells = [f"{rms_error('finite-diff', s, h, seed=k):.1e}" for k, s in enumerate(SHOTS)]
+        cells = [f"{rms_error('difference', s, h, seed=k):.1e}" for k, s in enumerate(SHOTS)]
         lines.append(f"| central FD, {h:g} | " + " | ".join(cells) + " |")
     cells = [f"{rms_error('shift', s, seed=10 + k):.1e}" for k, s in enumerate(SHOTS)]
     lines.append("| shift rule | " + " | ".join(cells) + " |")

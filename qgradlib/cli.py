@@ -1,4 +1,4 @@
-"""The ``qgradlib`` command: ``qgradlib demo`` runs the Kestrel ring scenario end to end."""
+"""The ``qgradlib`` command: ``qgradlib demo`` runs the bench ring R6 scenario end to end."""
 from __future__ import annotations
 
 import argparse
@@ -18,9 +18,9 @@ def _rule(title):
 
 def demo(args) -> int:
     from . import expect
-    from .demo import kestrel
+    from .demo import bench_ring
 
-    sc = kestrel(args.qubits, args.layers, args.seed)
+    sc = bench_ring(args.qubits, args.layers, args.seed)
     print(f"qgradlib {__version__} demo: the {sc.name}")
     print(sc.story)
     print(CAUTION)
@@ -88,7 +88,7 @@ def training(sc, args):
     print(_rule("training: Adam and damped Newton side by side"))
     cmp = compare_training(sc.circuit, sc.hamiltonian, sc.theta0, methods=("adam", "newton"),
                            steps=args.steps, seed=args.seed, shots_per_execution=sc.shots,
-                           options={"adam": {"stepsize": 0.1}})
+                           options={"adam": {"rate": 0.1}})
     print(cmp.summary())
     sc_best = min(cmp.results, key=lambda m: cmp.energies[m])
     args.best = (sc_best, cmp.results[sc_best].x)
@@ -144,12 +144,12 @@ def main(argv=None) -> int:
         "Parameter-shift gradients, curvature and device-cost accounting for variational circuits."))
     parser.add_argument("--version", action="version", version=f"qgradlib {__version__}")
     sub = parser.add_subparsers(dest="command", required=True)
-    d = sub.add_parser("demo", help="run the Kestrel ring scenario (well under a minute)")
+    d = sub.add_parser("demo", help="run the bench ring R6 scenario (well under a minute)")
     d.add_argument("--qubits", type=int, default=6, help="ring size (default 6)")
     d.add_argument("--layers", type=int, default=None, help="circuit layers (default qubits // 2)")
     d.add_argument("--steps", type=int, default=100, help="training steps per method (default 100)")
     d.add_argument("--seed", type=int, default=7, help="seed for the starting point and shots")
-    d.add_argument("--plot", default="kestrel-training.png",
+    d.add_argument("--plot", default="bench-ring-training.png",
                    help="where to write the training plot when matplotlib is present")
     args = parser.parse_args(argv)
     if args.command == "demo":

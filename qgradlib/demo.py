@@ -1,6 +1,6 @@
-"""The demo scenario: the Kestrel ring.
+"""The demo scenario: bench ring R6.
 
-An invented test chip, "Kestrel", carries six superconducting qubits on a ring. Neighbours
+An invented lab bench, code R6, holds six coupled qubits on a ring. Neighbours
 couple through ZZ and every qubit is driven transversally; the lab wants the ring's ground
 state prepared by a shallow layered circuit before it books device time. The numbers are
 ours (J = 1.0, g = 0.7 in units of the coupling) and describe no real device.
@@ -14,10 +14,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .circuits import channels
 from .circuits.circuit import Circuit
 from .circuits.observables import Observable
 
-__all__ = ["Scenario", "kestrel"]
+__all__ = ["Scenario", "bench_ring"]
 
 
 @dataclass(frozen=True)
@@ -69,25 +70,25 @@ def ring_circuit(n: int, layers: int, noise: float = 0.0) -> Circuit:
             c.rzz(q, (q + 1) % n, param=2 * layer)
         if noise:
             for q in range(n):
-                c.depolarize(q, noise)
+                c.noise(q, channels.depolarizing(noise))
         for q in range(n):
             c.rx(q, param=2 * layer + 1)
     return c
 
 
-def kestrel(n: int = 6, layers: int | None = None, seed: int = 7) -> Scenario:
-    """The Kestrel ring scenario (defaults: 6 qubits, n // 2 layers).
+def bench_ring(n: int = 6, layers: int | None = None, seed: int = 7) -> Scenario:
+    """The bench ring R6 scenario (defaults: 6 qubits, n // 2 layers).
 
     Its device budget is 1000 shots per measurement setting per circuit, and its noise
-    model a 1% depolarising error on every qubit after each CNOT ring (both invented).
+    model a 1% depolarising error on every qubit after each ring of RZZ gates (both invented).
     """
     layers = max(1, n // 2) if layers is None else layers
     circuit = ring_circuit(n, layers)
     rng = np.random.default_rng(seed)
     theta0 = 0.3 + rng.normal(0.0, 0.05, size=circuit.n_params)
     return Scenario(
-        name="Kestrel ring",
-        story=(f"{n} qubits on a ring of the invented Kestrel test chip: ZZ coupling J = 1.0 "
+        name=f"bench ring R{n}",
+        story=(f"{n} qubits on the ring of the invented lab bench R{n}: ZZ coupling J = 1.0 "
                "between neighbours, transverse drive g = 0.7 on every qubit"),
         hamiltonian=ring_hamiltonian(n, 1.0, 0.7),
         circuit=circuit,

@@ -20,11 +20,11 @@ def _case():
 def test_report_sets_methods_side_by_side():
     ops, c, obs, M, theta = _case()
     r = qg.check.gradients(c, obs, theta, seed=0)
-    assert [m.method for m in r.methods] == ["shift", "adjoint", "finite-diff", "autograd-check"]
+    assert [m.method for m in r.methods] == ["shift", "adjoint", "difference", "autograd-check"]
     # the reference is the exact gradient (expm_frechet on the dense reference)
     np.testing.assert_allclose(r.reference, ref.gradient(ops, theta, 2, M), atol=1e-10)
     assert r["shift"].deviation < 1e-12
-    assert 0 < r["finite-diff"].deviation < 1e-8
+    assert 0 < r["difference"].deviation < 1e-8
     assert r["autograd-check"].passed is True
     assert r["autograd-check"].deviation < 1e-8        # autograd's own numerical gradient
     assert r.max_deviation == max(m.deviation for m in r.methods)
@@ -32,11 +32,11 @@ def test_report_sets_methods_side_by_side():
     # device cost, counted by the ledger: (value + 2 RY + 4 CRX + 2 RZ) x settings
     settings = qg.shots.n_settings(obs)
     assert r["shift"].executions == 9 * settings
-    assert r["finite-diff"].executions == (1 + 2 * 3) * settings
+    assert r["difference"].executions == (1 + 2 * 3) * settings
     assert r["adjoint"].executions is None
     assert all(m.seconds >= 0 for m in r.methods)
     text = str(r)
-    for word in ("shift", "adjoint", "finite-diff", "autograd-check", "passed", "sim only",
+    for word in ("shift", "adjoint", "difference", "autograd-check", "passed", "sim only",
                  "not device measurements", f"{r.reference[0]:.9f}"):
         assert word in text
     with pytest.raises(dataclasses.FrozenInstanceError):
@@ -54,7 +54,7 @@ def test_a_wrong_rule_is_caught():
     r = qg.check.gradients(c, qg.Observable({"X": 1.0}), np.array([0.3]), seed=1)
     assert r["shift"].deviation > 0.1
     assert r["autograd-check"].passed is False
-    assert r["finite-diff"].deviation < 1e-8
+    assert r["difference"].deviation < 1e-8
     assert not r.ok(1e-3)
     assert "FAILED" in str(r)
 

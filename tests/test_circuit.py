@@ -129,12 +129,28 @@ def test_concatenation_renumbers_right_parameters():
     np.testing.assert_allclose(circuit_state(both, theta), dense_state(ops, 2), atol=1e-12)
 
 
-def test_rot_adds_three_parameters_as_rz_ry_rz():
-    c = qg.Circuit(2).ry(1).rot(0)
+@pytest.mark.parametrize("axes,names", [("zyz", ("RZ", "RY", "RZ")), ("zxz", ("RZ", "RX", "RZ")),
+                                         ("xyx", ("RX", "RY", "RX")), ("XZY", ("RX", "RZ", "RY"))])
+def test_euler_adds_three_parameters_first_letter_first(axes, names):
+    c = qg.Circuit(2).ry(1).euler(0, axes=axes)
     assert c.n_params == 4
     ops = c.parametric_operations[1:]
     assert [(op.gate.name, op.qubits, op.param) for op in ops] == \
-        [("RZ", (0,), 1), ("RY", (0,), 2), ("RZ", (0,), 3)]
+        [(names[0], (0,), 1), (names[1], (0,), 2), (names[2], (0,), 3)]
+
+
+def test_euler_on_a_bad_qubit_appends_nothing():
+    c = qg.Circuit(2)
+    with pytest.raises(ValueError, match="qubit 5"):
+        c.euler(5)
+    assert len(c) == 0 and c.n_params == 0
+
+
+def test_noise_takes_a_channel_and_refuses_anything_else():
+    c = qg.Circuit(2).noise((0,), qg.channels.dephasing(0.1))
+    assert c.has_noise and c.operations[0].gate.name == "dephasing"
+    with pytest.raises(TypeError, match="channel"):
+        c.noise(0, 0.1)
 
 
 def test_repr_names_sizes():

@@ -8,7 +8,8 @@ import pytest
 from scipy.sparse.linalg import eigsh
 
 from qgradlib.cli import main
-from qgradlib.demo import kestrel
+from qgradlib.demo import bench_ring
+from test_names import PATTERN as RETIRED_NAMES
 
 
 def test_demo_prints_energies_beside_exact_ground_energy(capsys, tmp_path):
@@ -16,8 +17,9 @@ def test_demo_prints_energies_beside_exact_ground_energy(capsys, tmp_path):
     assert main(["demo", "--qubits", "4", "--steps", "30", "--plot", str(plot)]) == 0
     out = capsys.readouterr().out
     assert "not device measurements" in out
+    assert not RETIRED_NAMES.findall(out)          # the demo prints none of the retired names
     m = re.search(r"exact ground energy \(scipy eigsh\):\s+(-?\d+\.\d+)", out)
-    sc = kestrel(4)
+    sc = bench_ring(4)
     # the printed value is scipy's eigsh result on the scenario's sparse matrix
     e0 = eigsh(sc.hamiltonian.matrix(), k=1, which="SA")[0][0]
     assert m and abs(float(m.group(1)) - e0) < 1e-5

@@ -270,8 +270,8 @@ def test_metric_of_rz_ry_single_qubit_in_both_orders():
     t, f = 0.9, -0.4
     ry_first = qg.Circuit(1).ry(0).rz(0)
     expected = np.diag([0.25, np.sin(t) ** 2 / 4])
-    for approx in (None, "block-diag", "diag"):
-        np.testing.assert_allclose(curvature.metric_tensor(ry_first, np.array([t, f]), approx),
+    for structure in ("full", "layerwise", "diagonal"):
+        np.testing.assert_allclose(curvature.metric_tensor(ry_first, np.array([t, f]), structure),
                                    expected, atol=1e-14)
     rz_first = qg.Circuit(1).rz(0).ry(0)
     np.testing.assert_allclose(curvature.metric_tensor(rz_first, np.array([f, t])),
@@ -296,37 +296,37 @@ def test_layers_follow_the_documented_definition():
     assert lays[3].settings == ("ZZI",)   # CRZ = (IZ - ZZ)/4, RZ(1) = IZ/2: all diagonal
 
 
-@pytest.mark.parametrize("approx", ["block-diag", "diag"])
-def test_block_diagonal_metric_vs_generator_covariances(approx):
+@pytest.mark.parametrize("structure", ["layerwise", "diagonal"])
+def test_layerwise_metric_vs_generator_covariances(structure):
     # Stokes, Izaac, Killoran and Carleo, Quantum 4, 269 (2020): block l is
     # <K_i K_j> - <K_i><K_j> in the state before layer l (dense prefix, full matrices)
     c = qg.Circuit(3)
     c.h(0).h(1).h(2).ry(0).ry(1).rzz(1, 2).rz(0).cnot(0, 2).rx(0).rx(1).rx(2).crx(2, 0).ry(1)
     th = np.linspace(-0.8, 1.1, c.n_params)       # one parameter per gate: theta = phi
-    g = curvature.metric_tensor(c, th, approx=approx)
+    g = curvature.metric_tensor(c, th, structure=structure)
     exact = ref.metric(c, th)
     mask = np.zeros_like(g, dtype=bool)
     for lay in curvature.layers(c):
         cols = list(lay.columns)
         block = ref.layer_covariance(c, th, cols)
-        if approx == "diag":
+        if structure == "diagonal":
             block = np.diag(np.diag(block))
         np.testing.assert_allclose(g[np.ix_(cols, cols)], block, atol=1e-13)
         # within a layer the generators commute, so the block is also the exact metric's block
         np.testing.assert_allclose(g[np.ix_(cols, cols)],
-                                   exact[np.ix_(cols, cols)] if approx == "block-diag"
+                                   exact[np.ix_(cols, cols)] if structure == "layerwise"
                                    else np.diag(np.diag(exact[np.ix_(cols, cols)])), atol=1e-12)
         mask[np.ix_(cols, cols)] = True
     assert np.all(g[~mask] == 0.0)
 
 
-def test_block_diagonal_ledger_one_circuit_per_layer():
+def test_layerwise_ledger_one_circuit_per_layer():
     # the device recipe of Stokes et al.: per layer one circuit (the circuit up to the layer)
     # measured in each basis of Layer.settings; RX(0) RX(1): words XI, IX, XX -> one basis XX;
     # RZZ(0,1) then RY(0): two single-gate layers with bases ZZ and YI
     c = qg.Circuit(2).rx(0).rx(1).rzz(0, 1).ry(0)
     with qg.Ledger() as book:
-        curvature.metric_tensor(c, np.array([0.1, 0.2, 0.3, 0.4]), approx="block-diag")
+        curvature.metric_tensor(c, np.array([0.1, 0.2, 0.3, 0.4]), structure="layerwise")
     assert book.circuits == 3 and book.executions == 3 and book.by_purpose["metric"] == 3
     # CRX(0,1) has generator |1><1| x X/2 = (IX - ZX)/4 and commutes with RX(1) (IX/2): one
     # layer; words IX, ZX and the product IX*ZX = ZI are qubit-wise commuting: one basis ZX
@@ -334,18 +334,18 @@ def test_block_diagonal_ledger_one_circuit_per_layer():
     lay, = curvature.layers(c)
     assert lay.columns == (0, 1) and lay.settings == ("ZX",)
     with qg.Ledger() as book:
-        curvature.metric_tensor(c, np.array([0.5, 0.7]), approx="diag")
-    assert book.executions == len(lay.diag_settings) == 1
+        curvature.metric_tensor(c, np.array([0.5, 0.7]), structure="diagonal")
+    assert book.executions == len(lay.variance_settings) == 1
 
 
-def test_effective_generator_of_a_hamiltonian_gate_in_block_diag():
+def test_effective_generator_of_a_hamiltonian_gate_in_the_layerwise_metric():
     # a Hamiltonian gate is a layer of its own; its diagonal entry is the variance of its
     # effective generator i dU/da U^dagger after the gate, which is the exact metric's entry
     # (source: the expm_frechet reference). theta[1] drives only that gate.
     c, th = driven_circuit()
     assert [l.effective for l in curvature.layers(c)] == [False, True, False]
-    for approx in ("diag", "block-diag"):
-        g = curvature.metric_tensor(c, th, approx=approx)
+    for structure in ("diagonal", "layerwise"):
+        g = curvature.metric_tensor(c, th, structure=structure)
         assert np.isclose(g[1, 1], ref.metric(c, th)[1, 1], atol=1e-12)
 
 
@@ -434,8 +434,10 @@ def test_bad_input_is_refused_with_a_named_argument():
     c, th = standard_circuit()
     with pytest.raises(ValueError, match="order"):
         curvature.derivatives(c, OBS3, th, order=0)
-    with pytest.raises(ValueError, match="approx"):
-        curvature.metric_tensor(c, th, approx="full")
+    with pytest.raises(ValueError, match="structure"):
+        curvature.metric_tensor(c, th, structure="blockwise")
+    with pytest.raises(ValueError, match="structure"):
+        curvature.metric_tensor(c, th, None)
     with pytest.raises(ValueError, match="kind"):
         curvature.fisher_information(c, th, kind="quantum-ish")
     with pytest.raises(ValueError, match="qubits"):

@@ -147,7 +147,7 @@ def test_metric_fisher_and_audit_on_an_executor(pool):
     for kind in ("classical", "quantum"):
         assert np.allclose(curvature.fisher_information(c, t, kind, executor=pool),
                            curvature.fisher_information(c, t, kind), rtol=0, atol=1e-12)
-    report = qg.check.gradients(c, H, t, methods=("shift", "adjoint", "finite-diff"), executor=pool)
+    report = qg.check.gradients(c, H, t, methods=("shift", "adjoint", "difference"), executor=pool)
     assert report.ok(1e-6)
     serial = qg.check.gradients(c, H, t, methods=("shift",))
     assert report["shift"].executions == serial["shift"].executions
@@ -254,8 +254,8 @@ def test_gates_channels_circuits_and_observables_pickle():
     assert np.allclose(pickle.loads(pickle.dumps(custom[1])).matrix(0.37),
                        expm(-1j * 0.37 * np.diag([0.0, 1.0, 2.7, 0.0])), atol=1e-12)
     ch = pickle.loads(pickle.dumps(qg.channels.amplitude_damping(0.2)))
-    assert ch.name == "amplitude_damp" and not ch.kraus[1].flags.writeable
-    c = qg.Circuit(2).h(0).ry(1).cnot(0, 1).depolarize(1, 0.1)
+    assert ch.name == "amplitude_damping" and not ch.kraus[1].flags.writeable
+    c = qg.Circuit(2).h(0).ry(1).cnot(0, 1).noise(1, qg.channels.depolarizing(0.1))
     c.add(custom[3], 0).add(custom[1], (0, 1)).add(custom[4], 1, angle=0.2)
     H = qg.Observable({"ZZ": 1.0}) + qg.Observable.from_matrix(np.diag([1.0, 0, 0, 0.5]))
     c2, H2 = pickle.loads(pickle.dumps((c, H)))

@@ -22,7 +22,7 @@ P0, P1 = np.diag([1.0, 0.0]), np.diag([0.0, 1.0])
 kron = np.kron
 
 
-def rot(P, a):
+def rotation(P, a):
     # expm(-i a P / 2) = cos(a/2) I - i sin(a/2) P for P @ P = I (common practice)
     return np.cos(a / 2) * np.eye(P.shape[0]) - 1j * np.sin(a / 2) * P
 
@@ -38,7 +38,7 @@ FIXED_CLOSED = {
     "X": X, "Y": Y, "Z": Z,
     "S": np.diag([1, 1j]),
     "T": np.diag([1, np.exp(1j * np.pi / 4)]),
-    "SX": np.exp(1j * np.pi / 4) * rot(X, np.pi / 2),   # a square root of X
+    "SX": np.exp(1j * np.pi / 4) * rotation(X, np.pi / 2),   # a square root of X
     "CNOT": controlled(X),
     "CZ": controlled(Z),
     "SWAP": (kron(I, I) + kron(X, X) + kron(Y, Y) + kron(Z, Z)) / 2,
@@ -46,17 +46,17 @@ FIXED_CLOSED = {
 
 # common practice: closed forms of the parametric gates, U(a) = expm(-1j a G)
 ROT_CLOSED = {
-    "RX": lambda a: rot(X, a),
-    "RY": lambda a: rot(Y, a),
-    "RZ": lambda a: rot(Z, a),
+    "RX": lambda a: rotation(X, a),
+    "RY": lambda a: rotation(Y, a),
+    "RZ": lambda a: rotation(Z, a),
     "PHASE": lambda a: np.diag([1, np.exp(1j * a)]),
-    "CRX": lambda a: controlled(rot(X, a)),
-    "CRY": lambda a: controlled(rot(Y, a)),
-    "CRZ": lambda a: controlled(rot(Z, a)),
+    "CRX": lambda a: controlled(rotation(X, a)),
+    "CRY": lambda a: controlled(rotation(Y, a)),
+    "CRZ": lambda a: controlled(rotation(Z, a)),
     "CPHASE": lambda a: np.diag([1, 1, 1, np.exp(1j * a)]),
-    "RXX": lambda a: rot(kron(X, X), a),
-    "RYY": lambda a: rot(kron(Y, Y), a),
-    "RZZ": lambda a: rot(kron(Z, Z), a),
+    "RXX": lambda a: rotation(kron(X, X), a),
+    "RYY": lambda a: rotation(kron(Y, Y), a),
+    "RZZ": lambda a: rotation(kron(Z, Z), a),
 }
 
 # common practice: the generators (PHASE(a) = diag(1, e^{ia}) = expm(-i a (-|1><1|)))

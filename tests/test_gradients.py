@@ -16,8 +16,8 @@ from derivative_cases import (FIXED_1, FIXED_2, ONE_QUBIT, TWO_QUBIT, random_pau
                               scramble, to_circuit)
 from reference import derivatives as ref
 
-METHODS = ("shift", "adjoint", "finite-diff")
-TOL = {"shift": 1e-10, "adjoint": 1e-10, "finite-diff": 1e-7}
+METHODS = ("shift", "adjoint", "difference")
+TOL = {"shift": 1e-10, "adjoint": 1e-10, "difference": 1e-7}
 
 
 def _grad(c, obs, theta, method, **kw):
@@ -137,19 +137,41 @@ def test_custom_rule_given_by_the_user_is_used():
     assert book.by_purpose["mine"] == 4 * qg.shots.n_settings(obs)
 
 
-def test_rot_is_exact_rz_ry_rz():
-    # rot(q) = RZ(c) RY(b) RZ(a): against expm_frechet of the dense product
+def test_euler_rotations_are_exact_for_zyz_and_xyx():
+    # euler(q) = RZ(a), then RY(b), then RZ(c): against expm_frechet of the dense product
     rng = np.random.default_rng(5)
-    c = qg.Circuit(2).h(0).cnot(0, 1).rot(0).rot(1)
+    c = qg.Circuit(2).h(0).cnot(0, 1).euler(0).euler(1, axes="xyx")
     ops = [("H", (0,), None), ("CNOT", (0, 1), None),
            ("RZ", (0,), (0, 1.0, 0.0)), ("RY", (0,), (1, 1.0, 0.0)), ("RZ", (0,), (2, 1.0, 0.0)),
-           ("RZ", (1,), (3, 1.0, 0.0)), ("RY", (1,), (4, 1.0, 0.0)), ("RZ", (1,), (5, 1.0, 0.0))]
+           ("RX", (1,), (3, 1.0, 0.0)), ("RY", (1,), (4, 1.0, 0.0)), ("RX", (1,), (5, 1.0, 0.0))]
     obs, M = random_pauli_observable(2, rng, k=6)
     theta = rng.uniform(-np.pi, np.pi, size=6)
     assert c.n_params == 6
     for method in ("shift", "adjoint"):
         np.testing.assert_allclose(_grad(c, obs, theta, method), ref.gradient(ops, theta, 2, M),
                                    atol=1e-10)
+
+
+@pytest.mark.parametrize("axes", ["zyz", "zxz", "xyx", "yzy"])
+def test_euler_rotations_reach_a_random_unitary(axes):
+    # Nielsen and Chuang, Theorem 4.1 (and its axis-permuted forms): every single-qubit
+    # unitary is exp(i alpha) R_a(t1) R_b(t2) R_a(t3); find the angles by least squares on the
+    # fidelity and check |<U0|V>|^2 = 1 against a Haar-random U (scipy.stats.unitary_group)
+    import scipy.optimize
+    import scipy.stats
+    U = scipy.stats.unitary_group.rvs(2, random_state=3)
+    c = qg.Circuit(1).euler(0, axes=axes)
+    target = U[:, 0]                       # U|0>: the state the rotations must prepare
+    infidelity = lambda t: 1 - abs(np.vdot(target, qg.state(c, t))) ** 2  # noqa: E731
+    best = min((scipy.optimize.minimize(infidelity, x0, method="BFGS")
+                for x0 in np.random.default_rng(1).uniform(-3, 3, (6, 3))), key=lambda r: r.fun)
+    assert best.fun < 1e-10
+
+
+@pytest.mark.parametrize("axes", ["zzy", "xy", "abc", 3, "xyzx"])
+def test_euler_refuses_bad_axes_by_name(axes):
+    with pytest.raises(ValueError, match="axes"):
+        qg.Circuit(1).euler(0, axes=axes)
 
 
 def _function_gate():
@@ -239,12 +261,12 @@ def test_bad_gradient_options_name_the_argument():
         qg.expect(c, Z, np.array([0.1]), gradient="backprop")
     with pytest.raises(ValueError, match="shots"):
         qg.expect(c, Z, np.array([0.1]), gradient="adjoint", shots=10)
-    with pytest.raises(ValueError, match="fd_step"):
-        qg.expect(c, Z, np.array([0.1]), gradient="finite-diff", fd_step=-1.0)
-    with pytest.raises(ValueError, match="fd_step"):
-        qg.expect(c, Z, np.array([0.1]), gradient="finite-diff", fd_step=1e-15)
-    with pytest.raises(ValueError, match="fd_kind"):
-        qg.expect(c, Z, np.array([0.1]), fd_kind="backward")
+    with pytest.raises(ValueError, match="step"):
+        qg.expect(c, Z, np.array([0.1]), gradient="difference", step=-1.0)
+    with pytest.raises(ValueError, match="step"):
+        qg.expect(c, Z, np.array([0.1]), gradient="difference", step=1e-15)
+    with pytest.raises(ValueError, match="stencil"):
+        qg.expect(c, Z, np.array([0.1]), stencil="backward")
 
 
 def test_forward_differences_and_steps():
@@ -257,17 +279,17 @@ def test_forward_differences_and_steps():
     exact = ref.gradient(ops, theta, 2, M)
     norm = sum(abs(v) for v in obs.terms.values())      # bounds every derivative of <obs>
     for h in (1e-2, 1e-4):
-        fwd = _grad(c, obs, theta, "finite-diff", fd_kind="forward", fd_step=h)
-        cen = _grad(c, obs, theta, "finite-diff", fd_step=h)
+        fwd = _grad(c, obs, theta, "difference", stencil="forward", step=h)
+        cen = _grad(c, obs, theta, "difference", step=h)
         assert np.abs(fwd - exact).max() < h * norm / 2 + 1e-9
         assert np.abs(cen - exact).max() < h ** 2 * norm / 6 + 1e-9
     # the forward error is really first order: not also below the central bound at h = 1e-2
-    fwd = _grad(c, obs, theta, "finite-diff", fd_kind="forward", fd_step=1e-2)
+    fwd = _grad(c, obs, theta, "difference", stencil="forward", step=1e-2)
     assert np.abs(fwd - exact).max() > 1e-2 ** 2 * norm / 6
 
 
 def test_function_gate_with_shots_uses_a_noise_safe_step():
-    # with shots the default step is 0.1 (as for finite-diff), not 1e-5: 1e5 times less noise.
+    # with shots the default step is 0.1 (as for gradient="difference"), not 1e-5: 1e5 times less noise.
     # <X> after H, RY(a) is cos(a), derivative -sin(a) (expm_frechet reference below); with
     # 4000 shots per value the estimate's standard deviation is below 1/(0.2 sqrt(2 * 4000))
     # = 0.056, plus a truncation bias ~ 0.1**2 / 6; |error| < 0.3 fails with probability < 1e-6

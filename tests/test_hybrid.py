@@ -38,7 +38,7 @@ def _hybrid(c, obs, method):
     return cost
 
 
-@pytest.mark.parametrize("method, order", [("shift", 2), ("adjoint", 2), ("finite-diff", 1)])
+@pytest.mark.parametrize("method, order", [("shift", 2), ("adjoint", 2), ("difference", 1)])
 def test_check_grads_on_hybrid_cost(method, order):
     # autograd.test_util.check_grads: reverse mode against autograd's numerical derivative,
     # order 2 checks the derivative of the derivative as well
@@ -47,7 +47,7 @@ def test_check_grads_on_hybrid_cost(method, order):
     check_grads(_hybrid(c, obs, method), modes=["rev"], order=order)(theta)
 
 
-@pytest.mark.parametrize("method", ["shift", "adjoint", "finite-diff"])
+@pytest.mark.parametrize("method", ["shift", "adjoint", "difference"])
 def test_scipy_check_grad_on_hybrid_cost(method):
     # scipy.optimize.check_grad: forward differences with step sqrt(machine eps)
     _, c, obs, _, theta = _case(1)
@@ -106,10 +106,10 @@ def test_batched_theta(method):
                                    * ref.gradient(ops, T[b], N, Ms[0]), atol=1e-10)
 
 
-@pytest.mark.parametrize("method", ["shift", "adjoint", "finite-diff"])
+@pytest.mark.parametrize("method", ["shift", "adjoint", "difference"])
 def test_probability_vectors(method):
     ops, c, _, _, theta = _case(6)
-    tol = 1e-10 if method != "finite-diff" else 1e-7
+    tol = 1e-10 if method != "difference" else 1e-7
     J = jacobian(lambda t: qg.probabilities(c, t, qubits=[1, 0], gradient=method))(theta)
     np.testing.assert_allclose(J, ref.probabilities_jacobian(ops, theta, N, [1, 0]), atol=tol)
     # probabilities sum to one, so their derivatives sum to zero (common practice)

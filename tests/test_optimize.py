@@ -37,22 +37,22 @@ def energy_parts(a, b):
 def test_gd_step_matches_hand_computation():
     x0 = np.array([0.4, 0.7])
     _, g, _ = energy_parts(*x0)
-    r = minimize_expectation(one_qubit(), Z1, x0, method="gd", steps=1, stepsize=0.3)
+    r = minimize_expectation(one_qubit(), Z1, x0, method="gd", steps=1, rate=0.3)
     assert np.allclose(r.x, x0 - 0.3 * g, atol=1e-12)
     assert np.allclose(r.history["cost"], [np.cos(x0[0]) * np.cos(x0[1]), np.cos(r.x[0]) * np.cos(r.x[1])])
 
 
-def test_adam_first_step_is_stepsize_times_sign():
+def test_adam_first_step_is_rate_times_sign():
     # Kingma and Ba, ICLR 2015, Sec. 2.1: with bias correction the first step is
     # alpha * g / (|g| + eps), i.e. alpha * sign(g) per coordinate
     x0 = np.array([0.4, 0.7])
     _, g, _ = energy_parts(*x0)
-    r = minimize_expectation(one_qubit(), Z1, x0, method="adam", steps=1, stepsize=0.05, eps=1e-12)
+    r = minimize_expectation(one_qubit(), Z1, x0, method="adam", steps=1, rate=0.05, eps=1e-12)
     assert np.allclose(r.x, x0 - 0.05 * np.sign(g), atol=1e-10)
 
 
-@pytest.mark.parametrize("approx", [None, "block-diag"])
-def test_natural_gradient_step_matches_hand_computation(curvature, approx):
+@pytest.mark.parametrize("structure", ["full", "layerwise"])
+def test_natural_gradient_step_matches_hand_computation(curvature, structure):
     # Stokes, Izaac, Killoran and Carleo, Quantum 4, 269 (2020): metric of RY(b) RX(a)|0> is
     # diag(Var_{|0>}(X/2), Var_{RX(a)|0>}(Y/2)) = diag(1/4, cos(a)^2 / 4); the off-diagonal
     # term vanishes because <X> = 0 after RX(a)|0> and <XY> is imaginary (hand computation)
@@ -62,7 +62,7 @@ def test_natural_gradient_step_matches_hand_computation(curvature, approx):
     lam, eta = 0.01, 0.1
     expected = np.array([a, b]) - eta * np.linalg.solve(F + lam * np.eye(2), g)
     r = minimize_expectation(one_qubit(), Z1, np.array([a, b]), method="natural", steps=1,
-                             stepsize=eta, regulariser=lam, approx=approx)
+                             rate=eta, regulariser=lam, metric=structure)
     assert np.allclose(r.x, expected, atol=1e-8)
 
 
@@ -168,7 +168,7 @@ def test_qaoa_p1_on_ring_of_8_reaches_cut_fraction_three_quarters():
     E = models.ring(8)
     C = models.maxcut(E)
     r = minimize_expectation(models.qaoa(E, p=1), C, np.array([0.5, 0.3]), method="adam",
-                             steps=200, stepsize=0.05)
+                             steps=200, rate=0.05)
     fraction = -r.fun / len(E)
     assert fraction == pytest.approx(0.75, abs=1e-6)
     assert fraction <= 0.75 + 1e-9
@@ -197,7 +197,7 @@ def test_variational_search_on_periodic_ising_chain_reaches_pfeuty_energy():
     H = models.ising_chain(n)
     exact = pfeuty_ground_energy(n)
     r = minimize_expectation(models.qaoa(models.ring(n), p=2), H, np.full(4, 0.3), method="adam",
-                             steps=300, stepsize=0.05)
+                             steps=300, rate=0.05)
     assert abs(r.fun - exact) < 1e-3
     assert r.fun >= exact - 1e-12  # variational: never below the ground energy
 
@@ -251,7 +251,7 @@ def test_minimize_generic_cost_with_classical_term():
 
     def cost(t):
         return qg.expect(circ, H, t) + 0.01 * anp.sum(t ** 2)
-    r = minimize(cost, np.full(circ.n_params, 0.3), method="adam", steps=400, stepsize=0.05)
+    r = minimize(cost, np.full(circ.n_params, 0.3), method="adam", steps=400, rate=0.05)
     # scipy's BFGS started from our answer finds nothing lower: a stationary point was reached
     ref = so.minimize(autograd.value_and_grad(cost), r.x, jac=True, method="BFGS")
     assert r.fun <= ref.fun + 1e-5
@@ -262,7 +262,7 @@ def test_minimize_generic_cost_with_classical_term():
 
 
 def test_tolerance_stops_and_reports_success():
-    r = minimize(lambda t: anp.sum((t - 1.0) ** 2), np.zeros(3), method="gd", stepsize=0.25, tol=1e-8)
+    r = minimize(lambda t: anp.sum((t - 1.0) ** 2), np.zeros(3), method="gd", rate=0.25, tol=1e-8)
     assert r.success and r.status == 0 and r.nit < 100
     r = minimize(lambda t: anp.sum((t - 1.0) ** 2), np.zeros(3), method="gd", steps=3)
     assert not r.success and r.status == 1 and r.nit == 3 and "steps=3" in r.message
@@ -293,8 +293,8 @@ def test_bad_input_is_refused_clearly():
         minimize(f, np.ones(2), method="natural")
     with pytest.raises(TypeError, match="unknown"):
         minimize(f, np.ones(2), method="gd", betas=(0.9, 0.9))
-    with pytest.raises(ValueError, match="stepsize"):
-        minimize(f, np.ones(2), method="adam", stepsize=-1.0)
+    with pytest.raises(ValueError, match="rate"):
+        minimize(f, np.ones(2), method="adam", rate=-1.0)
     with pytest.raises(ValueError, match="betas"):
         minimize(f, np.ones(2), method="adam", betas=(0.9, 1.0))
     with pytest.raises(ValueError, match="steps"):
@@ -316,8 +316,8 @@ def test_bad_input_is_refused_clearly():
         minimize_expectation(circ, Z1, np.ones(3))
     with pytest.raises(ValueError, match="observable acts on 2 qubits"):
         minimize_expectation(circ, qg.Observable({"ZZ": 1.0}), np.ones(2))
-    with pytest.raises(ValueError, match="approx"):
-        minimize_expectation(circ, Z1, np.ones(2), method="natural", approx="full")
+    with pytest.raises(ValueError, match="metric"):
+        minimize_expectation(circ, Z1, np.ones(2), method="natural", metric="blocks")
     with pytest.raises(ValueError, match="gradient must be one of"):
         minimize_expectation(circ, Z1, np.ones(2), method="gd", gradient="magic")
     with pytest.raises(ValueError, match="no trainable parameters"):

@@ -47,7 +47,7 @@ def central(f, x, h=1e-5):
 def scenario(noisy=False):
     c = qg.Circuit(2).ry(0).ry(1).cnot(0, 1).rx(0)
     if noisy:
-        c.depolarize(0, 0.08).amplitude_damp(1, 0.12)
+        c.noise(0, qg.channels.depolarizing(0.08)).noise(1, qg.channels.amplitude_damping(0.12))
     H = qg.Observable({"ZZ": 1.0, "XI": 0.6, "IX": -0.4, "YY": 0.3, "ZI": 0.5, "II": 0.25})
     return c, H, np.array([0.5, -0.3, 0.8])
 

@@ -35,7 +35,7 @@ from ..circuits.observables import Observable
 
 __all__ = ["MethodAudit", "GradientReport", "gradients", "METHODS"]
 
-METHODS = ("shift", "adjoint", "finite-diff", "autograd-check")
+METHODS = ("shift", "adjoint", "difference", "autograd-check")
 
 
 @dataclass(frozen=True)
@@ -172,7 +172,7 @@ def gradients(circuit, observable, theta, *, methods=METHODS, shots=None, seed=N
     observable : Observable or list of Observable
     theta : array_like, shape (n_params,)
     methods : sequence of str
-        Any of ``"shift"``, ``"adjoint"``, ``"finite-diff"``, ``"autograd-check"``. The
+        Any of ``"shift"``, ``"adjoint"``, ``"difference"``, ``"autograd-check"``. The
         adjoint gradient is always computed: it is the reference.
     shots : int, optional
         Shots per execution for the shift and finite-difference estimates (the adjoint

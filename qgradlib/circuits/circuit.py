@@ -22,7 +22,6 @@ from numbers import Real
 import autograd.numpy as anp
 import numpy as np
 
-from . import channels as _ch
 from . import gates as _g
 from .channels import Channel
 from .gates import Gate
@@ -275,33 +274,45 @@ class Circuit:
         """expm(-1j * a * ZZ / 2)."""
         return self.add(_g.RZZ, (a, b), param, scale=scale, offset=offset, angle=angle)
 
-    def rot(self, q):
-        """A general single-qubit rotation RZ(c) RY(b) RZ(a): three new parameters a, b, c.
+    def euler(self, q, axes="zyz"):
+        """Three rotations of qubit ``q`` about the named axes: three new parameters.
 
-        Decomposed into gates with two-term rules, so its gradient is exact.
+        ``axes`` is three letters from ``x``, ``y``, ``z`` with no letter next to itself, the
+        first applied first: ``"zyz"`` appends RZ(theta[k]), RY(theta[k+1]), RZ(theta[k+2]).
+        With ``"zyz"`` (and likewise ``"zxz"``, ``"xyx"``, ...) every single-qubit unitary is
+        reached up to a global phase (for Z-Y-Z: Nielsen and Chuang, Theorem 4.1). Each
+        rotation is a two-term gate, so the gradient stays exact.
+
+        Examples
+        --------
+        >>> import qgradlib as qg
+        >>> [op.gate.name for op in qg.Circuit(1).euler(0, axes="xyx").operations]
+        ['RX', 'RY', 'RX']
         """
-        return self.rz(q).ry(q).rz(q)
+        if not isinstance(axes, str) or len(axes) != 3 or set(axes.lower()) - set("xyz") \
+                or any(a == b for a, b in zip(axes.lower(), axes.lower()[1:])):
+            raise ValueError("axes must be three letters from 'x', 'y', 'z' with no letter next "
+                             f"to itself, such as 'zyz', 'zxz' or 'xyx'; got {axes!r}")
+        self._qubits(q, _g.RX)      # check the qubit before appending anything
+        for a in axes.lower():
+            self.add({"x": _g.RX, "y": _g.RY, "z": _g.RZ}[a], q)
+        return self
 
-    # -- noise channels (no angle; see qgradlib.circuits.channels) ------------------------------------
-    def depolarize(self, q, p):
-        """rho -> (1 - p) rho + p I/2 on qubit ``q``."""
-        return self.add(_ch.depolarizing(p), q)
+    # -- noise (a channel from qgradlib.channels; no angle) ------------------------------------
+    def noise(self, qubits, channel):
+        """Append the noise ``channel`` (from `qgradlib.channels`) on ``qubits``.
 
-    def dephase(self, q, p):
-        """rho -> (1 - p) rho + p Z rho Z on qubit ``q``."""
-        return self.add(_ch.dephasing(p), q)
-
-    def bit_flip(self, q, p):
-        """rho -> (1 - p) rho + p X rho X on qubit ``q``."""
-        return self.add(_ch.bit_flip(p), q)
-
-    def amplitude_damp(self, q, gamma):
-        """Decay |1> -> |0> with probability ``gamma`` on qubit ``q``."""
-        return self.add(_ch.amplitude_damping(gamma), q)
-
-    def kraus(self, qubits, operators):
-        """The channel rho -> sum_k K_k rho K_k^dagger on ``qubits`` (completeness checked)."""
-        return self.add(_ch.from_kraus(operators), qubits)
+        Examples
+        --------
+        >>> import qgradlib as qg
+        >>> c = qg.Circuit(2).h(0).noise(0, qg.channels.depolarizing(0.01))
+        >>> c.has_noise
+        True
+        """
+        if not isinstance(channel, Channel):
+            raise TypeError("channel must be a qgradlib Channel, such as "
+                            f"qgradlib.channels.depolarizing(0.01); got {type(channel).__name__}")
+        return self.add(channel, qubits)
 
 
 def _finite(v, name):

@@ -1,4 +1,4 @@
-"""The Fubini-Study metric tensor: exact, block-diagonal and diagonal, and its layers.
+"""The Fubini-Study metric tensor: full, layerwise and diagonal, and its layers.
 
 Exact: from the state derivatives (generator insertion on the simulator); a device would run
 the overlap circuits of the fidelity Hessian, which the ledger records. Block-diagonal and
@@ -23,22 +23,24 @@ from ..engine.measurement import measurement_settings
 from ..circuits.observables import Observable
 from ..circuits.paulis import pauli_matrix
 
-__all__ = ["Layer", "layers", "metric_tensor"]
+__all__ = ["Layer", "layers", "metric_tensor", "STRUCTURES"]
+
+STRUCTURES = ("full", "layerwise", "diagonal")
 
 
 # -- layers of commuting generators ------------------------------------------------------
 @dataclass(frozen=True)
 class Layer:
-    """A layer of the block-diagonal metric (see `layers`).
+    """A layer of the layerwise metric (see `layers`).
 
     Attributes
     ----------
     columns : tuple of int
         The gate-angle columns (indices into ``circuit.parametric_operations``) in the layer.
     settings : tuple of str
-        Measurement bases a device needs for the layer's generator covariances (block-diag).
-    diag_settings : tuple of str
-        Bases for the generator variances alone (diag).
+        Measurement bases a device needs for the layer's generator covariances ("layerwise").
+    variance_settings : tuple of str
+        Bases for the generator variances alone ("diagonal").
     effective : bool
         True for a Hamiltonian or function gate: its effective generator
         ``K = i (dU/da) U^dagger`` is not a Pauli sum of fixed form and is measured in its own
@@ -47,7 +49,7 @@ class Layer:
 
     columns: tuple
     settings: tuple = ()
-    diag_settings: tuple = ()
+    variance_settings: tuple = ()
     effective: bool = False
 
     @property
@@ -55,8 +57,8 @@ class Layer:
         return 1 if self.effective else max(1, len(self.settings))
 
     @property
-    def n_diag_settings(self) -> int:
-        return 1 if self.effective else max(1, len(self.diag_settings))
+    def n_variance_settings(self) -> int:
+        return 1 if self.effective else max(1, len(self.variance_settings))
 
 
 def _embedded(op, support):
@@ -116,7 +118,7 @@ def _bases(words, n):
 
 
 def layers(circuit) -> tuple:
-    """The layers of `metric_tensor`'s block-diagonal and diagonal approximations.
+    """The layers of `metric_tensor`'s layerwise and diagonal structures.
 
     A layer is a maximal run of consecutive *trainable generator gates*, with no other
     operation between them, whose generators commute pairwise as operators on the whole
@@ -198,7 +200,7 @@ def _overlap_plan(circuit, phi, columns):
     return plan, origin
 
 
-def metric_tensor(circuit, theta, approx=None, *, executor=None, chunk=None) -> np.ndarray:
+def metric_tensor(circuit, theta, structure="full", *, executor=None, chunk=None) -> np.ndarray:
     """The Fubini-Study metric tensor of the circuit's output state, shape (m, m).
 
     ``g_ij = Re(<d_i psi|d_j psi> - <d_i psi|psi><psi|d_j psi>)`` in the parameters theta.
@@ -207,16 +209,16 @@ def metric_tensor(circuit, theta, approx=None, *, executor=None, chunk=None) -> 
     ----------
     circuit : Circuit
     theta : array_like, shape (n_params,)
-    approx : None, "block-diag" or "diag"
-        None: exact, from the state derivatives (generator insertion on the simulator).
-        "block-diag": the blocks of the `layers`, as covariances of the layer's generators in
-        the state before the layer, ``<K_i K_j> - <K_i><K_j>``; entries between layers are
-        zero (Stokes, Izaac, Killoran and Carleo, Quantum 4, 269 (2020)). "diag": variances
-        only.
+    structure : {"full", "layerwise", "diagonal"}
+        "full": every entry, exact, from the state derivatives (generator insertion on the
+        simulator). "layerwise": the blocks of the `layers`, as covariances of the layer's
+        generators in the state before the layer, ``<K_i K_j> - <K_i><K_j>``; entries between
+        layers are zero (Stokes, Izaac, Killoran and Carleo, Quantum 4, 269 (2020)).
+        "diagonal": the generator variances only.
     executor : concurrent.futures.Executor or dask.distributed.Client, optional
-        For the exact metric: the state derivatives are computed in chunks of columns on it
-        (see `qgradlib.evaluation.distribute`). The approximations are one pass over one state, with
-        nothing to split: they run here.
+        For the full metric: the state derivatives are computed in chunks of columns on it
+        (see `qgradlib.evaluation.distribute`). The layerwise and diagonal structures are one
+        pass over one state, with nothing to split: they run here.
     chunk : int, optional
         Columns per task on ``executor`` (default: about 4 tasks per worker).
 
@@ -224,7 +226,7 @@ def metric_tensor(circuit, theta, approx=None, *, executor=None, chunk=None) -> 
     -------
     ndarray (m, m)
         The metric in gate-angle space mapped by the chain rule, ``A.T g_phi A``. With an
-        approximation, a parameter shared by gates of different layers collects their
+        layerwise or diagonal structure, a parameter shared by gates of different layers collects their
         blocks through ``A`` (its diagonal entry sums the gates' variances, scaled).
 
     Notes
@@ -232,13 +234,13 @@ def metric_tensor(circuit, theta, approx=None, *, executor=None, chunk=None) -> 
     What a device would run is recorded in the active `qgradlib.Ledger` (no shots are taken
     here: the values are exact simulations):
 
-    - exact: the overlap circuits ``U(phi)^dagger U(phi + x)`` of the fidelity Hessian,
+    - "full": the overlap circuits ``U(phi)^dagger U(phi + x)`` of the fidelity Hessian,
       each measured once in the computational basis (the probability of all zeros): for
       two-term columns ``2 G**2`` circuits for G columns (purpose ``"overlap"``);
-    - "block-diag": one circuit per layer (the circuit up to the layer), measured in every
+    - "layerwise": one circuit per layer (the circuit up to the layer), measured in every
       basis of ``Layer.settings`` (the qubit-wise commuting groups of the words of ``K_i``
       and ``K_i K_j``) (purpose ``"metric"``);
-    - "diag": the same circuits in the bases of ``Layer.diag_settings``.
+    - "diagonal": the same circuits in the bases of ``Layer.variance_settings``.
 
     Examples
     --------
@@ -249,13 +251,13 @@ def metric_tensor(circuit, theta, approx=None, *, executor=None, chunk=None) -> 
     ...     [[0.25, 0.0], [0.0, round(np.sin(0.7) ** 2 / 4, 6)]]
     True
     """
-    if approx not in (None, "block-diag", "diag"):
-        raise ValueError(f"approx must be None, 'block-diag' or 'diag'; got {approx!r}")
+    if not isinstance(structure, str) or structure not in STRUCTURES:
+        raise ValueError(f"structure must be one of {STRUCTURES}; got {structure!r}")
     theta, phi, A = prepare(circuit, theta)
     spec = _spec(circuit, "probs", executor=executor, chunk=chunk)
     columns = spec.columns
     Ac = A[list(columns)] if columns else np.zeros((0, A.shape[1]))
-    if approx is None:
+    if structure == "full":
         g = _exact_metric_phi(circuit, phi, columns, spec.executor, spec.chunk)
         plan, origin = _overlap_plan(circuit, phi, columns)
         count = plan.n_points - len(origin)
@@ -263,9 +265,9 @@ def metric_tensor(circuit, theta, approx=None, *, executor=None, chunk=None) -> 
             _ledger.record(count, 1, 0, {"overlap": count})
     else:
         lays = layers(circuit)
-        g = layer_covariances(circuit, phi, columns, lays, diagonal=approx == "diag")
+        g = layer_covariances(circuit, phi, columns, lays, diagonal=structure == "diagonal")
         for lay in lays:
-            s = lay.n_settings if approx == "block-diag" else lay.n_diag_settings
+            s = lay.n_settings if structure == "layerwise" else lay.n_variance_settings
             _ledger.record(1, s, 0, {"metric": 1})
     return Ac.T @ g @ Ac
 

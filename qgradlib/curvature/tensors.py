@@ -96,14 +96,14 @@ def _check_order(order):
     return int(order)
 
 
-def _tensors(circuit, observables, theta, orders, *, shots, seed, shift, fd_step, splits, memory,
+def _tensors(circuit, observables, theta, orders, *, shots, seed, shift, step, splits, memory,
              executor, chunk):
     theta, phi, A = prepare(circuit, theta)
     obs, single = _observables(observables, circuit.n_qubits)
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, shift=shift,
-                 fd_step=fd_step, splits=splits, memory_budget=memory, executor=executor,
+                 step=step, splits=splits, memory_budget=memory, executor=executor,
                  chunk=chunk)
-    plan = build_plan(circuit, phi, spec.columns, orders, shift=spec.shift, fd_step=spec.fd_step,
+    plan = build_plan(circuit, phi, spec.columns, orders, shift=spec.shift, step=spec.step,
                        shots=spec.shots, splits=spec.splits, rng=spec.rng)
     vals, book = run_plan(plan, spec, phi)
     out = {k: tensor(plan, vals, spec.columns, A, k) for k in orders}
@@ -113,7 +113,7 @@ def _tensors(circuit, observables, theta, orders, *, shots, seed, shift, fd_step
 
 
 def hessian(circuit, observable, theta, *, shots=None, seed=None, memory=None, shift=None,
-            fd_step=None, splits=1, executor=None, chunk=None) -> HessianResult:
+            step=None, splits=1, executor=None, chunk=None) -> HessianResult:
     """Value, gradient and Hessian of an expectation value from one merged shift plan.
 
     Parameters
@@ -129,7 +129,7 @@ def hessian(circuit, observable, theta, *, shots=None, seed=None, memory=None, s
         Bytes the engine may use for one chunk of the batch.
     shift : float in (0, pi), optional
         Two-term shift of single-frequency gates (default pi/2).
-    fd_step : float, optional
+    step : float, optional
         Step of the finite-difference stencils of gates known only by a matrix function.
     splits : int
         With shots, split points sampled per application of the stochastic rule.
@@ -162,18 +162,18 @@ def hessian(circuit, observable, theta, *, shots=None, seed=None, memory=None, s
     (9, (2, 2))
     """
     out, book = _tensors(circuit, observable, theta, (0, 1, 2), shots=shots, seed=seed,
-                         shift=shift, fd_step=fd_step, splits=splits, memory=memory,
+                         shift=shift, step=step, splits=splits, memory=memory,
                          executor=executor, chunk=chunk)
     return HessianResult(_scalar(out[0]), out[1], out[2], book.executions, book.shots)
 
 
 def derivatives(circuit, observable, theta, order=2, *, shots=None, seed=None, memory=None,
-                shift=None, fd_step=None, splits=1, executor=None, chunk=None) -> DerivativeTensors:
+                shift=None, step=None, splits=1, executor=None, chunk=None) -> DerivativeTensors:
     """Every derivative tensor of an expectation value up to ``order``, from one plan.
 
     Parameters
     ----------
-    circuit, observable, theta, shots, seed, memory, shift, fd_step, splits, executor, chunk
+    circuit, observable, theta, shots, seed, memory, shift, step, splits, executor, chunk
         As in `hessian`.
     order : int
         Highest order (1, 2, 3, 4, ...). The tensors of lower orders come with it: their
@@ -200,7 +200,7 @@ def derivatives(circuit, observable, theta, order=2, *, shots=None, seed=None, m
     """
     k = _check_order(order)
     out, book = _tensors(circuit, observable, theta, tuple(range(k + 1)), shots=shots, seed=seed,
-                         shift=shift, fd_step=fd_step, splits=splits, memory=memory,
+                         shift=shift, step=step, splits=splits, memory=memory,
                          executor=executor, chunk=chunk)
     tensors = (_scalar(out[0]),) + tuple(out[j] for j in range(1, k + 1))
     return DerivativeTensors(tensors, k, book.executions, book.shots)

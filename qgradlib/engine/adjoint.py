@@ -126,7 +126,7 @@ def _undo_step(s, both, buf, n, phi, shared, table, P):
     if s.kind == "external":
         raise ValueError(f"the adjoint method cannot undo operation {getattr(s.op.gate, 'name', s.op.gate)!r}: "
                          "it is not a gate; a circuit with noise channels has no pure state and runs "
-                         "on the density-matrix path (use gradient='shift' or 'finite-diff')")
+                         "on the density-matrix path (use gradient='shift' or 'difference')")
     if s.kind == "solo":
         g = s.op.gate
         qs = tuple(s.op.qubits)

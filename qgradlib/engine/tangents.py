@@ -64,7 +64,7 @@ def layer_covariances(circuit, phi, columns, lays, diagonal=False):
     """Stokes et al.'s blocks: generator covariances in the state before each layer.
 
     ``lays`` are the circuit's layers (objects with ``columns`` and ``effective``, see
-    `qgradlib.curvature.metric.layers`); returns the (len(columns), len(columns)) block-diagonal
+    `qgradlib.curvature.metric.layers`); returns the (len(columns), len(columns)) layerwise
     metric in gate-angle space, only the diagonal with ``diagonal=True``.
     """
     n = circuit.n_qubits

@@ -7,7 +7,7 @@ the ``gradient=`` option:
 - ``"shift"``: the shift plan of every trainable column (`qgradlib.rules.plans`) is evaluated as
   one batch *through `evaluate` itself*, so the VJP is again differentiable (a shift of a
   shift) and `autograd.hessian` works;
-- ``"finite-diff"``: central (or forward) differences, also through `evaluate`;
+- ``"difference"``: central (or forward) differences, also through `evaluate`;
 - ``"adjoint"``: the exact adjoint method (simulator only); nested derivatives differentiate
   the adjoint Jacobian by shift rules (`qgradlib.evaluation.adjoint_nested`).
 
@@ -46,7 +46,7 @@ from ..rules.plans import first_order_points
 
 __all__ = ["expect", "probabilities", "state", "density_matrix", "sample", "evaluate", "METHODS"]
 
-METHODS = ("shift", "adjoint", "finite-diff")
+METHODS = ("shift", "adjoint", "difference")
 
 
 @dataclass(frozen=True, eq=False)
@@ -61,8 +61,8 @@ class Spec:
     rng: np.random.Generator | None = None
     gradient: str = "shift"
     shift: float | None = None
-    fd_step: float | None = None
-    fd_kind: str = "central"
+    step: float | None = None
+    stencil: str = "central"
     splits: int = 1
     memory: int | None = None
     columns: tuple = ()
@@ -82,7 +82,7 @@ class Spec:
         return 2 ** k
 
     def rule_options(self):
-        return dict(shift=self.shift, fd_step=self.fd_step, shots=self.shots,
+        return dict(shift=self.shift, step=self.step, shots=self.shots,
                     splits=self.splits, rng=self.rng)
 
 
@@ -168,8 +168,8 @@ def _shift_jacobian(phi, spec, inserts):
 
 def _fd_jacobian(ans, phi, spec, inserts):
     P, G = np.shape(getval(phi))
-    h = spec.fd_step if spec.fd_step is not None else (1e-5 if spec.shots is None else 0.1)
-    steps = (h, -h) if spec.fd_kind == "central" else (h,)
+    h = spec.step if spec.step is not None else (1e-5 if spec.shots is None else 0.1)
+    steps = (h, -h) if spec.stencil == "central" else (h,)
     T = len(steps) * len(spec.columns)
     delta = np.zeros((T, G))
     coeff = np.zeros((G, T))
@@ -183,7 +183,7 @@ def _fd_jacobian(ans, phi, spec, inserts):
     points = anp.reshape(phi[:, None, :] + delta[None], (P * T, G))
     ins = None if inserts is None else [row for row in inserts for _ in range(T)]
     J = _jacobian(points, ins, coeff, names * P, spec, P)
-    if spec.fd_kind == "forward" and T:
+    if spec.stencil == "forward" and T:
         # f'(a) ~ (f(a + h) - f(a)) / h: the value term, reused from the forward pass
         base = np.zeros((G,))
         base[list(spec.columns)] = 1.0 / h
@@ -205,7 +205,7 @@ def _evaluate_vjp(ans, phi, spec, inserts=None, purposes="value"):
     def jac():
         # autograd's jacobian calls one VJP once per output: build the plan only once
         if "J" not in cache:
-            if spec.gradient == "finite-diff":
+            if spec.gradient == "difference":
                 cache["J"] = _fd_jacobian(ans, phi, spec, inserts)
             else:
                 cache["J"] = _shift_jacobian(phi, spec, inserts)
@@ -274,7 +274,7 @@ def _check_qubits(qubits, n):
 
 
 def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, gradient="shift",
-          shift=None, fd_step=None, fd_kind="central", splits=1, memory_budget=None,
+          shift=None, step=None, stencil="central", splits=1, memory_budget=None,
           allocation="uniform", readout=None, fuse=True, executor=None, chunk=None):
     if gradient not in METHODS:
         raise ValueError(f"gradient must be one of {METHODS}; got {gradient!r}")
@@ -285,7 +285,7 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
     if gradient == "adjoint" and circuit.has_noise:
         raise ValueError("gradient='adjoint' runs on pure states and cannot differentiate a circuit "
                          "with noise channels; use gradient='shift' (exact for noise that does not "
-                         "depend on the angles) or 'finite-diff'")
+                         "depend on the angles) or 'difference'")
     if allocation not in ALLOCATIONS:
         raise ValueError(f"allocation must be one of {ALLOCATIONS}; got {allocation!r}")
     readout = check_readout(readout, circuit.n_qubits)
@@ -298,13 +298,13 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
         if not isinstance(shift, Real) or not 0 < float(shift) < np.pi:
             raise ValueError(f"shift must be a number in the open interval (0, pi); got {shift!r}")
         shift = float(shift)
-    if fd_step is not None:
-        if not isinstance(fd_step, Real) or not np.isfinite(fd_step) or fd_step < 1e-12:
-            raise ValueError("fd_step must be a finite number of at least 1e-12 (smaller steps are "
-                             f"lost in the rounding of angles); got {fd_step!r}")
-        fd_step = float(fd_step)
-    if fd_kind not in ("central", "forward"):
-        raise ValueError(f"fd_kind must be 'central' or 'forward'; got {fd_kind!r}")
+    if step is not None:
+        if not isinstance(step, Real) or not np.isfinite(step) or step < 1e-12:
+            raise ValueError("step must be a finite number of at least 1e-12 (smaller steps are "
+                             f"lost in the rounding of angles); got {step!r}")
+        step = float(step)
+    if stencil not in ("central", "forward"):
+        raise ValueError(f"stencil must be 'central' or 'forward'; got {stencil!r}")
     if isinstance(splits, bool) or not isinstance(splits, (int, np.integer)) or splits < 1:
         raise ValueError(f"splits must be a positive int; got {splits!r}")
     if memory_budget is not None and (not isinstance(memory_budget, (int, np.integer)) or memory_budget < 1):
@@ -317,7 +317,7 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
     # a guard at the call that asks for the state, not deep inside the engine
     _guard(circuit)
     return Spec(circuit, kind, observables, qubits, shots,
-                make_rng(seed) if shots is not None else None, gradient, shift, fd_step, fd_kind,
+                make_rng(seed) if shots is not None else None, gradient, shift, step, stencil,
                 int(splits), memory_budget, columns, max(1, settings), allocation, readout, plan,
                 _check_fuse(fuse), executor=executor, chunk=chunk)
 
@@ -339,7 +339,7 @@ def _run(spec, theta):
 
 # -- public functions ---------------------------------------------------------------------------
 def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shift", shift=None,
-           fd_step=None, fd_kind="central", splits=1, memory=None, allocation="uniform", readout=None,
+           step=None, stencil="central", splits=1, memory=None, allocation="uniform", readout=None,
            fuse=True, executor=None, chunk=None):
     """Expectation value(s) of ``observables`` after ``circuit`` at parameters ``theta``.
 
@@ -357,13 +357,13 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
         With ``allocation="uniform"`` every setting gets exactly ``shots``.
     seed : int or numpy.random.Generator, optional
         Randomness for shots and for the stochastic rule's split points.
-    gradient : {"shift", "adjoint", "finite-diff"}
+    gradient : {"shift", "adjoint", "difference"}
         How autograd differentiates this call ("adjoint" is refused for noisy circuits).
     shift : float in (0, pi), optional
         Shift ``s`` of the two-term rule for single-frequency gates (default pi/2).
-    fd_step : float, optional
+    step : float, optional
         Finite-difference step (default 1e-5 exact, 0.1 with shots).
-    fd_kind : {"central", "forward"}
+    stencil : {"central", "forward"}
     splits : int
         With shots, split points sampled per Hamiltonian gate for the stochastic rule.
     memory : int, optional
@@ -410,7 +410,7 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     obs, single = _observables(observables, circuit.n_qubits)
     check_theta(circuit, theta)
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
-                 shift=shift, fd_step=fd_step, fd_kind=fd_kind, splits=splits, memory_budget=memory,
+                 shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
                  allocation=allocation, readout=readout, fuse=fuse, executor=executor, chunk=chunk)
     vals, batched = _run(spec, theta)
     if single:
@@ -419,7 +419,7 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
 
 
 def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradient="shift",
-                  shift=None, fd_step=None, fd_kind="central", splits=1, memory=None, readout=None,
+                  shift=None, step=None, stencil="central", splits=1, memory=None, readout=None,
                   fuse=True, executor=None, chunk=None):
     """Probabilities of the outcomes on ``qubits`` (first listed = most significant bit).
 
@@ -439,7 +439,7 @@ def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradien
     qs = _check_qubits(qubits, circuit.n_qubits)
     check_theta(circuit, theta)
     spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
-                 shift=shift, fd_step=fd_step, fd_kind=fd_kind, splits=splits, memory_budget=memory,
+                 shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
                  readout=readout, fuse=fuse, executor=executor, chunk=chunk)
     vals, batched = _run(spec, theta)
     return vals if batched else vals[0]
@@ -478,7 +478,7 @@ def density_matrix(circuit, theta) -> np.ndarray:
     --------
     >>> import numpy as np
     >>> import qgradlib as qg
-    >>> rho = qg.density_matrix(qg.Circuit(1).h(0).dephase(0, 0.25), np.zeros(0))
+    >>> rho = qg.density_matrix(qg.Circuit(1).h(0).noise(0, qg.channels.dephasing(0.25)), np.zeros(0))
     >>> rho.real.round(3).tolist()
     [[0.5, 0.25], [0.25, 0.5]]
     """

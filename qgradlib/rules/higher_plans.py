@@ -45,14 +45,14 @@ def _reduce(x, period):
     return -period / 2 if x >= period / 2 - _KEY_TOL else x
 
 
-def _column_rules(circuit, phi, columns, max_order, *, shift, fd_step, shots, splits, rng):
+def _column_rules(circuit, phi, columns, max_order, *, shift, step, shots, splits, rng):
     """rules[c][k] = [(shift, cuts, weight), ...] for d^k/dphi_c^k, k = 0..max_order."""
     pops = circuit.parametric_operations
     rules = {}
     for c in columns:
         g = pops[c].gate
         if g.kind in ("generator", "function"):
-            st = gate_stencil(g, max_order, shift=shift, fd_step=fd_step)
+            st = gate_stencil(g, max_order, shift=shift, step=step)
             rules[c] = [[(x, (), w) for x, w in st.rule(k)] for k in range(max_order + 1)]
             continue
         # Hamiltonian gate: first order from the package's stochastic rule, then Duhamel again
@@ -66,12 +66,12 @@ def _column_rules(circuit, phi, columns, max_order, *, shift, fd_step, shots, sp
     return rules
 
 
-def build_plan(circuit, phi, columns, orders, *, shift=None, fd_step=None, shots=None,
+def build_plan(circuit, phi, columns, orders, *, shift=None, step=None, shots=None,
                 splits=1, rng=None) -> Plan:
     """Merge the tensor-product rules of every multiset of ``columns`` of the given orders."""
     pops = circuit.parametric_operations
     G = len(pops)
-    rules = _column_rules(circuit, phi, columns, max(orders), shift=shift, fd_step=fd_step,
+    rules = _column_rules(circuit, phi, columns, max(orders), shift=shift, step=step,
                           shots=shots, splits=splits, rng=rng)
     index, deltas, inserts, purposes, entries = {}, [], [], [], {}
     for k in orders:

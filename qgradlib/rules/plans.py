@@ -79,7 +79,7 @@ def piecewise_quadrature(spread, breaks):
     return np.concatenate(nodes), np.concatenate(weights)
 
 
-def column_terms(circuit, column: int, angles, *, shift=None, fd_step=None, shots=None,
+def column_terms(circuit, column: int, angles, *, shift=None, step=None, shots=None,
                  splits=1, rng=None, breaks=()) -> list:
     """The terms of d/dphi[column] (angles: that column's values over the rows).
 
@@ -104,8 +104,8 @@ def column_terms(circuit, column: int, angles, *, shift=None, fd_step=None, shot
         return out
     if g.kind == "function":
         warn_approximate(g)
-        # with shots a tiny step would amplify the noise by 1/h: the same default as finite-diff
-        h = fd_step if fd_step is not None else (1e-5 if shots is None else 0.1)
+        # with shots a tiny step would amplify the noise by 1/h: the same default as gradient="difference"
+        h = step if step is not None else (1e-5 if shots is None else 0.1)
         return [Term(column, h, None, 1 / (2 * h)), Term(column, -h, None, -1 / (2 * h))]
     raise AssertionError(g.kind)
 

@@ -137,7 +137,7 @@ def fd_stencil(max_order: int, step: float) -> Stencil:
     return Stencil(j * h, _clean(W), False)
 
 
-def gate_stencil(gate, max_order: int, *, shift=None, fd_step=None) -> Stencil:
+def gate_stencil(gate, max_order: int, *, shift=None, step=None) -> Stencil:
     """The stencil of a generator gate (exact) or a function gate (finite differences).
 
     ``shift`` selects the two-term shift of single-frequency gates, as in `qgradlib.expect`.
@@ -151,7 +151,7 @@ def gate_stencil(gate, max_order: int, *, shift=None, fd_step=None) -> Stencil:
         return trig_stencil(gate.frequencies, rule.shifts, K)
     if gate.kind == "function":
         warn_approximate(gate)
-        h = fd_step if fd_step is not None else float(np.finfo(float).eps ** (1.0 / (K + 2)))
+        h = step if step is not None else float(np.finfo(float).eps ** (1.0 / (K + 2)))
         return fd_stencil(K, h)
     raise ValueError(f"gate {gate.name!r} of kind {gate.kind!r} has no finite stencil; "
                      "Hamiltonian gates use duhamel_rule")

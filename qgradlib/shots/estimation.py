@@ -196,7 +196,7 @@ def estimate_gradient(circuit, observables, theta, *, shots, seed=None, allocati
     --------
     >>> import numpy as np
     >>> import qgradlib as qg
-    >>> c = qg.Circuit(2).ry(0).cnot(0, 1).depolarize(1, 0.05).ry(1)
+    >>> c = qg.Circuit(2).ry(0).cnot(0, 1).noise(1, qg.channels.depolarizing(0.05)).ry(1)
     >>> r = qg.estimate_gradient(c, qg.Observable({"ZZ": 1.0}), np.array([0.2, 0.9]),
     ...                          shots=400, seed=0)
     >>> r.gradient.shape, r.circuits, r.shots

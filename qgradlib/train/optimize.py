@@ -5,13 +5,13 @@ values plus classical terms, for instance). `minimize_expectation` trains one ex
 value and can use the circuit itself: its metric tensor, its shift-rule Hessian, or the
 sinusoidal shape of the cost in each parameter.
 
-- ``"gd"``: ``x - stepsize * g``;
+- ``"gd"``: ``x - rate * g``;
 - ``"adam"``: bias-corrected moment estimates (Kingma and Ba, ICLR 2015);
 - ``"spsa"``: a random two-evaluation gradient estimate (Spall, IEEE Trans. Autom. Control
   37, 332 (1992));
-- ``"natural"`` (needs the circuit): ``x - stepsize * (F + regulariser I)^-1 g`` with F the
+- ``"natural"`` (needs the circuit): ``x - rate * (F + regulariser I)^-1 g`` with F the
   metric tensor (Stokes, Izaac, Killoran and Carleo, Quantum 4, 269 (2020));
-- ``"newton"`` (needs the circuit): ``x - stepsize * (H + mu I)^-1 g`` with the shift-rule
+- ``"newton"`` (needs the circuit): ``x - rate * (H + mu I)^-1 g`` with the shift-rule
   Hessian H and Levenberg-Marquardt damping mu;
 - ``"rotosolve"`` (needs the circuit): the exact minimum in one parameter at a time from three
   evaluations (Ostaszewski, Grant and Benedetti, Quantum 5, 391 (2021)).
@@ -32,7 +32,7 @@ Examples
 >>> round(r.fun, 10), r.nit
 (-1.0, 1)
 >>> r = qg.optimize.minimize(lambda t: qg.expect(c, Z, t), np.array([0.5]), method="adam",
-...                          steps=300, stepsize=0.1)
+...                          steps=300, rate=0.1)
 >>> bool(abs(r.fun + 1.0) < 1e-6), r.executions > 0
 (True, True)
 """
@@ -59,15 +59,17 @@ __all__ = ["minimize", "minimize_expectation", "METHODS"]
 
 METHODS = ("gd", "adam", "spsa", "natural", "newton", "rotosolve")
 _NEEDS_CIRCUIT = ("natural", "newton", "rotosolve")
+# the structures of curvature.metric_tensor (named here: train may not import curvature at load)
+_STRUCTURES = ("full", "layerwise", "diagonal")
 
 # Defaults per method. Step sizes suit costs of order one with angles in radians.
 _DEFAULTS = {
-    "gd": {"stepsize": 0.1, "tol": 1e-6},
-    "adam": {"stepsize": 0.05, "betas": (0.9, 0.999), "eps": 1e-8, "tol": 1e-6},
-    "spsa": {"stepsize": 0.2, "perturbation": 0.1, "alpha": 0.602, "gamma": 0.101,
+    "gd": {"rate": 0.1, "tol": 1e-6},
+    "adam": {"rate": 0.05, "betas": (0.9, 0.999), "eps": 1e-8, "tol": 1e-6},
+    "spsa": {"rate": 0.2, "perturbation": 0.1, "alpha": 0.602, "gamma": 0.101,
              "stability": None},
-    "natural": {"stepsize": 0.05, "regulariser": 1e-3, "approx": "block-diag", "tol": 1e-6},
-    "newton": {"stepsize": 1.0, "damping": 1e-2, "tol": 1e-6},
+    "natural": {"rate": 0.05, "regulariser": 1e-3, "metric": "full", "tol": 1e-6},
+    "newton": {"rate": 1.0, "damping": 1e-2, "tol": 1e-6},
     "rotosolve": {"tol": 1e-6},
 }
 _EXPECTATION_ONLY = {"gd": ("gradient",), "adam": ("gradient",), "natural": ("gradient",)}
@@ -101,8 +103,8 @@ def minimize(cost, theta0, *, method="adam", steps=100, callback=None, progress=
         Randomness of the methods that draw random numbers ("spsa"); "gd" and "adam" are
         deterministic and draw none.
     **options
-        Per method, with defaults: gd ``stepsize=0.1, tol=1e-6``; adam ``stepsize=0.05,
-        betas=(0.9, 0.999), eps=1e-8, tol=1e-6``; spsa ``stepsize=0.2 (a),
+        Per method, with defaults: gd ``rate=0.1, tol=1e-6``; adam ``rate=0.05,
+        betas=(0.9, 0.999), eps=1e-8, tol=1e-6``; spsa ``rate=0.2 (a),
         perturbation=0.1 (c), alpha=0.602, gamma=0.101, stability=steps/10 (A)``, with gains
         ``a / (k + 1 + A)**alpha`` and ``c / (k + 1)**gamma``; spsa has no tolerance test.
 
@@ -118,7 +120,7 @@ def minimize(cost, theta0, *, method="adam", steps=100, callback=None, progress=
     --------
     >>> import numpy as np
     >>> import autograd.numpy as anp
-    >>> r = minimize(lambda t: anp.sum((t - 1.0) ** 2), np.zeros(2), method="gd", stepsize=0.25)
+    >>> r = minimize(lambda t: anp.sum((t - 1.0) ** 2), np.zeros(2), method="gd", rate=0.25)
     >>> r.success, np.round(r.x, 6).tolist()
     (True, [1.0, 1.0])
     """
@@ -173,10 +175,11 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
         Where the circuits of every value, gradient, metric and Hessian run (see
         `qgradlib.evaluation.distribute`); the numbers and the ledger are those of a serial run.
     **options
-        Those of `minimize`, plus ``gradient="shift"`` ("adjoint", "finite-diff") for gd,
-        adam and natural, and: natural ``stepsize=0.05, regulariser=1e-3,
-        approx="block-diag"`` (None for the full metric tensor, or "diag"), ``tol=1e-6``;
-        newton ``stepsize=1.0, damping=1e-2, tol=1e-6``; rotosolve ``tol=1e-6``.
+        Those of `minimize`, plus ``gradient="shift"`` ("adjoint", "difference") for gd,
+        adam and natural, and: natural ``rate=0.05, regulariser=1e-3,
+        metric="full"`` ("layerwise" or "diagonal" for the cheaper structures of
+        `qgradlib.curvature.metric_tensor`), ``tol=1e-6``;
+        newton ``rate=1.0, damping=1e-2, tol=1e-6``; rotosolve ``tol=1e-6``.
 
     Returns
     -------
@@ -296,7 +299,7 @@ def _options(method, options, steps, expectation):
         raise TypeError(f"method={method!r} takes the options {sorted(allowed)}; "
                         f"got unknown {unknown}")
     o = {**allowed, **options}
-    for key in ("stepsize", "eps", "perturbation", "damping"):
+    for key in ("rate", "eps", "perturbation", "damping"):
         if key in o:
             o[key] = _positive(key, o[key])
     for key in ("tol", "regulariser"):
@@ -314,8 +317,8 @@ def _options(method, options, steps, expectation):
                 isinstance(v, Real) and not isinstance(v, bool) and 0 <= v < 1 for v in b):
             raise ValueError(f"betas must be a pair of numbers in [0, 1), such as (0.9, 0.999); got {b!r}")
         o["betas"] = (float(b[0]), float(b[1]))
-    if "approx" in o and o["approx"] not in (None, "block-diag", "diag"):
-        raise ValueError(f"approx must be None, 'block-diag' or 'diag'; got {o['approx']!r}")
+    if "metric" in o and (not isinstance(o["metric"], str) or o["metric"] not in _STRUCTURES):
+        raise ValueError(f"metric must be one of {_STRUCTURES}; got {o['metric']!r}")
     return o
 
 
@@ -428,7 +431,7 @@ def _first_order_method(method, problem, m, o, rng):
     """``(evaluate(x, k) -> (value, gradient), update(x, v, g, k) -> step to subtract)``."""
     evaluate = lambda x, k: problem.value_and_grad(x)  # noqa: E731
     if method == "gd":
-        return evaluate, lambda x, v, g, k: o["stepsize"] * g
+        return evaluate, lambda x, v, g, k: o["rate"] * g
     if method == "adam":
         b1, b2 = o["betas"]
         mom = {"m": np.zeros(m), "v": np.zeros(m)}
@@ -438,7 +441,7 @@ def _first_order_method(method, problem, m, o, rng):
             mom["v"] = b2 * mom["v"] + (1 - b2) * g * g
             mhat = mom["m"] / (1 - b1 ** (k + 1))
             vhat = mom["v"] / (1 - b2 ** (k + 1))
-            return o["stepsize"] * mhat / (np.sqrt(vhat) + o["eps"])
+            return o["rate"] * mhat / (np.sqrt(vhat) + o["eps"])
         return evaluate, adam
     if method == "natural":
         from .. import curvature
@@ -446,10 +449,10 @@ def _first_order_method(method, problem, m, o, rng):
         circuit = problem.circuit_parts[0]
 
         def natural(x, v, g, k):
-            F = np.asarray(curvature.metric_tensor(circuit, x, approx=o["approx"], **problem.where),
+            F = np.asarray(curvature.metric_tensor(circuit, x, o["metric"], **problem.where),
                            dtype=float)
             A = F + o["regulariser"] * np.eye(m)
-            return o["stepsize"] * np.linalg.lstsq(A, g, rcond=None)[0]
+            return o["rate"] * np.linalg.lstsq(A, g, rcond=None)[0]
         return evaluate, natural
     if method == "spsa":
         def spsa_evaluate(x, k):
@@ -457,7 +460,7 @@ def _first_order_method(method, problem, m, o, rng):
             return spsa_estimate(problem.values, x, c_k, rng)
 
         def spsa_update(x, v, g, k):
-            return o["stepsize"] / (k + 1 + o["stability"]) ** o["alpha"] * g
+            return o["rate"] / (k + 1 + o["stability"]) ** o["alpha"] * g
         return spsa_evaluate, spsa_update
     raise AssertionError(method)
 
@@ -497,7 +500,7 @@ def _newton(problem, x, steps, trace, o):
             return x, v, g, k, 1
         w, V = np.linalg.eigh(0.5 * (H + H.T))
         shift = mu + max(0.0, -float(w.min()))
-        trial = x - o["stepsize"] * (V @ ((V.T @ g) / (w + shift)))
+        trial = x - o["rate"] * (V @ ((V.T @ g) / (w + shift)))
         if problem.values(trial[None])[0] < v:
             x, here = trial, None
             mu = max(mu / 10, 1e-8)
@@ -509,7 +512,7 @@ def _newton(problem, x, steps, trace, o):
 def _rotosolve(problem, x, steps, trace, o):
     circuit = problem.circuit_parts[0]
     exact = problem.circuit_parts[2] is None
-    freqs = _roto.parameter_frequencies(circuit)
+    freqs = _roto.frequencies_by_parameter(circuit)
     active = [p for p, w in enumerate(freqs) if w is not None]
     x = x.copy()
     e = float(problem.values(x[None])[0])

@@ -23,7 +23,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["sinusoid_minimum", "parameter_frequencies"]
+__all__ = ["sinusoid_minimum", "frequencies_by_parameter"]
 
 
 def sinusoid_minimum(e0, e_plus, e_minus, x0, frequency):
@@ -55,7 +55,7 @@ def sinusoid_minimum(e0, e_plus, e_minus, x0, frequency):
     return float(x0 + u / frequency), float(a - np.hypot(b, c)), float(frequency * c)
 
 
-def parameter_frequencies(circuit):
+def frequencies_by_parameter(circuit):
     """For each parameter, the frequency of the expectation value in it, or None if unused.
 
     Raises ValueError naming the first parameter for which the closed form does not hold.
