@@ -2,9 +2,11 @@
 
 Options: ``--quick`` (small sizes, a smoke run), ``--repeats R``, ``--out PATH`` (JSON
 results), ``--markdown PATH`` (the table as Markdown), ``--plot PATH`` (the cost-growth PNG;
-``--no-plot`` to skip it), ``--only KEYS`` (some figures), ``--threads T``
-(BLAS threads, default 1: the baselines are single-threaded NumPy loops, and on a shared
-two-core machine a second BLAS thread mostly adds noise).
+``--no-plot`` to skip it), ``--only KEYS`` (some figures), ``--threads T`` (pin BLAS to T
+threads through OPENBLAS/OMP/MKL_NUM_THREADS; by default the environment is left as the user
+has it, which is what the targets are about), ``--no-jax`` (skip the JAX comparison rows),
+``--environments`` (every timing row with the BLAS variables unset and set to one, on an idle
+machine and next to one busy process: `benchmarks.environments`).
 """
 from __future__ import annotations
 
@@ -21,21 +23,29 @@ def _parse(argv):
     p.add_argument("--plot", default=None, help="cost-growth PNG (default docs/img/cost_growth.png; "
                    "quick: benchmarks/results/cost_growth_quick.png)")
     p.add_argument("--no-plot", action="store_true", help="skip the cost-growth measurements and plot")
-    p.add_argument("--threads", type=int, default=1, help="BLAS threads (default 1)")
+    p.add_argument("--threads", type=int, default=None,
+                   help="pin BLAS threads (default: leave the environment as it is)")
+    p.add_argument("--no-jax", action="store_true", help="skip the JAX comparison rows")
+    p.add_argument("--environments", action="store_true",
+                   help="timing rows with BLAS variables unset vs set to 1, idle and busy")
     p.add_argument("--only", default=None, help="comma-separated figure keys to run")
     p.add_argument("--markdown", default=None, help="also write the table as Markdown to this path")
     args = p.parse_args(argv)
     if args.repeats is not None and args.repeats < 1:
         p.error("--repeats must be a positive int")
-    if args.threads < 1:
+    if args.threads is not None and args.threads < 1:
         p.error("--threads must be a positive int")
     return args
 
 
 def main(argv=None):
     args = _parse(sys.argv[1:] if argv is None else argv)
-    for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
-        os.environ[var] = str(args.threads)
+    if args.environments:
+        from .environments import main as environments
+        return environments(args)
+    if args.threads is not None:
+        for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
+            os.environ[var] = str(args.threads)
     # imports after the thread settings: BLAS reads them when NumPy loads
     import json
     import platform
@@ -43,7 +53,8 @@ def main(argv=None):
 
     import numpy as np
 
-    from .figures import FIGURES, SIZES
+    from .figures import FIGURES, OPTIONS, SIZES
+    OPTIONS["jax"] = not args.no_jax
     from .growth import measure, plot
 
     mode = "quick" if args.quick else "full"
@@ -54,7 +65,7 @@ def main(argv=None):
         (args.plot or os.path.join(root, "benchmarks", "results", "cost_growth_quick.png"))
     machine = _machine(np, platform, args.threads)
     print(f"qgradlib benchmarks ({mode}, {repeats} repeats) on {machine['cpu']} "
-          f"({machine['nproc']} cores), numpy {machine['numpy']}, BLAS threads {args.threads}")
+          f"({machine['nproc']} cores), numpy {machine['numpy']}, BLAS {machine['blas_threads']}")
     print("Times are simulation on this CPU, not device measurements.\n")
     keys = None if args.only is None else set(args.only.split(","))
     sz = SIZES[mode]
@@ -64,9 +75,10 @@ def main(argv=None):
         if keys is not None and fig.__name__ not in keys and _key(fig) not in keys:
             continue
         mem = fig.__name__.endswith("memory")
-        r = fig(sz, 1 if (mem and args.quick) else (min(repeats, 2) if mem else repeats))
-        results.append(r)
-        _print(r)
+        got = fig(sz, 1 if (mem and args.quick) else (min(repeats, 2) if mem else repeats))
+        for r in (got if isinstance(got, list) else [got]):
+            results.append(r)
+            _print(r)
     growth = None
     if not args.no_plot and keys is None:
         growth = measure(mode, repeats)
@@ -94,6 +106,9 @@ def _key(fig):
 
 def _print(r):
     unit = {"ratio": "x", "states": " states", "us": " us"}[r["unit"]]
+    if r.get("skipped"):
+        print(f"{r['figure']}\n    skipped: {r['skipped']}  (target {r['op']} {r['target']:g}{unit})")
+        return
     ok = "met" if r["met"] else "NOT met"
     print(f"{r['figure']}\n    median {r['median']:.3g}{unit}  (min {r['min']:.3g}, max {r['max']:.3g}, "
           f"IQR {r['q1']:.3g}-{r['q3']:.3g}, {len(r['samples'])} repeats)  target {r['op']} "
@@ -113,9 +128,14 @@ def _machine(np, platform, threads):
                     break
     except OSError:
         pass
+    pinned = {v: os.environ[v] for v in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
+              if v in os.environ}
+    blas = ("pinned to " + str(threads) + " thread(s)") if threads is not None else \
+        ("environment: " + ", ".join(f"{k}={v}" for k, v in pinned.items()) if pinned
+         else "default environment (no thread variables set)")
     return {"cpu": cpu, "nproc": os.cpu_count(), "numpy": np.__version__,
             "python": platform.python_version(), "platform": platform.platform(),
-            "blas_threads": threads}
+            "blas_threads": blas}
 
 
 if __name__ == "__main__":

@@ -8,7 +8,7 @@ import numpy as np
 
 import qgradlib as qg
 
-__all__ = ["layered", "ising", "ising_terms", "angles"]
+__all__ = ["layered", "ring", "ising", "ising_terms", "angles"]
 
 
 def layered(n: int, layers: int, trainable: int | None = None) -> qg.Circuit:
@@ -25,6 +25,17 @@ def layered(n: int, layers: int, trainable: int | None = None) -> qg.Circuit:
             k += 1
         for q in range(n - 1):
             c.cz(q, q + 1)
+    return c
+
+
+def ring(n: int, layers: int) -> qg.Circuit:
+    """Layers of RY on every qubit and CZ around the ring: 2 n gates and n parameters a layer."""
+    c = qg.Circuit(n)
+    for _ in range(layers):
+        for q in range(n):
+            c.ry(q)
+        for q in range(n):
+            c.cz(q, (q + 1) % n)
     return c
 
 

@@ -5,34 +5,52 @@ import json
 import os
 import subprocess
 import sys
+import time
 
 import numpy as np
 from autograd import grad
 
 import qgradlib as qg
 
-from .circuits import angles, ising, ising_terms, layered
+from . import jax_sim
+from .circuits import angles, ising, ising_terms, layered, ring
 from .plain_sim import layered_energy
 from .timing import paired, summary
 
-__all__ = ["FIGURES", "SIZES"]
+__all__ = ["FIGURES", "SIZES", "OPTIONS"]
+
+# switched by the command line: {"jax": False} skips the JAX rows (with a message)
+OPTIONS = {"jax": True}
 
 # full and quick sizes of every workload
 SIZES = {
     "full": {"gate_n": 22, "gate_layers": 2, "adj_n": 16, "adj_layers": 4, "shift_n": 10,
              "shift_layers": 4, "fwd_mem_n": 26, "adj_mem_n": 24, "mem_layers": 1,
-             "overhead_layers": 300, "min_time": 0.05},
+             "overhead_layers": 300, "min_time": 0.05, "roto_layers": 50,
+             "jax_qubits": [4, 6, 8, 10, 12, 14, 16], "jax_layers": 3, "jax_shift": (6, 5),
+             "first": (10, 5)},
     "quick": {"gate_n": 12, "gate_layers": 2, "adj_n": 8, "adj_layers": 4, "shift_n": 6,
               "shift_layers": 4, "fwd_mem_n": 12, "adj_mem_n": 10, "mem_layers": 1,
-              "overhead_layers": 20, "min_time": 0.002},
+              "overhead_layers": 20, "min_time": 0.002, "roto_layers": 2,
+              "jax_qubits": [3], "jax_layers": 1, "jax_shift": (3, 1), "first": (4, 1)},
 }
 
 
-def _result(key, figure, target, op, samples, unit="ratio", **details):
+def _result(key, figure, target, op, samples, unit="ratio", seconds=None, **details):
+    """One row; ``seconds`` (per-repeat times of the target) feeds the environments table."""
     s = summary(samples)
     met = s["median"] <= target if op == "<=" else s["median"] >= target
+    out = {"key": key, "figure": figure, "target": target, "op": op, "unit": unit,
+           "met": bool(met), **s, "details": details}
+    if seconds is not None:
+        out["seconds"] = float(np.median(seconds))
+    return out
+
+
+def _skipped(key, figure, target, op, reason, unit="ratio"):
+    """A row that could not run here, with the reason printed in its place."""
     return {"key": key, "figure": figure, "target": target, "op": op, "unit": unit,
-            "met": bool(met), **s, "details": details}
+            "skipped": reason, "met": None, "details": {}}
 
 
 def gate_pass(sz, repeats):
@@ -46,7 +64,7 @@ def gate_pass(sz, repeats):
     t, b = paired(lambda: qg.state(c, theta), base, repeats, sz["min_time"])
     tu, bu = paired(lambda: qg.state(c, theta, fuse=False), base, repeats, sz["min_time"])
     return _result("gate_pass", f"layered circuit, n = {n}: time per gate / one state pass", 2.0,
-                   "<=", t / G / b, gates=G, seconds_per_gate=float(np.median(t) / G),
+                   "<=", t / G / b, seconds=t, gates=G, seconds_per_gate=float(np.median(t) / G),
                    seconds_per_pass=float(np.median(b)),
                    unfused_ratio=float(np.median(tu / G / bu)))
 
@@ -63,7 +81,7 @@ def adjoint_forward(sz, repeats):
     adj = lambda: grad(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)  # noqa: E731
     t, b = paired(adj, fwd, repeats, sz["min_time"])
     return _result("adjoint_forward", f"adjoint gradient / forward value, n = {n}, {L} layers "
-                   f"(m = {c.n_params})", 4.0, "<=", t / b, m=c.n_params,
+                   f"(m = {c.n_params})", 4.0, "<=", t / b, seconds=t, m=c.n_params,
                    seconds_adjoint=float(np.median(t)), seconds_forward=float(np.median(b)))
 
 
@@ -74,7 +92,7 @@ def shift_forward(sz, repeats):
     sh = lambda: grad(lambda t: qg.expect(c, H, t))(theta)  # noqa: E731
     t, b = paired(sh, fwd, repeats, sz["min_time"])
     return _result("shift_forward", f"shift-rule gradient / forward value, n = {n}, {L} layers "
-                   f"(m = {c.n_params})", 15.0, "<=", t / b, m=c.n_params,
+                   f"(m = {c.n_params})", 15.0, "<=", t / b, seconds=t, m=c.n_params,
                    circuits=2 * c.n_params + 1, seconds_shift=float(np.median(t)),
                    seconds_forward=float(np.median(b)))
 
@@ -88,7 +106,7 @@ def backprop_adjoint(sz, repeats):
     diff = float(np.max(np.abs(adj() - bp())))
     t, b = paired(bp, adj, repeats, sz["min_time"])
     return _result("backprop_adjoint", f"autograd backprop through a plain tensordot simulator / "
-                   f"our adjoint gradient, n = {n}, m = {c.n_params}", 4.0, ">=", t / b,
+                   f"our adjoint gradient, n = {n}, m = {c.n_params}", 4.0, ">=", t / b, seconds=b,
                    max_gradient_difference=diff, seconds_backprop=float(np.median(t)),
                    seconds_adjoint=float(np.median(b)))
 
@@ -132,10 +150,146 @@ def overhead(sz, repeats):
     base = lambda: np.multiply(a, 1.0001, out=o)  # noqa: E731
     t, b = paired(lambda: qg.expect(c, H, theta), base, repeats, sz["min_time"])
     return _result("overhead_n4", f"Python overhead per gate at n = 4 ({G} gates, expect())", 15.0,
-                   "<=", t / G * 1e6, unit="us", gates=G,
+                   "<=", t / G * 1e6, unit="us", seconds=t, gates=G,
                    ufunc_call_us=float(np.median(b) * 1e6),
                    per_gate_over_ufunc_call=float(np.median(t / G / b)))
 
 
+def _import_seconds(module, env, root):
+    code = f"import time; t = time.perf_counter(); import {module}; print(time.perf_counter() - t)"
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env,
+                         cwd=root, check=True)
+    return float(out.stdout.strip().splitlines()[-1])
+
+
+def import_time(sz, repeats):
+    env = dict(os.environ)
+    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    env["PYTHONPATH"] = root + os.pathsep + env.get("PYTHONPATH", "")
+    pairs = [(_import_seconds("qgradlib", env, root), _import_seconds("numpy", env, root))
+             for _ in range(repeats)]
+    t = np.array([a for a, _ in pairs])
+    b = np.array([b for _, b in pairs])
+    return _result("import_time", "import qgradlib / import numpy, each in a fresh interpreter", 3.0,
+                   "<=", t / b, seconds=t, seconds_qgradlib=float(np.median(t)),
+                   seconds_numpy=float(np.median(b)))
+
+
+def _sweep_rows(c, theta, freqs):
+    """The circuits a one-sweep rotosolve run evaluates (start, both shifts per parameter,
+    then the final value and two-term gradient), as rows for one call each."""
+    rows = [theta]
+    for p, w in enumerate(freqs):
+        h = np.zeros(theta.size)
+        h[p] = np.pi / (2 * w)
+        rows += [theta + h, theta - h]
+    return rows + rows
+
+
+def rotosolve_sweep(sz, repeats):
+    from qgradlib.engine.program import cache_info
+    from qgradlib.train.rotosolve import frequencies_by_parameter
+
+    n, L = 6, sz["roto_layers"]
+    c = ring(n, L)
+    H = qg.Observable(jax_sim.energy_terms(n))
+    theta = angles(c)
+    rows = _sweep_rows(c, theta, frequencies_by_parameter(c))
+    sweep = lambda: qg.optimize.minimize_expectation(c, H, theta, method="rotosolve", steps=1)  # noqa: E731
+
+    def one_at_a_time():
+        for r in rows:
+            qg.expect(c, H, r)
+    with qg.Ledger() as book:
+        sweep()
+    reps = max(1, min(repeats, 3))
+    t, b = paired(sweep, one_at_a_time, reps, 0.0)
+    info = cache_info()
+    return _result("rotosolve_sweep", f"one rotosolve sweep, n = {n}, {len(c.operations)} gates, "
+                   f"m = {c.n_params} / the same {len(rows)} circuits one call at a time", 1.0, "<=",
+                   t / b, seconds=t, circuits=book.executions, seconds_sweep=float(np.median(t)),
+                   seconds_one_at_a_time=float(np.median(b)), programs_cached=info["programs"],
+                   program_cache_bytes=info["bytes"])
+
+
+def _jax_reason():
+    if not OPTIONS["jax"]:
+        return "JAX rows switched off (--no-jax)"
+    return jax_sim.available()
+
+
+def _jax_case(n, L):
+    c = layered(n, L)
+    H = qg.Observable(jax_sim.energy_terms(n))
+    theta = angles(c)
+    value, gradient = jax_sim.gradient_function(n, L)
+    t0 = time.perf_counter()
+    first = np.asarray(gradient(theta))
+    compile_s = time.perf_counter() - t0
+    jax_grad = lambda: gradient(theta).block_until_ready()  # noqa: E731
+    return c, H, theta, first, compile_s, jax_grad
+
+
+def jax_adjoint(sz, repeats):
+    out = []
+    L = sz["jax_layers"]
+    for n in sz["jax_qubits"]:
+        target = 2.0 if n <= 10 else 1.0
+        label = f"our adjoint gradient / jitted JAX gradient (compile excluded), n = {n}, m = {n * L}"
+        reason = _jax_reason()
+        if reason:
+            out.append(_skipped(f"jax_adjoint_n{n}", label, target, "<=", reason))
+            continue
+        c, H, theta, first, compile_s, jax_grad = _jax_case(n, L)
+        ours = lambda: grad(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)  # noqa: E731
+        diff = float(np.max(np.abs(ours() - first)))
+        t, b = paired(ours, jax_grad, repeats, sz["min_time"])
+        out.append(_result(f"jax_adjoint_n{n}", label, target, "<=", t / b, seconds=t,
+                           max_gradient_difference=diff, seconds_adjoint=float(np.median(t)),
+                           seconds_jax=float(np.median(b)), seconds_jax_compile=compile_s))
+    return out
+
+
+def jax_shift(sz, repeats):
+    n, L = sz["jax_shift"]
+    label = f"our shift-rule gradient / jitted JAX gradient (compile excluded), n = {n}, m = {n * L}"
+    reason = _jax_reason()
+    if reason:
+        return _skipped("jax_shift", label, 4.0, "<=", reason)
+    c, H, theta, first, compile_s, jax_grad = _jax_case(n, L)
+    ours = lambda: grad(lambda t: qg.expect(c, H, t))(theta)  # noqa: E731
+    diff = float(np.max(np.abs(ours() - first)))
+    t, b = paired(ours, jax_grad, repeats, sz["min_time"])
+    return _result("jax_shift", label, 4.0, "<=", t / b, seconds=t, max_gradient_difference=diff,
+                   seconds_shift=float(np.median(t)), seconds_jax=float(np.median(b)))
+
+
+def first_gradient(sz, repeats):
+    """A new circuit object each repeat (nothing cached for it): first gradient / second."""
+    n, L = sz["first"]
+    ratios, steady = [], []
+    for _ in range(repeats):
+        c = layered(n, L)
+        H = qg.Observable(jax_sim.energy_terms(n))
+        theta = angles(c)
+        g = lambda: grad(lambda t: qg.expect(c, H, t))(theta)  # noqa: E731
+        t0 = time.perf_counter()
+        g()
+        t1 = time.perf_counter()
+        g()
+        t2 = time.perf_counter()
+        ratios.append((t1 - t0) / (t2 - t1))
+        steady.append(t2 - t1)
+    details = {"seconds_steady": float(np.median(steady))}
+    if not _jax_reason():
+        _, _, _, _, compile_s, jax_grad = _jax_case(n, L)
+        _, b = paired(jax_grad, jax_grad, 1, sz["min_time"])
+        details["jax_first_over_steady"] = float((compile_s + b[0]) / b[0])
+        details["seconds_jax_compile"] = compile_s
+    return _result("first_gradient", f"first shift-rule gradient of a new circuit / its next one, "
+                   f"n = {n}, m = {n * L}", 3.0, "<=", ratios, **details)
+
+
 FIGURES = [gate_pass, adjoint_forward, shift_forward, backprop_adjoint, forward_memory,
-           adjoint_memory, overhead]
+           adjoint_memory, overhead, import_time, rotosolve_sweep, jax_adjoint, jax_shift,
+           first_gradient]

@@ -13,11 +13,15 @@ def markdown(doc) -> str:
     m = doc["machine"]
     lines = [f"Measured by `python -m benchmarks` ({doc['mode']}, {doc['repeats']} repeats) on "
              f"{m['cpu']}, {m['nproc']} cores, numpy {m['numpy']}, Python {m['python']}, "
-             f"BLAS threads {m['blas_threads']}.", "",
+             f"BLAS: {m['blas_threads']}.", "",
              "| figure | target | median | spread (min – max; IQR) | met |",
              "|---|---|---|---|---|"]
     for f in doc["figures"]:
         u = _UNIT[f["unit"]]
+        if f.get("skipped"):
+            lines.append(f"| {f['figure']} | {f['op'].replace('<=', '≤').replace('>=', '≥')} "
+                         f"{f['target']:g}{u} | skipped: {f['skipped']} | | |")
+            continue
         g = ".2f" if f["unit"] == "states" else ".3g"
         lines.append(f"| {f['figure']} | {f['op'].replace('<=', '≤').replace('>=', '≥')} {f['target']:g}{u} | "
                      f"{f['median']:{g}}{u} | {f['min']:{g}} – {f['max']:{g}}; {f['q1']:{g}} – {f['q3']:{g}} | "

@@ -26,7 +26,6 @@ from dataclasses import dataclass
 
 import numpy as np
 from autograd import make_vjp, value_and_grad
-from autograd.test_util import check_grads, make_numerical_jvp
 
 from ..evaluation.expectation import expect
 from ..evaluation.ledger import Ledger
@@ -146,6 +145,8 @@ def _timed(fn, theta):
 
 def _autograd_check(f, theta, rng):
     """check_grads on ``f`` (reverse mode, first order) and autograd's numerical gradient."""
+    from autograd.test_util import check_grads, make_numerical_jvp   # loads on first use
+
     # check_grads draws its random directions from numpy's global generator: seed it from
     # ours and put the caller's state back afterwards
     saved = np.random.get_state()

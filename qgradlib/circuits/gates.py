@@ -211,9 +211,11 @@ class Gate:
     def dim(self) -> int:
         return 2 ** self.n_qubits
 
-    @property
+    @cached_property
     def diagonal(self) -> bool:
         """True when the matrix is diagonal for every angle (a phase multiply)."""
+        # memoised: compiling a circuit asks this of every gate, and a fixed gate's test
+        # is a full comparison of its matrix
         if self.kind == "fixed":
             u = self.unitary
             return bool(np.allclose(u, np.diag(np.diag(u)), atol=0))

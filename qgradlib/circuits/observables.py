@@ -14,7 +14,6 @@ from __future__ import annotations
 from numbers import Real
 
 import numpy as np
-import scipy.sparse as sp
 
 from .paulis import masks, parse_pauli
 
@@ -92,7 +91,7 @@ class Observable:
         """True when the observable is a pure Pauli sum (no dense part)."""
         return self._dense is None
 
-    def matrix(self) -> sp.csr_matrix:
+    def matrix(self) -> "scipy.sparse.csr_matrix":
         """The full matrix as scipy.sparse CSR (built from index arithmetic)."""
         dim = 2 ** self._n
         idx = np.arange(dim)
@@ -106,6 +105,8 @@ class Observable:
             rows.append(idx ^ x)
             cols.append(idx)
             vals.append(c * (1j ** ny) * sign)
+        import scipy.sparse as sp     # imported on first use: it takes longer than NumPy to load
+
         m = sp.csr_matrix((np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
                           shape=(dim, dim), dtype=complex) if rows else sp.csr_matrix((dim, dim), dtype=complex)
         if self._dense is not None:

@@ -16,8 +16,8 @@ import weakref
 from functools import lru_cache
 
 import numpy as np
-from scipy.linalg.blas import zgemm
 
+from .threads import limited
 from . import kernels
 from .memory import guard
 from .program import program, step_matrix
@@ -164,6 +164,7 @@ def _undo_step(s, both, buf, n, phi, shared, table, P):
     return kernels.apply_dense(both, n, mh, s.qubits, buf, real=s.real), both
 
 
+@limited
 def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, observable_into=None,
                      psi=None, fuse=None) -> np.ndarray:
     """dE/dphi for every row of ``phi`` (P, G), where ``E = <psi|O|psi>``.
@@ -265,6 +266,8 @@ def _tail_overlaps(both, n, P):
     """``S[p, i, j] = sum_r conj(lam[p, r, i]) psi[p, r, j]`` over the last ``_TAIL`` qubits:
     one BLAS product per row (conjugate transpose in BLAS, no copy), after which
     ``<lam|G|psi> = sum_ij G_ij S_ij`` for any G inside that window."""
+    from scipy.linalg.blas import zgemm     # SciPy loads on first use, not at import
+
     D = 2 ** _TAIL
     out = np.empty((P, D, D), dtype=complex)
     for p in range(P):

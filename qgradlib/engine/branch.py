@@ -16,6 +16,7 @@ from collections import Counter
 
 import numpy as np
 
+from .threads import limited
 from . import kernels
 from .program import program, step_matrix
 from .statevector import _external, _solo, _table, zero_states
@@ -26,10 +27,13 @@ __all__ = ["divergence", "run_branched"]
 def _reference(phi, inserts):
     """Column-wise most common angle (and insert tuple) of the rows."""
     P, G = phi.shape
-    ref = np.empty(G)
-    for j in range(G):
-        vals, counts = np.unique(phi[:, j], return_counts=True)
-        ref[j] = vals[np.argmax(counts)]
+    # per column, the value of the longest run of equal values after sorting (the smallest
+    # such value on ties), for all columns at once
+    s = np.sort(phi, axis=0)
+    rows = np.arange(P)[:, None]
+    start = np.maximum.accumulate(np.where(np.vstack([np.ones((1, G), bool), s[1:] != s[:-1]]),
+                                           rows, 0), axis=0)
+    ref = s[np.argmax(rows - start, axis=0), np.arange(G)]
     ref_ins = {}
     if inserts is not None:
         cols = {c for row in inserts for c in row}
@@ -62,6 +66,7 @@ def divergence(phi, inserts=None):
     return ref, ref_ins, first
 
 
+@limited
 def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2):
     """Final states (P, 2**n) of the rows of ``phi``, in their order, by branching from a
     shared trunk; None when branching would save less than ``min_saving`` of the work.
@@ -95,8 +100,18 @@ def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2):
     prog = program(circuit, fuse, frozenset(solo), bake_fixed_angles=False)
     steps = prog.steps
     S = len(steps)
-    col_step = {s.column: i for i, s in enumerate(steps) if s.kind == "solo" and s.column is not None}
-    start = np.array([col_step[int(c)] if c < G else S for c in first])
+    step_of = np.full(G, S)
+    for i, s in enumerate(steps):
+        if s.kind == "solo" and s.column is not None:
+            step_of[s.column] = i
+    # a row branches off before the first *step* that touches any column where it differs
+    # (a program derived from the fused one may order its kept steps unlike their columns)
+    start = np.min(np.where(phi != ref, step_of, S), axis=1)
+    if inserts is not None:
+        for p, row in enumerate(inserts):
+            for c in set(row) | set(ref_ins):
+                if tuple(row.get(c, ())) != tuple(ref_ins.get(c, ())):
+                    start[p] = min(start[p], step_of[c])
     is_ref = first == G
     plain = P * S
     branched = S + float(np.sum(S - start[~is_ref]))

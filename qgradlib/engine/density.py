@@ -16,6 +16,7 @@ from collections import defaultdict
 
 import numpy as np
 
+from .threads import limited
 from ..circuits.paulis import masks
 from .measure import probabilities as _state_marginals
 from .memory import guard
@@ -63,6 +64,7 @@ def _gate(rho, n, gate, qubits, a):
     return apply_unitary(rho, n, m[0] if shared else m, qubits)
 
 
+@limited
 def run_density(circuit, phi, inserts=None) -> np.ndarray:
     """Final density matrices for gate angles ``phi`` (B, G); returns (B, 4**n) vectorised.
 

@@ -21,13 +21,14 @@ nothing else, so the cache is not state a caller can observe except through spee
 from __future__ import annotations
 
 import weakref
+from collections import OrderedDict
 from dataclasses import dataclass, field
 
 import numpy as np
 
 from .kernels import MAX_SPAN, monomial_structure, sort_qubits, widen
 
-__all__ = ["Step", "Program", "program", "is_gate", "SMALL_N"]
+__all__ = ["Step", "Program", "program", "derive", "cache_info", "is_gate", "SMALL_N"]
 
 # at or below this many qubits a kernel costs less than its Python call: every merge pays
 SMALL_N = 10
@@ -48,6 +49,7 @@ def is_gate(obj) -> bool:
 @dataclass
 class Factor:
     gate: object
+    op: object             # the circuit operation
     qubits: tuple          # in the gate's own order
     column: int | None     # phi column of a parametric gate, None for a fixed gate
     const: bool            # angle baked in at compile time (fixed gate or fixed angle)
@@ -85,7 +87,18 @@ class Program:
     n_columns: int = 0                           # parametric operations (columns of phi)
 
 
+_KLASS: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
+
+
 def _klass(gate):
+    """The kernel class of a gate, memoised per gate (gates are immutable)."""
+    hit = _KLASS.get(gate)
+    if hit is None:
+        hit = _KLASS[gate] = _klass_of(gate)
+    return hit
+
+
+def _klass_of(gate):
     if gate.kind in ("hamiltonian", "function") or gate.n_qubits > 2:
         return "solo"
     if gate.diagonal:
@@ -145,7 +158,7 @@ def compile_program(circuit, fuse: bool, solo_columns=frozenset(), bake_fixed_an
         if column is not None and const:
             const_cols.append(column)
             const_angles.append(op.angle)
-        f = Factor(g, tuple(op.qubits), column, const, op.angle if column is not None else None)
+        f = Factor(g, op, tuple(op.qubits), column, const, op.angle if column is not None else None)
         qs = tuple(op.qubits)
         placed = None
         if fuse:
@@ -207,17 +220,21 @@ def compile_program(circuit, fuse: bool, solo_columns=frozenset(), bake_fixed_an
                 gi, cols = groups.setdefault((id(f.gate), d_only), (len(groups), []))
                 f.slot = (gi, len(cols))
                 cols.append(f.column)
-        if s.kind in _COST and not s.varies:
-            s.matrix = step_matrix(s, None, None)
-            s.real = not np.any(np.imag(s.matrix))
-        if s.kind == "mono":
-            structure = _mono_structure(s)
-            s.mono = structure
+        _finish(s)
     glist = [None] * len(groups)
     gates = {id(f.gate): f.gate for s in steps for f in s.factors}
     for (gid, d_only), (gi, cols) in groups.items():
         glist[gi] = (gates[gid], d_only, np.array(cols, dtype=np.intp))
     return Program(n, steps, tuple(const_cols), np.array(const_angles, dtype=float), glist, col)
+
+
+def _finish(s):
+    """Constant matrix, realness and monomial pattern of a fusable step."""
+    if s.kind in _COST and not s.varies:
+        s.matrix = step_matrix(s, None, None)
+        s.real = not np.any(np.imag(s.matrix))
+    if s.kind == "mono":
+        s.mono = _mono_structure(s)
 
 
 def _mono_structure(step):
@@ -294,20 +311,128 @@ def step_matrix(step, table, B):
     return out
 
 
+def derive(base: Program, solo) -> Program:
+    """``base`` with the factors of the ``solo`` columns taken out of their fused steps.
+
+    A fused step is a product of its factors in order, so cutting it at a solo factor into
+    (factors before, the solo gate, factors after), on the same qubits and at the same place,
+    leaves the circuit's unitary unchanged. Every other step (with its cached matrices) and
+    the table groups are shared with ``base``: a program per set of kept columns costs only
+    the steps it cuts, not a compilation of the whole circuit.
+    """
+    steps = []
+    for s in base.steps:
+        if s.kind not in _COST or not any(f.column in solo for f in s.factors):
+            steps.append(s)
+            continue
+        seg: list = []
+        for f in s.factors:
+            if f.column not in solo:
+                seg.append(f)
+                continue
+            if seg:
+                steps.append(_cut(s, seg))
+                seg = []
+            steps.append(Step("solo", tuple(f.op.qubits), op=f.op, column=f.column))
+        if seg:
+            steps.append(_cut(s, seg))
+    return Program(base.n, steps, base.const_columns, base.const_angles, base.groups,
+                   base.n_columns)
+
+
+def _cut(parent, factors):
+    kind = parent.kind
+    if kind == "mono" and len(factors) == 1 and factors[0].gate.kind != "fixed":
+        kind = "dense"
+    step = Step(kind, parent.qubits, list(factors))
+    _finish(step)
+    return step
+
+
+def nbytes(prog: Program, shared=None) -> int:
+    """Bytes held by the program's steps (those not in ``shared``, a set of step ids)."""
+    total = 0
+    for s in prog.steps:
+        if shared is not None and id(s) in shared:
+            continue
+        total += 256 + 128 * len(s.factors)
+        for a in (s.matrix, s.mono):
+            total += getattr(a, "nbytes", 0)
+        for f in s.factors:
+            total += getattr(f.embed, "nbytes", 0) + getattr(f.cached, "nbytes", 0)
+    return total
+
+
+# compiled programs of all circuits together are held to this many bytes (least recently
+# used first out); a program a caller still runs is unaffected, only recompiled if asked again
+CACHE_BYTES = 64 * 2 ** 20
+# kept columns at most this fraction of all columns: derive from the fused program
+DERIVE_FRACTION = 0.125
 _CACHE: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 
 
+_LRU: "OrderedDict" = OrderedDict()   # (id(circuit), key) -> (weak circuit, bytes)
+_HELD = [0]
+
+
 def program(circuit, fuse: bool, solo_columns=frozenset(), bake_fixed_angles=True) -> Program:
-    """The memoised `compile_program` of ``circuit`` (recompiled when its operations change)."""
-    ops = circuit.operations
-    key = (bool(fuse), frozenset(solo_columns), bool(bake_fixed_angles))
+    """The memoised program of ``circuit`` (recompiled when its operations change).
+
+    A few kept columns (``solo_columns``) give a program derived from the fused one
+    (`derive`); many give a compilation of their own. All programs together hold at most
+    `CACHE_BYTES`.
+    """
+    # operations are only ever appended to a circuit: their count tells a stale program
+    ops = len(circuit)
+    solo = frozenset(solo_columns)
+    key = (bool(fuse), solo, bool(bake_fixed_angles))
     try:
         per = _CACHE.setdefault(circuit, {})
     except TypeError:
-        per = {}
-    hit = per.get(key)
+        per = None
+    hit = None if per is None else per.get(key)
     if hit is not None and hit[0] == ops:
-        return hit[1]
-    prog = compile_program(circuit, fuse, solo_columns, bake_fixed_angles)
-    per[key] = (ops, prog)
+        _LRU.move_to_end((id(circuit), key), last=True)
+        return hit[2]
+    base = None
+    if solo and len(solo) <= max(4, DERIVE_FRACTION * len(circuit.parametric_operations)):
+        base = program(circuit, fuse, frozenset(), bake_fixed_angles)
+        prog = derive(base, solo)
+        size = nbytes(prog, {id(s) for s in base.steps})
+    else:
+        prog = compile_program(circuit, fuse, solo, bake_fixed_angles)
+        size = nbytes(prog)
+    if per is not None:
+        _forget(circuit, key)
+        per[key] = (ops, size, prog)
+        lk = (id(circuit), key)
+        _LRU[lk] = (weakref.ref(circuit, lambda _, lk=lk: _drop(lk)), size)
+        _HELD[0] += size
+        _evict()
     return prog
+
+
+def _forget(circuit, key):
+    _drop((id(circuit), key))
+
+
+def _drop(lk):
+    old = _LRU.pop(lk, None)
+    if old is not None:
+        _HELD[0] -= old[1]
+
+
+def _evict():
+    while _HELD[0] > CACHE_BYTES and len(_LRU) > 1:
+        (cid, key), (ref, size) = _LRU.popitem(last=False)
+        _HELD[0] -= size
+        c = ref()
+        per = None if c is None else _CACHE.get(c)
+        if per is not None:
+            per.pop(key, None)
+
+
+def cache_info() -> dict:
+    """Programs held and their bytes (live circuits only)."""
+    live = [(k, v) for k, v in _LRU.items() if v[0]() is not None]
+    return {"programs": len(live), "bytes": sum(v[1] for _, v in live), "limit": CACHE_BYTES}

@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .threads import limited
 from . import kernels
 from .memory import guard
 from .program import program, step_matrix
@@ -150,6 +151,7 @@ def _external(step, cur, n):
     return np.ascontiguousarray(fn(cur, n, tuple(step.op.qubits)), dtype=complex)
 
 
+@limited
 def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=frozenset(),
         out=None) -> np.ndarray:
     """Final states for gate angles ``phi`` of shape (B, G); returns (B, 2**n).

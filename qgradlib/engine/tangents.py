@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from .threads import limited
 from ..rules.shift_rules import warn_approximate
 from .adjoint import hamiltonian_derivative
 from .memory import guard
@@ -34,6 +35,7 @@ def _derivative_matrix(gate, a):
     return (gate._matrices(np.array([a + h]))[0] - gate._matrices(np.array([a - h]))[0]) / (2 * h)
 
 
+@limited
 def state_derivatives(circuit, phi, columns):
     """psi (d,) and d psi / d phi_c (len(columns), d) in one pass over the circuit."""
     n = circuit.n_qubits
@@ -60,6 +62,7 @@ def state_derivatives(circuit, phi, columns):
     return psi[0], psi[1:]
 
 
+@limited
 def layer_covariances(circuit, phi, columns, lays, diagonal=False):
     """Stokes et al.'s blocks: generator covariances in the state before each layer.
 

@@ -45,13 +45,13 @@ import os
 import pickle
 import sys
 from concurrent.futures import Executor, ThreadPoolExecutor
-from concurrent.futures.process import BrokenProcessPool
 from dataclasses import replace
 from numbers import Integral
 
 import numpy as np
 
 from ..engine.measurement import PointSeeds
+from ..engine.threads import worker_threads
 from .rows import measure_rows_here
 
 __all__ = ["ChunkError", "measure_rows", "run_chunks", "workers", "check_executor", "chunk_size",
@@ -165,7 +165,8 @@ def _describe(indices, angles, limit=3):
 def _wrap(err, k, n, indices, angles, executor):
     cause = f"{type(err).__name__}: {err}"
     verb = "failed"
-    if isinstance(err, BrokenProcessPool):
+    proc = sys.modules.get("concurrent.futures.process")   # loaded by whoever made a pool
+    if proc is not None and isinstance(err, proc.BrokenProcessPool):
         # every unfinished future of a broken pool fails alike: the pool cannot say whose process died
         verb = "did not finish (the first unfinished chunk)"
         cause += (" -- a worker process died; a concurrent.futures process pool cannot retry and "
@@ -178,15 +179,32 @@ def _wrap(err, k, n, indices, angles, executor):
                       f"{_describe(indices, angles)}: {cause}", indices, angles)
 
 
+def in_worker(task, *args):
+    """Run ``task(*args)`` on a worker with one BLAS thread: the workers share the machine's
+    cores, and BLAS threads on busy cores only slow each call down
+    (`qgradlib.engine.threads.worker_threads`; ``QGRADLIB_BLAS_THREADS`` asks otherwise).
+    Dask's worker processes start with one BLAS thread already (its nanny sets
+    ``OPENBLAS_NUM_THREADS=1``)."""
+    with worker_threads():
+        return task(*args)
+
+
 def run_chunks(executor, task, payload, jobs):
     """``task(payload, *args)`` for every job ``(args, indices, angles)``; results in job order.
 
     A failure raises `ChunkError` for the first failing chunk in order and cancels the rest.
     """
+    # tasks in this process (threads) take the BLAS setting of this thread: OpenBLAS ignores
+    # a change asked for in a thread that did not start it
+    with worker_threads():
+        return _run_chunks(executor, task, payload, jobs)
+
+
+def _run_chunks(executor, task, payload, jobs):
     futures, out = [], []
     try:
         for args, _, _ in jobs:
-            futures.append(_submit(executor, task, payload, *args))
+            futures.append(_submit(executor, in_worker, task, payload, *args))
         for fut in futures:
             out.append(fut.result())
         return out

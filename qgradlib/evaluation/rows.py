@@ -13,6 +13,7 @@ from ..engine.density import density_expectations, marginal, run_density
 from ..engine.measure import expectations
 from ..engine.measurement import apply_readout, measure, outcome_distribution, point_generators
 from ..engine.statevector import run
+from ..engine.threads import engine_threads
 
 __all__ = ["measure_rows_here"]
 
@@ -20,6 +21,11 @@ __all__ = ["measure_rows_here"]
 def measure_rows_here(phi, spec, inserts, errors=False, keep=False):
     """Values (P, K) at the rows of ``phi``; with ``errors``, also their variances (P, K);
     with ``keep``, also the final states (or None when they took more than one chunk)."""
+    with engine_threads(spec.circuit.n_qubits):
+        return _measure_rows(phi, spec, inserts, errors, keep)
+
+
+def _measure_rows(phi, spec, inserts, errors, keep):
     n = spec.circuit.n_qubits
     noisy = spec.circuit.has_noise
     per_row = 3 * 16 * 2 ** (2 * n if noisy else n)

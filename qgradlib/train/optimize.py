@@ -44,7 +44,6 @@ from numbers import Real
 import autograd
 import numpy as np
 from autograd.tracer import getval
-from scipy.optimize import OptimizeResult
 
 from . import rotosolve as _roto
 from ..circuits.circuit import Circuit, check_theta
@@ -379,12 +378,19 @@ class _Trace:
         if self.callback is None:
             return False
         x = np.array(x, dtype=float)
-        arg = OptimizeResult(x=x, fun=float(fun), nit=nit, grad_norm=grad_norm) \
+        arg = _result(x=x, fun=float(fun), nit=nit, grad_norm=grad_norm) \
             if self.wants_result else x
         try:
             return bool(self.callback(arg))
         except StopIteration:
             return True
+
+
+def _result(**fields):
+    # scipy.optimize takes longer to load than NumPy: it is imported with the first result
+    from scipy.optimize import OptimizeResult
+
+    return OptimizeResult(**fields)
 
 
 def _run(problem, method, x0, steps, opts, callback, progress, rng):
@@ -404,7 +410,7 @@ def _run(problem, method, x0, steps, opts, callback, progress, rng):
                 2: "stopped by the callback"}
     h = {"cost": np.array(trace.cost), "grad_norm": np.array(trace.grad_norm),
          "executions": np.array(trace.executions, dtype=int)}
-    return OptimizeResult(x=x, fun=fun, jac=jac, nit=nit, success=status == 0, status=status,
+    return _result(x=x, fun=fun, jac=jac, nit=nit, success=status == 0, status=status,
                           message=messages[status], method=method, history=h,
                           executions=book.executions, circuits=book.circuits, shots=book.shots)
 

@@ -1,0 +1,110 @@
+"""``python -m benchmarks --environments``: every timing row, BLAS variables unset vs pinned.
+
+Each configuration is a child ``python -m benchmarks`` run: with ``OPENBLAS_NUM_THREADS``,
+``OMP_NUM_THREADS`` and ``MKL_NUM_THREADS`` removed from its environment ("unset", what a
+user has by default) or set to 1 ("pinned"); on the machine as it is ("idle") and next to
+one other process that keeps a core busy with a Python loop ("busy"). Unset and pinned runs
+take turns, twice each, so slow phases of a shared machine fall on both. The figure per row
+is the median time of the row's target in the unset runs over that in the pinned runs; the
+target is at most 1.10 (the default never slower than pinned by more than 10%). Other
+environment variables (OPENBLAS_CORETYPE and the like) are passed on unchanged. The JAX rows
+are left out (they time the same adjoint gradient as other rows) unless ``--only`` names them.
+"""
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+import tempfile
+
+__all__ = ["main", "markdown"]
+
+_VARS = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
+TARGET = 1.10
+ROUNDS = 2
+
+
+def _env(pinned):
+    env = {k: v for k, v in os.environ.items() if k not in _VARS}
+    if pinned:
+        env.update({v: "1" for v in _VARS})
+    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    env["PYTHONPATH"] = root + os.pathsep + env.get("PYTHONPATH", "")
+    return env, root
+
+
+def _child(args, pinned, out):
+    env, root = _env(pinned)
+    cmd = [sys.executable, "-m", "benchmarks", "--no-plot", "--out", out]
+    if args.quick:
+        cmd.append("--quick")
+    if args.repeats:
+        cmd += ["--repeats", str(args.repeats)]
+    if args.only:
+        cmd += ["--only", args.only]
+    else:
+        cmd.append("--no-jax")
+    subprocess.run(cmd, env=env, cwd=root, check=True, stdout=subprocess.DEVNULL)
+    with open(out) as fh:
+        return {f["key"]: f for f in json.load(fh)["figures"] if "seconds" in f}
+
+
+def _measure(args, load):
+    runs = {False: [], True: []}
+    spinner = None
+    if load == "busy":
+        spinner = subprocess.Popen([sys.executable, "-c", "while True:\n    pass"])
+    try:
+        with tempfile.TemporaryDirectory() as tmp:
+            for r in range(ROUNDS):
+                for pinned in (False, True):
+                    runs[pinned].append(_child(args, pinned, os.path.join(tmp, f"{load}{r}{pinned}.json")))
+    finally:
+        if spinner is not None:
+            spinner.kill()
+            spinner.wait()
+    rows = {}
+    for key, fig in runs[False][0].items():
+        unset = sorted(run[key]["seconds"] for run in runs[False] if key in run)
+        pinned = sorted(run[key]["seconds"] for run in runs[True] if key in run)
+        med = lambda xs: xs[len(xs) // 2] if len(xs) % 2 else 0.5 * (xs[len(xs) // 2 - 1] + xs[len(xs) // 2])  # noqa: E731
+        rows[key] = {"figure": fig["figure"], "seconds_unset": med(unset), "seconds_pinned": med(pinned),
+                     "ratio": med(unset) / med(pinned), "samples_unset": unset, "samples_pinned": pinned}
+    return rows
+
+
+def markdown(doc) -> str:
+    lines = [f"Measured by `python -m benchmarks --environments` ({doc['mode']}, {ROUNDS} alternating runs "
+             "per configuration): time of each row's target with the BLAS thread variables unset, "
+             "over the time with them set to 1.", "",
+             "| row | idle: unset / pinned | busy: unset / pinned | met (≤ 1.10 both) |",
+             "|---|---|---|---|"]
+    for key, idle in doc["idle"].items():
+        busy = doc["busy"].get(key)
+        b = f"{busy['ratio']:.2f} ({busy['seconds_unset'] * 1e3:.3g} / {busy['seconds_pinned'] * 1e3:.3g} ms)" \
+            if busy else "-"
+        met = idle["ratio"] <= TARGET and (busy is None or busy["ratio"] <= TARGET)
+        lines.append(f"| {idle['figure']} | {idle['ratio']:.2f} ({idle['seconds_unset'] * 1e3:.3g} / "
+                     f"{idle['seconds_pinned'] * 1e3:.3g} ms) | {b} | {'yes' if met else 'no'} |")
+    return "\n".join(lines) + "\n"
+
+
+def main(args):
+    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    doc = {"mode": "quick" if args.quick else "full"}
+    for load in ("idle", "busy"):
+        print(f"{load}: unset and pinned runs in turn ...", flush=True)
+        doc[load] = _measure(args, load)
+    text = markdown(doc)
+    print(text)
+    out = args.out or os.path.join(root, "benchmarks", "results", "environments.json")
+    os.makedirs(os.path.dirname(os.path.abspath(out)), exist_ok=True)
+    with open(out, "w") as fh:
+        json.dump(doc, fh, indent=2)
+    print(f"results: {out}")
+    if args.markdown:
+        with open(args.markdown, "w") as fh:
+            fh.write(text)
+        print(f"table: {args.markdown}")
+    return 0
