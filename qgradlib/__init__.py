@@ -5,7 +5,6 @@ from .evaluation import (ChunkError, Ledger, density_matrix, distribute, expect,
                          sample, state)
 from .rules import ShiftRule
 from .shots import Estimate, GradientEstimate, estimate, estimate_gradient
-from .train import models, optimize, workflows
 
 __version__ = "0.1.0"
 
@@ -16,10 +15,17 @@ __all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", 
            "distribute", "ChunkError", "shots"]
 
 
+_LAZY = {"plot": ".plot", "models": ".train.models", "optimize": ".train.optimize",
+         "workflows": ".train.workflows"}
+
+
 def __getattr__(name):
-    # qgradlib.plot needs matplotlib, an optional extra: import it only when asked for
-    if name == "plot":
+    # loaded when first asked for: qgradlib.plot needs matplotlib (an optional extra), and the
+    # optimisers bring scipy.optimize, which takes longer to import than NumPy itself
+    if name in _LAZY:
         import importlib
 
-        return importlib.import_module(".plot", __name__)
+        module = importlib.import_module(_LAZY[name], __name__)
+        globals()[name] = module
+        return module
     raise AttributeError(f"module {__name__!r} has no attribute {name!r}")
