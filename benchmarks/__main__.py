@@ -47,7 +47,6 @@ def main(argv=None):
         for var in ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS"):
             os.environ[var] = str(args.threads)
     # imports after the thread settings: BLAS reads them when NumPy loads
-    import json
     import platform
     import time
 
@@ -88,15 +87,8 @@ def main(argv=None):
     doc = {"suite": "qgradlib benchmarks", "mode": mode, "repeats": repeats, "machine": machine,
            "seconds": time.perf_counter() - t0, "figures": results, "growth": growth,
            "plot": None if growth is None else os.path.relpath(os.path.abspath(png), root)}
-    os.makedirs(os.path.dirname(os.path.abspath(out)), exist_ok=True)
-    with open(out, "w") as fh:
-        json.dump(doc, fh, indent=2)
-    print(f"results: {out}")
-    if args.markdown:
-        from .report import markdown
-        with open(args.markdown, "w") as fh:
-            fh.write(markdown(doc))
-        print(f"table: {args.markdown}")
+    from .report import markdown, write
+    write(doc, out, markdown(doc) if args.markdown else None, args.markdown)
     return 0
 
 

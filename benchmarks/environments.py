@@ -99,12 +99,6 @@ def main(args):
     text = markdown(doc)
     print(text)
     out = args.out or os.path.join(root, "benchmarks", "results", "environments.json")
-    os.makedirs(os.path.dirname(os.path.abspath(out)), exist_ok=True)
-    with open(out, "w") as fh:
-        json.dump(doc, fh, indent=2)
-    print(f"results: {out}")
-    if args.markdown:
-        with open(args.markdown, "w") as fh:
-            fh.write(text)
-        print(f"table: {args.markdown}")
+    from .report import write
+    write(doc, out, text, args.markdown)
     return 0

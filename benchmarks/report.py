@@ -2,9 +2,10 @@
 from __future__ import annotations
 
 import json
+import os
 import sys
 
-__all__ = ["markdown"]
+__all__ = ["markdown", "write"]
 
 _UNIT = {"ratio": "x", "states": " states", "us": " µs"}
 
@@ -27,6 +28,18 @@ def markdown(doc) -> str:
                      f"{f['median']:{g}}{u} | {f['min']:{g}} – {f['max']:{g}}; {f['q1']:{g}} – {f['q3']:{g}} | "
                      f"{'yes' if f['met'] else 'no'} |")
     return "\n".join(lines) + "\n"
+
+
+def write(doc, out, table=None, table_path=None):
+    """Write the results JSON to ``out`` and, with ``table_path``, the Markdown ``table``."""
+    os.makedirs(os.path.dirname(os.path.abspath(out)), exist_ok=True)
+    with open(out, "w") as fh:
+        json.dump(doc, fh, indent=2)
+    print(f"results: {out}")
+    if table_path:
+        with open(table_path, "w") as fh:
+            fh.write(table)
+        print(f"table: {table_path}")
 
 
 if __name__ == "__main__":

@@ -17,7 +17,7 @@ from functools import lru_cache
 
 import numpy as np
 
-from .threads import limited
+from .threads import engine_threads
 from . import kernels
 from .memory import guard
 from .program import program, step_matrix
@@ -164,7 +164,6 @@ def _undo_step(s, both, buf, n, phi, shared, table, P):
     return kernels.apply_dense(both, n, mh, s.qubits, buf, real=s.real), both
 
 
-@limited
 def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, observable_into=None,
                      psi=None, fuse=None) -> np.ndarray:
     """dE/dphi for every row of ``phi`` (P, G), where ``E = <psi|O|psi>``.
@@ -216,6 +215,13 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
     else:
         both[:P] = psi
     del psi  # the caller's copy can go now: at most four states from here on
+    # (the BLAS limit starts here, not in a wrapper, whose arguments would keep psi alive)
+    with engine_threads(n):
+        return _backward(prog, both, phi, n, P, G, want, observable_into, apply_observable)
+
+
+def _backward(prog, both, phi, n, P, G, want, observable_into, apply_observable):
+    """The backward pass from the stacked final states (rows :P) into (P, G) derivatives."""
     buf = np.empty_like(both)
     if observable_into is not None:
         observable_into(both[:P], both[P:], buf[:P])
