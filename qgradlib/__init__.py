@@ -1,8 +1,8 @@
 """qgradlib: parameter-shift gradients, curvature and shot accounting for quantum circuits."""
 from . import check, curvature, shots
 from .circuits import Channel, Circuit, Gate, Observable, Operation, channels, gates
-from .evaluation import (ChunkError, Ledger, density_matrix, distribute, expect, probabilities,
-                         sample, state)
+from .evaluation import (ChunkError, Ledger, density_matrix, distribute, expect, kernel_matrix,
+                         probabilities, sample, state)
 from .rules import ShiftRule
 from .shots import Estimate, GradientEstimate, TensorEstimate, estimate, estimate_gradient
 from .train import models, optimize, workflows
@@ -12,8 +12,8 @@ __version__ = "0.1.0"
 __all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", "expect",
            "probabilities", "state", "sample", "gates", "__version__",
            "Channel", "channels", "density_matrix", "estimate", "estimate_gradient", "Estimate",
-           "GradientEstimate", "TensorEstimate", "check", "curvature", "models", "optimize", "workflows", "plot",
-           "distribute", "ChunkError", "shots"]
+           "GradientEstimate", "TensorEstimate", "check", "curvature", "models", "optimize",
+           "workflows", "plot", "distribute", "ChunkError", "shots", "kernel_matrix"]
 
 
 def __getattr__(name):
