@@ -4,15 +4,15 @@ from .circuits import Channel, Circuit, Gate, Observable, Operation, channels, g
 from .evaluation import (ChunkError, Ledger, density_matrix, distribute, expect, kernel_matrix,
                          probabilities, sample, state)
 from .rules import ShiftRule
-from .shots import Estimate, GradientEstimate, estimate, estimate_gradient
+from .shots import Estimate, GradientEstimate, TensorEstimate, estimate, estimate_gradient
 
 __version__ = "0.1.0"
 
 __all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", "expect",
            "probabilities", "state", "sample", "gates", "__version__",
            "Channel", "channels", "density_matrix", "estimate", "estimate_gradient", "Estimate",
-           "GradientEstimate", "check", "curvature", "models", "optimize", "workflows", "plot",
-           "distribute", "ChunkError", "shots", "kernel_matrix"]
+           "GradientEstimate", "TensorEstimate", "check", "curvature", "models", "optimize",
+           "workflows", "plot", "distribute", "ChunkError", "shots", "kernel_matrix"]
 
 
 _LAZY = {"plot": ".plot", "models": ".train.models", "optimize": ".train.optimize",
