@@ -22,7 +22,6 @@ is forgotten; see `qgradlib.evaluation.adjoint_nested`).
 """
 from __future__ import annotations
 
-import weakref
 from collections import Counter
 from dataclasses import dataclass
 from numbers import Real
@@ -42,6 +41,7 @@ from ..engine.measurement import (ALLOCATIONS, apply_readout, check_readout, mak
                                   outcome_distribution, plan_measurements)
 from .rows import measure_rows_here
 from ..circuits.observables import Observable
+from ..circuits.preparation import prepared
 from ..rules.plans import first_order_points
 
 __all__ = ["expect", "probabilities", "state", "density_matrix", "sample", "evaluate", "METHODS"]
@@ -137,17 +137,14 @@ def _angle_ticks(phi, circuit):
     return t + 0.0          # -0.0 and 0.0 must give one key
 
 
-_PERIODS: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
-
-
 def _periods(circuit):
     """Each column's gate period (NaN where none), memoised per circuit (columns only grow)."""
     pops = circuit.parametric_operations
-    hit = _PERIODS.get(circuit)
+    hit = circuit.__dict__.get("_memo_periods")
     if hit is None or hit[0] != len(pops):
         per = np.array([np.nan if op.gate.period is None else op.gate.period for op in pops], dtype=float)
         hit = (len(pops), per)
-        _PERIODS[circuit] = hit
+        circuit.__dict__["_memo_periods"] = hit
     return hit[1]
 
 
@@ -340,7 +337,7 @@ def _run(spec, theta):
 # -- public functions ---------------------------------------------------------------------------
 def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shift", shift=None,
            step=None, stencil="central", splits=1, memory=None, allocation="uniform", readout=None,
-           fuse=True, executor=None, chunk=None):
+           fuse=True, executor=None, chunk=None, initial=None):
     """Expectation value(s) of ``observables`` after ``circuit`` at parameters ``theta``.
 
     Differentiable with autograd (`grad`, `jacobian`, `hessian`, ...); the derivative is
@@ -380,6 +377,10 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
         chunks (see `qgradlib.evaluation.distribute`); results equal the serial ones.
     chunk : int, optional
         Circuits per task on ``executor`` (default: about 4 tasks per worker).
+    initial : str or array_like, optional
+        The state the circuit starts from instead of |0...0>: a bitstring such as ``"0110"``
+        (qubit 0 leftmost) or a normalised state vector of shape (2**n,) (see
+        `qgradlib.circuits.preparation`). Derivatives start from it too.
 
     Returns
     -------
@@ -407,6 +408,7 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     True
     """
     _check_circuit(circuit)
+    circuit = prepared(circuit, initial)
     obs, single = _observables(observables, circuit.n_qubits)
     check_theta(circuit, theta)
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
@@ -420,12 +422,12 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
 
 def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradient="shift",
                   shift=None, step=None, stencil="central", splits=1, memory=None, readout=None,
-                  fuse=True, executor=None, chunk=None):
+                  fuse=True, executor=None, chunk=None, initial=None):
     """Probabilities of the outcomes on ``qubits`` (first listed = most significant bit).
 
     Differentiable like `expect`. Returns shape (2**k,) or (B, 2**k). ``readout`` (per-qubit
     flip probabilities) is applied to the outcome distribution before any sampling; the other
-    options are those of `expect`.
+    options (``initial=`` included) are those of `expect`.
 
     Examples
     --------
@@ -436,6 +438,7 @@ def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradien
     [0.0, 0.0, 1.0, 0.0]
     """
     _check_circuit(circuit)
+    circuit = prepared(circuit, initial)
     qs = _check_qubits(qubits, circuit.n_qubits)
     check_theta(circuit, theta)
     spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
@@ -445,11 +448,12 @@ def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradien
     return vals if batched else vals[0]
 
 
-def state(circuit, theta, *, fuse=True) -> np.ndarray:
+def state(circuit, theta, *, fuse=True, initial=None) -> np.ndarray:
     """The final statevector, complex128 of shape (2**n,) or (B, 2**n). Not differentiable.
 
     A circuit with noise channels has no pure state: use `density_matrix`. ``fuse`` switches
-    gate fusion in the engine (results agree to rounding).
+    gate fusion in the engine (results agree to rounding); ``initial`` is the starting state,
+    as in `expect`.
 
     Examples
     --------
@@ -459,6 +463,7 @@ def state(circuit, theta, *, fuse=True) -> np.ndarray:
     [(0.7071+0j), (0.7071+0j)]
     """
     _check_circuit(circuit)
+    circuit = prepared(circuit, initial)
     if circuit.has_noise:
         raise ValueError("circuit has noise channels, so its final state is mixed: use "
                          "qgradlib.density_matrix(circuit, theta) instead of state()")
@@ -469,7 +474,7 @@ def state(circuit, theta, *, fuse=True) -> np.ndarray:
     return psi if theta.ndim == 2 else psi[0]
 
 
-def density_matrix(circuit, theta) -> np.ndarray:
+def density_matrix(circuit, theta, *, initial=None) -> np.ndarray:
     """The final density matrix, complex128 of shape (2**n, 2**n) or (B, 2**n, 2**n).
 
     Runs the density-matrix path (also for a circuit without noise). Not differentiable.
@@ -483,6 +488,7 @@ def density_matrix(circuit, theta) -> np.ndarray:
     [[0.5, 0.25], [0.25, 0.5]]
     """
     _check_circuit(circuit)
+    circuit = prepared(circuit, initial)
     theta = np.asarray(getval(check_theta(circuit, theta)), dtype=float)
     n = circuit.n_qubits
     memory.guard(16 * 4 ** n, f"a density matrix of {n} qubits")
@@ -490,7 +496,7 @@ def density_matrix(circuit, theta) -> np.ndarray:
     return rho if theta.ndim == 2 else rho[0]
 
 
-def sample(circuit, theta, shots, seed=None, *, readout=None) -> np.ndarray:
+def sample(circuit, theta, shots, seed=None, *, readout=None, initial=None) -> np.ndarray:
     """Basis-state indices of ``shots`` readouts of all qubits (big-endian), shape (shots,)
     or (B, shots).
 
@@ -505,6 +511,7 @@ def sample(circuit, theta, shots, seed=None, *, readout=None) -> np.ndarray:
     [2, 2, 2]
     """
     _check_circuit(circuit)
+    circuit = prepared(circuit, initial)
     shots = _check_shots(shots)
     if shots is None:
         raise ValueError("shots must be a positive int; got None")
