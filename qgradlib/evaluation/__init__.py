@@ -7,6 +7,7 @@ that spread its rows; and the ledger that counts what a device would run.
 from .distribute import ChunkError
 from .expectation import density_matrix, evaluate, expect, probabilities, sample, state
 from .ledger import Ledger
+from .statistics import counts, variance
 
 __all__ = ["expect", "probabilities", "state", "sample", "density_matrix", "evaluate", "Ledger",
-           "ChunkError"]
+           "ChunkError", "counts", "variance"]

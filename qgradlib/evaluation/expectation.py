@@ -247,10 +247,44 @@ def _observables(observables, n):
     for o in obs:
         if not isinstance(o, Observable):
             raise TypeError(f"observables must be Observable instances; got {type(o).__name__}")
+        if o.traced:
+            raise TypeError("this function cannot differentiate observable coefficients (only "
+                            "expect and variance can): build the observable from plain floats")
         if o.n_qubits != n:
             raise ValueError(f"observable on {o.n_qubits} qubits does not fit a circuit of {n} qubits "
                              "(Pauli strings need one letter per qubit)")
     return tuple(obs), single
+
+
+def _traced_split(observables):
+    """``(terms, weights, single)`` when some coefficient is traced by autograd, else None.
+
+    Every traced observable becomes its Pauli words (unit coefficients) and, weighted by
+    the traced coefficients, the sum of their values; other observables pass as they are.
+    """
+    single = isinstance(observables, Observable)
+    obs = [observables] if single else observables
+    if not isinstance(obs, (list, tuple)) or not any(isinstance(o, Observable) and o.traced for o in obs):
+        return None
+    inner, index, weights = [], {}, []
+
+    def slot(o, key):
+        if key not in index:
+            index[key] = len(inner)
+            inner.append(o)
+        return index[key]
+
+    for k, o in enumerate(obs):
+        if not isinstance(o, Observable):
+            raise TypeError(f"observables must be Observable instances; got {type(o).__name__}")
+        if not o.traced:
+            weights.append([(slot(o, ("whole", k)), 1.0)])
+            continue
+        row = [(slot(Observable({w: 1.0}), ("word", w)), c) for w, c in o.terms.items()]
+        if o.dense is not None:
+            row.append((slot(Observable.from_matrix(o.dense), ("dense", k)), 1.0))
+        weights.append(row)
+    return inner, weights, single
 
 
 def _check_qubits(qubits, n):
@@ -408,6 +442,17 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     True
     """
     _check_circuit(circuit)
+    traced = _traced_split(observables)
+    if traced is not None:
+        # coefficients being differentiated stay in autograd as weights of the term values;
+        # only the terms (plain observables) go through the primitive
+        inner, weights, single = traced
+        vals = expect(circuit, inner, theta, shots=shots, seed=seed, gradient=gradient,
+                      shift=shift, step=step, stencil=stencil, splits=splits, memory=memory,
+                      allocation=allocation, readout=readout, fuse=fuse, executor=executor,
+                      chunk=chunk, initial=initial)
+        out = [sum(w * vals[..., j] for j, w in row) for row in weights]
+        return out[0] if single else anp.stack(out, axis=-1)
     circuit = prepared(circuit, initial)
     obs, single = _observables(observables, circuit.n_qubits)
     check_theta(circuit, theta)
