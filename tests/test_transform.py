@@ -161,3 +161,15 @@ def test_compute_uncompute_overlap_against_the_reference():
     ref_g = np.array([(f(a + h * e) - f(a - h * e)) / (2 * h) for e in np.eye(m)])
     g = grad(lambda x: qg.expect(c + c.inverse(), zero, anp.concatenate([x, b])))(a)
     np.testing.assert_allclose(g, ref_g, atol=1e-7)
+
+
+def test_inverse_compose_and_drawing_carry_data_inputs():
+    c = qg.Circuit(2).ry(0, input=0).ry(1).cnot(0, 1).rz(1, input=1, scale=2.0, offset=0.1)
+    inv = c.inverse()
+    assert inv.n_inputs == 2 and inv.inverse() == c
+    x, t = np.array([0.4, -1.3]), np.array([0.8])
+    psi = qg.state(c + inv, np.concatenate([t, t]), inputs=x)
+    np.testing.assert_allclose(psi, [1, 0, 0, 0], atol=1e-12)
+    assert "RZ(2·x1+0.1):" not in str(c) and "RZ(2·x1+0.1)" in str(c)
+    assert "RZ(-2·x1-0.1)" in str(inv)
+    assert qg.Circuit(3).compose(c, qubits=[2, 0]).n_inputs == 2

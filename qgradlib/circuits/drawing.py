@@ -6,8 +6,9 @@ qubit number), so that it reads the same in a terminal, a log file or a docstrin
 - each qubit is one line of ``-``, starting with its number;
 - operations stand in layers (columns): an operation goes to the first layer after the last
   one that touches any row it spans, so the text reads left to right in circuit order;
-- a parametric gate shows its angle map in brackets: ``RY(θ3)``, ``RZ(2·θ0+0.25)``, or a
-  fixed angle to four significant digits ``RX(0.25)``; with ``theta`` the numbers are bound;
+- a parametric gate shows its angle map in brackets: ``RY(θ3)``, ``RZ(2·θ0+0.25)``, a data
+  input ``RY(x2)`` (feature 2 of a data point), or a fixed angle to four significant digits
+  ``RX(0.25)``; with ``theta`` the parameters are bound (data inputs stay symbols);
 - a gate on several qubits writes its label on each of its rows with ``:k``, the position of
   that qubit in the gate (``CNOT:1`` is the control, ``CNOT:2`` the target), and a ``|``
   connector runs down the column through the gap lines between qubit lines and across the
@@ -40,11 +41,12 @@ def number(v) -> str:
 
 def angle_text(op, theta=None) -> str:
     """The angle of a parametric operation as text: its map, or its value at ``theta``."""
-    if op.param is None:
+    feature = getattr(op, "input", None)
+    if op.param is None and feature is None:
         return number(op.angle)
-    if theta is not None:
+    if theta is not None and feature is None:
         return number(op.scale * float(theta[op.param]) + op.offset)
-    sym = f"θ{op.param}"
+    sym = f"θ{op.param}" if feature is None else f"x{feature}"
     if op.scale == 1.0:
         text = sym
     elif op.scale == -1.0:

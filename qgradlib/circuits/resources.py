@@ -64,7 +64,8 @@ def resources(circuit, theta=None) -> Resources:
     ops = circuit.operations
     gates = [op for op in ops if op.gate.kind != "channel"]
     theta = np.zeros(circuit.n_params) if theta is None else theta
-    phi = np.asarray(circuit.angles(theta), dtype=float)
+    inputs = np.zeros(circuit.n_inputs) if circuit.n_inputs else None
+    phi = np.asarray(circuit.angles(theta, inputs), dtype=float)
     columns = [k for k, op in enumerate(circuit.parametric_operations)
                if op.param is not None and op.scale != 0.0]
     if columns:

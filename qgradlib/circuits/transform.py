@@ -1,8 +1,8 @@
 """New circuits from old: the adjoint (inverse) circuit and composition on a qubit map.
 
 The inverse keeps the parameters: for a generator gate ``U(a)^dagger = U(-a)``, so the angle
-map of each operation is negated (scale and offset, or the fixed angle) and ``theta`` means
-the same thing in both circuits. A fixed gate becomes its conjugate transpose (the same gate
+map of each operation is negated (scale and offset, or the fixed angle) and ``theta`` (and a
+data point ``x`` for ``input=`` gates) means the same thing in both circuits. A fixed gate becomes its conjugate transpose (the same gate
 when it is its own inverse); a Hamiltonian gate ``expm(-1j (W + a P))`` becomes
 ``expm(-1j (-W - a P))``, that is the drift negated and the angle negated; a function gate
 becomes the gate ``a -> fn(a)^dagger``. Noise channels have no inverse (they are not
@@ -88,20 +88,21 @@ def inverse(circuit):
         gate, negate = inverse_gate(op.gate)
         if not gate.parametric:
             new = replace(op, gate=gate)
-        elif op.param is None:
+        elif op.param is None and op.angle is not None:
             new = replace(op, gate=gate, angle=_negate(op.angle) if negate else op.angle)
-        elif negate:
+        elif negate:        # a trainable or a data-input angle: its map scale * v + offset
             new = replace(op, gate=gate, scale=_negate(op.scale), offset=_negate(op.offset))
         else:
             new = replace(op, gate=gate)
         out._ops.append(new)
     out._n_params = circuit.n_params
+    out._n_inputs = circuit.n_inputs
     return out
 
 
 def compose(circuit, other, qubits=None):
     """``circuit`` followed by ``other`` with other's qubit i on ``qubits[i]``;
-    other's parameters are renumbered to follow ``circuit``'s."""
+    other's parameters are renumbered to follow ``circuit``'s, its data inputs are shared."""
     if not isinstance(other, type(circuit)):
         raise TypeError(f"other must be a qgradlib Circuit; got {type(other).__name__}")
     n = circuit.n_qubits
@@ -131,5 +132,7 @@ def compose(circuit, other, qubits=None):
         param = None if op.param is None else op.param + shift
         out._ops.append(replace(op, qubits=mapped, param=param))
     out._n_params = circuit.n_params + other.n_params
+    # data inputs are shared, not renumbered: both circuits read the same data point
+    out._n_inputs = max(circuit.n_inputs, other.n_inputs)
     out._cache = None
     return out

@@ -14,7 +14,6 @@ True
 from __future__ import annotations
 
 import numpy as np
-from autograd.tracer import getval
 
 from ..circuits.observables import Observable
 from .expectation import expect, sample
@@ -49,12 +48,13 @@ def variance(circuit, observable, theta, **options):
     return vals[..., 0] - vals[..., 1] ** 2
 
 
-def counts(circuit, theta, shots, seed=None, *, readout=None, initial=None):
+def counts(circuit, theta, shots, seed=None, *, inputs=None, readout=None, initial=None):
     """Bitstring counts of ``shots`` readouts of all qubits: ``{"0110": 12, ...}``.
 
     Qubit 0 is the leftmost character. The draws are those of `sample` with the same
     arguments (the same seed gives the same shots); bitstrings are listed in increasing
-    order and only those seen appear. For theta of shape (B, n_params), a list of B dicts.
+    order and only those seen appear. For theta of shape (B, n_params) (or a data set
+    ``inputs`` of N points), a list of dicts, one per row.
     Simulated shots, not a device's: the counts follow the exact distribution.
 
     Examples
@@ -65,13 +65,13 @@ def counts(circuit, theta, shots, seed=None, *, readout=None, initial=None):
     >>> sorted(qg.counts(c, np.zeros(0), shots=100, seed=3))
     ['00', '11']
     """
-    idx = sample(circuit, theta, shots, seed, readout=readout, initial=initial)
+    idx = sample(circuit, theta, shots, seed, inputs=inputs, readout=readout, initial=initial)
     n = circuit.n_qubits
 
     def table(row):
         values, number = np.unique(row, return_counts=True)
         return {format(int(v), f"0{n}b"): int(k) for v, k in zip(values, number)}
 
-    if np.ndim(getval(theta)) == 2:
+    if np.ndim(idx) == 2:
         return [table(row) for row in idx]
     return table(idx)
