@@ -31,7 +31,7 @@ from autograd.tracer import getval
 import numpy as np
 
 from . import gates as _g
-from . import transform
+from . import files, transform
 from .channels import Channel
 from .drawing import angle_text, draw, number
 from .gates import Gate
@@ -164,6 +164,24 @@ class Circuit:
         theta = np.zeros(self._n_params) if theta is None else \
             np.asarray(getval(check_theta(self, theta)), dtype=float)
         return resources(self, theta)
+
+    # -- files ----------------------------------------------------------------------------
+    def to_json(self, indent=None) -> str:
+        """The circuit as JSON text in qgradlib's own versioned schema (`qgradlib.circuits.files`).
+
+        Examples
+        --------
+        >>> import qgradlib as qg
+        >>> text = qg.Circuit(1).ry(0, scale=2.0).to_json()
+        >>> text[:52]
+        '{"format": "qgradlib.circuit", "version": 1, "n_qubi'
+        """
+        return files.circuit_to_json(self, indent)
+
+    @classmethod
+    def from_json(cls, text) -> "Circuit":
+        """A circuit from `to_json` text; every field is checked, errors name the field."""
+        return files.circuit_from_json(cls, Operation, text)
 
     # -- comparing ------------------------------------------------------------------------
     def __eq__(self, other):

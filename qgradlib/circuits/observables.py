@@ -83,6 +83,28 @@ class Observable:
         obj._dense.setflags(write=False)
         return obj
 
+    # -- files ----------------------------------------------------------------------------
+    def to_json(self, indent=None) -> str:
+        """The observable as JSON text in qgradlib's own versioned schema
+        (`qgradlib.circuits.files`).
+
+        Examples
+        --------
+        >>> H = Observable({"ZZ": -1.0, "XI": 0.5})
+        >>> Observable.from_json(H.to_json()) == H
+        True
+        """
+        from .files import observable_to_json
+
+        return observable_to_json(self, indent)
+
+    @classmethod
+    def from_json(cls, text) -> "Observable":
+        """An observable from `to_json` text; every field is checked, errors name the field."""
+        from .files import observable_from_json
+
+        return observable_from_json(cls, text)
+
     # -- read-only views ------------------------------------------------------------------
     @property
     def n_qubits(self) -> int:
