@@ -368,7 +368,6 @@ def nbytes(prog: Program, shared=None) -> int:
 CACHE_BYTES = 64 * 2 ** 20
 # kept columns at most this fraction of all columns: derive from the fused program
 DERIVE_FRACTION = 0.125
-_CACHE: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 
 
 _LRU: "OrderedDict" = OrderedDict()   # (id(circuit), key) -> (weak circuit, bytes)
@@ -386,10 +385,9 @@ def program(circuit, fuse: bool, solo_columns=frozenset(), bake_fixed_angles=Tru
     ops = len(circuit)
     solo = frozenset(solo_columns)
     key = (bool(fuse), solo, bool(bake_fixed_angles))
-    try:
-        per = _CACHE.setdefault(circuit, {})
-    except TypeError:
-        per = None
+    # held by the circuit itself (circuits compare by content and are unhashable, so they
+    # cannot key a dict); Circuit drops `_memo_*` attributes when copied or pickled
+    per = circuit.__dict__.setdefault("_memo_programs", {})
     hit = None if per is None else per.get(key)
     if hit is not None and hit[0] == ops:
         _LRU.move_to_end((id(circuit), key), last=True)
@@ -427,7 +425,7 @@ def _evict():
         (cid, key), (ref, size) = _LRU.popitem(last=False)
         _HELD[0] -= size
         c = ref()
-        per = None if c is None else _CACHE.get(c)
+        per = None if c is None else c.__dict__.get("_memo_programs")
         if per is not None:
             per.pop(key, None)
 
