@@ -21,6 +21,7 @@ from numbers import Real
 
 import autograd.numpy as anp
 import numpy as np
+from autograd.tracer import Box, getval
 
 from . import gates as _g
 from .channels import Channel
@@ -215,8 +216,15 @@ class Circuit:
         self.angle_map()
         _, b, idx, scale = self._cache
         if self._n_params == 0:
-            return anp.zeros(theta.shape[:-1] + (b.size,)) + b
-        return theta[..., idx] * scale + b
+            phi = anp.zeros(theta.shape[:-1] + (b.size,)) + b
+        else:
+            phi = theta[..., idx] * scale + b
+        big = np.abs(getval(phi)).max(initial=0.0)
+        if big >= MAX_ANGLE:
+            raise ValueError(f"theta gives a gate angle of magnitude {big:.3g}; angles (scale * theta "
+                             "+ offset) must stay below 2**40 (about 1.1e12) in magnitude, beyond "
+                             "which a float64 no longer holds an angle to 1e-4 rad")
+        return phi
 
     # -- standard gates -------------------------------------------------------------------
     def h(self, q): return self.add(_g.H, q)  # noqa: E704
@@ -324,19 +332,42 @@ def _finite(v, name):
     return v
 
 
-def check_theta(circuit: Circuit, theta):
-    """Validate theta: shape (n_params,) or (B, n_params), real, finite. Keeps autograd boxes."""
-    from autograd.tracer import getval
+# Beyond this magnitude a float64 holds an angle to worse than 1e-4 rad (its spacing there is
+# 2**-12) and the reduction modulo a gate's period loses every digit of the phase.
+MAX_ANGLE = 2.0 ** 40
 
+
+def check_theta(circuit: Circuit, theta):
+    """Validate theta and return it as float64: shape (n_params,) or (B, n_params), real, finite.
+
+    Integer arrays, lists, tuples and nested lists become float arrays. Inside an autograd
+    derivative the result stays a box, so the derivative reaches the caller's argument:
+
+    - a list or tuple of floats is stacked with ``autograd.numpy.array`` (autograd then returns
+      the gradient as a list, as it does for any list argument);
+    - an integer array that is itself the argument being differentiated is converted exactly;
+    - an integer array made by other autograd operations, and a list of Python ints, are
+      refused: autograd carries derivatives with respect to integers as integers (its
+      indexing rule truncates them), so the derivative could already be wrong upstream.
+
+    Booleans are refused everywhere.
+    """
     raw = getval(theta)
-    if isinstance(raw, (list, tuple)):
+    listed = isinstance(raw, (list, tuple))
+    if listed:
+        leaves = _leaves(raw)
+        if any(isinstance(v, (bool, np.bool_)) for v in leaves):
+            raise TypeError("theta must hold real numbers, not booleans")
+        if isinstance(theta, Box) and any(not isinstance(v, (float, np.floating)) for v in leaves):
+            raise TypeError("theta is a list of ints inside an autograd derivative: autograd cannot "
+                            "differentiate with respect to Python ints; pass a float array such "
+                            "as np.array(theta, dtype=float)")
         try:
-            raw = np.asarray(raw)
-        except ValueError:  # rows of different lengths
+            raw = np.asarray(_unboxed(raw))
+        except (ValueError, TypeError):  # rows of different lengths, or non-numbers
             raise ValueError(f"theta must have shape ({circuit.n_params},) or (B, {circuit.n_params}); "
-                             "got a ragged sequence") from None
-        theta = raw
-    if not isinstance(raw, (np.ndarray, Real, np.generic)) or isinstance(raw, bool):
+                             "got a ragged or non-numeric sequence") from None
+    if not isinstance(raw, (np.ndarray, Real, np.generic)) or isinstance(raw, (bool, np.bool_)):
         raise TypeError(f"theta must be a real array of shape ({circuit.n_params},) or "
                         f"(B, {circuit.n_params}); got {type(raw).__name__}")
     arr = np.asarray(raw)
@@ -347,6 +378,44 @@ def check_theta(circuit: Circuit, theta):
                          f"got {arr.shape}")
     if not np.all(np.isfinite(arr)):
         raise ValueError("theta must be finite (found NaN or inf)")
-    if theta is raw and arr.dtype != float:
-        return arr.astype(float)
+    if not isinstance(theta, Box) and not (listed and _holds_box(theta)):
+        return np.asarray(arr, dtype=float)
+    if listed:
+        return anp.array(theta)
+    if arr.dtype.kind in "iu":
+        if not _is_argument(theta):
+            raise TypeError("theta is an integer array made inside an autograd derivative: autograd "
+                            "carries derivatives with respect to integer arrays as integers and "
+                            "truncates them; differentiate with respect to a float array "
+                            "(np.asarray(theta, dtype=float))")
+        return theta * 1.0
     return theta
+
+
+def _leaves(seq):
+    out = []
+    for v in seq:
+        v = getval(v)
+        if isinstance(v, (list, tuple)):
+            out.extend(_leaves(v))
+        else:
+            out.append(v)
+    return out
+
+
+def _unboxed(seq):
+    """The nested sequence with every autograd box replaced by its value."""
+    return [_unboxed(getval(v)) if isinstance(getval(v), (list, tuple)) else getval(v) for v in seq]
+
+
+def _holds_box(seq):
+    return any(isinstance(v, Box) or (isinstance(v, (list, tuple)) and _holds_box(v)) for v in seq)
+
+
+def _is_argument(box):
+    """True when ``box`` (at every level of nesting) is the argument of its derivative itself."""
+    while isinstance(box, Box):
+        if getattr(box._node, "parents", None) != []:
+            return False
+        box = box._value
+    return True

@@ -408,7 +408,7 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     """
     _check_circuit(circuit)
     obs, single = _observables(observables, circuit.n_qubits)
-    check_theta(circuit, theta)
+    theta = check_theta(circuit, theta)
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
                  allocation=allocation, readout=readout, fuse=fuse, executor=executor, chunk=chunk)
@@ -437,7 +437,7 @@ def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradien
     """
     _check_circuit(circuit)
     qs = _check_qubits(qubits, circuit.n_qubits)
-    check_theta(circuit, theta)
+    theta = check_theta(circuit, theta)
     spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
                  readout=readout, fuse=fuse, executor=executor, chunk=chunk)
