@@ -118,3 +118,85 @@ def test_audit_at_integer_theta_differentiates_the_float_point():
     assert np.allclose(r.reference, [-3 * np.sin(2.0)], atol=1e-12)        # common practice
     assert np.allclose(r["shift"].gradient, [-3 * np.sin(2.0)], atol=1e-12)
     assert r["autograd-check"].passed and r.ok(1e-6)
+
+
+# -- 2. finite differences step theta, one trainable parameter at a time ----------------------
+def shared_by_six():
+    c = qg.Circuit(6).ry(0)
+    for q in range(1, 6):
+        c.ry(q, param=0)
+    return c                             # <Z^6> = cos(a)**6   # common practice
+
+
+Z6 = qg.Observable({"ZZZZZZ": 1.0})
+
+
+@pytest.mark.parametrize("stencil, executions", [("central", 3), ("forward", 2)])
+def test_difference_prices_one_shared_parameter_as_one_step(stencil, executions):
+    c, a = shared_by_six(), 0.4
+    with qg.Ledger() as book:
+        g = grad(lambda t: qg.expect(c, Z6, t, gradient="difference", stencil=stencil))(np.array([a]))
+    # a device steps theta: the value plus 2 (central) or 1 (forward) shifted circuits
+    assert book.executions == executions and book.by_purpose["theta[0]"] == executions - 1
+    tol = 1e-8 if stencil == "central" else 1e-4
+    assert np.allclose(g, [-6 * np.cos(a) ** 5 * np.sin(a)], atol=tol)     # common practice
+
+
+def test_difference_counts_and_values_with_shared_and_scaled_parameters():
+    c = qg.Circuit(2).ry(0).rx(1, param=0, scale=2.0).rz(0, param=0, offset=0.1).ry(1)
+    c.crx(0, 1, param=1, scale=-0.5).rx(0, angle=0.3)
+    H = qg.Observable({"ZZ": 1.0, "XI": 0.4})
+    theta = np.array([0.3, -0.7])
+    with qg.Ledger() as book:
+        g = grad(lambda t: qg.expect(c, H, t, gradient="difference"))(theta)
+    assert book.executions == (1 + 2 * 2) * 2        # 2 parameters, 2 measurement settings
+    exact = grad(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)
+    assert np.allclose(g, exact, atol=1e-8)
+    # second derivatives by differences of differences stay right (step 1e-4 for order 2)
+    hd = hessian(lambda t: qg.expect(c, H, t, gradient="difference", step=1e-4))(theta)
+    assert np.allclose(hd, hessian(lambda t: qg.expect(c, H, t))(theta), atol=1e-5)
+
+
+def test_audit_prices_finite_differences_per_parameter():
+    c = shared_by_six()
+    r = qg.check.gradients(c, Z6, np.array([0.4]), seed=0)
+    assert r["difference"].executions == 3                 # value + 2, not value + 12
+    assert r.ok(1e-6)
+
+
+# -- 7, 8. copies are independent; a derivative belongs to the circuit its value evaluated -----
+@pytest.mark.parametrize("make_copy", [copy.copy, copy.deepcopy, qg.Circuit.copy])
+def test_copies_of_a_circuit_are_independent(make_copy):
+    c = qg.Circuit(1).ry(0)
+    d = make_copy(c)
+    d.rx(0)
+    assert (len(c), c.n_params, len(d), d.n_params) == (1, 1, 2, 2)
+    assert np.isclose(qg.expect(c, Z3, np.array([0.2])), 3 * np.cos(0.2))   # common practice
+    fn = qg.Gate.from_function("f", lambda a: qg.gates.RY.matrix(a), 1)     # a lambda inside
+    e = copy.deepcopy(qg.Circuit(1).add(fn, 0))
+    assert e.operations[0].gate is fn
+
+
+@pytest.mark.parametrize("method", ["shift", "adjoint", "difference"])
+def test_vjp_differentiates_the_circuit_its_forward_pass_evaluated(method):
+    c = qg.Circuit(1).ry(0)
+    a = 0.7
+    vjp, value = make_vjp(lambda t: qg.expect(c, Z3, t, gradient=method))(np.array([a]))
+    c.rx(0, param=0)              # the circuit changes after the forward pass
+    g = vjp(1.0)
+    tol = 1e-12 if method != "difference" else 1e-8
+    assert np.isclose(value, 3 * np.cos(a)) and np.allclose(g, [-3 * np.sin(a)], atol=tol)
+    # and the changed circuit is evaluated as changed on the next call
+    g2 = grad(lambda t: qg.expect(c, Z3, t, gradient=method))(np.array([a]))
+    # RY(a) then RX(a) on |0>: <Z> = cos(a)**2, so d/da 3 cos(a)**2 = -3 sin(2a)   # common practice
+    assert np.allclose(g2, [-3 * np.sin(2 * a)], atol=1e-6)
+
+
+def test_snapshot_refuses_to_change():
+    c = qg.Circuit(1).ry(0)
+    snap = c.snapshot()
+    assert c.snapshot() is snap
+    with pytest.raises(ValueError, match="snapshot"):
+        snap.rx(0)
+    c.rx(0)
+    assert c.snapshot() is not snap and len(c.snapshot()) == 2

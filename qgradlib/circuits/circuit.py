@@ -63,6 +63,8 @@ class Circuit:
         self._ops: list[Operation] = []
         self._n_params = 0
         self._cache = None
+        self._version = 0          # bumped by every change; snapshot() is memoised on it
+        self._frozen = False
 
     # -- read-only views ------------------------------------------------------------------
     @property
@@ -117,6 +119,9 @@ class Circuit:
         >>> qg.Circuit(2).add(qg.Gate.from_generator("zz", M), (0, 1)).n_params
         1
         """
+        if self._frozen:
+            raise ValueError("this circuit is a snapshot held by an evaluation and cannot change; "
+                             "build on a copy (circuit.copy())")
         if not isinstance(gate, (Gate, Channel)):
             raise TypeError(f"gate must be a qgradlib Gate or Channel; got {type(gate).__name__}")
         qs = self._qubits(qubits, gate)
@@ -143,6 +148,7 @@ class Circuit:
     def _append(self, op):
         self._ops.append(op)
         self._cache = None
+        self._version += 1
         return self
 
     def _qubits(self, qubits, gate):
@@ -167,10 +173,38 @@ class Circuit:
         return qs
 
     def copy(self) -> "Circuit":
+        """An independent circuit with the same operations (appending to one leaves the other).
+
+        ``copy.copy`` and ``copy.deepcopy`` give the same: operations are frozen values, so
+        sharing them is safe.
+        """
         out = Circuit(self._n)
         out._ops = list(self._ops)
         out._n_params = self._n_params
         return out
+
+    def __copy__(self):
+        return self.copy()
+
+    def __deepcopy__(self, memo):
+        return self.copy()
+
+    def snapshot(self) -> "Circuit":
+        """A frozen copy of the circuit as it is now, memoised until the circuit changes.
+
+        An evaluation holds the snapshot of what it evaluated, so its derivative (computed
+        later, when autograd calls the VJP) belongs to that circuit even if the user appends
+        gates meanwhile. A snapshot refuses to change.
+        """
+        if self._frozen:
+            return self
+        memo = getattr(self, "_snap", None)
+        if memo is None or memo[0] != self._version:
+            snap = self.copy()
+            snap._frozen = True
+            memo = (self._version, snap)
+            self._snap = memo
+        return memo[1]
 
     def __add__(self, other):
         """Concatenate: ``other``'s parameters are renumbered to follow ``self``'s."""

@@ -129,9 +129,12 @@ def _angle_ticks(phi, circuit):
     periods = _periods(circuit)
     has = ~np.isnan(periods)
     if np.any(has):
-        # reduce first, round after: a point just below a period rounds onto it, hence mod again
+        # reduce first, round after: a point just below a period rounds onto it, hence mod again.
+        # Gates with a period below one radian (high frequencies) get a grid that fine relative
+        # to their period, so their distinct shifts never share a tick.
         per = periods[has]
-        t[:, has] = np.mod(np.round(np.mod(t[:, has], per) * _TICK), np.round(per * _TICK))
+        tick = _TICK / np.minimum(per, 1.0)
+        t[:, has] = np.mod(np.round(np.mod(t[:, has], per) * tick), np.round(per * tick))
     if not np.all(has):
         t[:, ~has] = np.round(t[:, ~has] * _TICK)
     return t + 0.0          # -0.0 and 0.0 must give one key
@@ -167,35 +170,47 @@ def _shift_jacobian(phi, spec, inserts):
 
 
 def _fd_jacobian(ans, phi, spec, inserts):
+    """Finite differences that step theta, one trainable parameter at a time, as (P, K, G).
+
+    A device steps the parameters, not each gate angle: parameter i moves phi along column
+    ``A[:, i]`` of the angle map, so a parameter shared by six gates costs two circuits
+    (central), not twelve. The differences ``D_i ~ dE/dtheta_i`` are returned lifted to phi
+    as ``D @ diag(1 / |A_i|**2) @ A.T``; the chain rule through the angle map (``A.T``) turns
+    that back into exactly ``D``, since each gate angle belongs to one parameter and
+    ``A.T @ A`` is therefore diagonal.
+    """
     P, G = np.shape(getval(phi))
+    A = spec.circuit.angle_map()[0]
+    params = [i for i in range(A.shape[1]) if np.any(A[:, i] != 0.0)]
     h = spec.step if spec.step is not None else (1e-5 if spec.shots is None else 0.1)
     steps = (h, -h) if spec.stencil == "central" else (h,)
-    T = len(steps) * len(spec.columns)
+    T = len(steps) * len(params)
     delta = np.zeros((T, G))
-    coeff = np.zeros((G, T))
-    names = []
-    for i, j in enumerate(spec.columns):
+    coeff = np.zeros((len(params), T))
+    for i, param in enumerate(params):
         for s, step in enumerate(steps):
             t = i * len(steps) + s
-            delta[t, j] = step
-            coeff[j, t] = (1.0 if step > 0 else -1.0) / (len(steps) * h)
-            names.append(spec.circuit.parametric_operations[j].gate.name)
+            delta[t] = step * A[:, param]
+            coeff[i, t] = (1.0 if step > 0 else -1.0) / (len(steps) * h)
+    lift = A[:, params] / np.sum(A[:, params] ** 2, axis=0)           # (G, len(params))
+    names = [f"theta[{param}]" for param in params for _ in steps]
     points = anp.reshape(phi[:, None, :] + delta[None], (P * T, G))
     ins = None if inserts is None else [row for row in inserts for _ in range(T)]
-    J = _jacobian(points, ins, coeff, names * P, spec, P)
+    J = _jacobian(points, ins, lift @ coeff, names * P, spec, P)
     if spec.stencil == "forward" and T:
         # f'(a) ~ (f(a + h) - f(a)) / h: the value term, reused from the forward pass
-        base = np.zeros((G,))
-        base[list(spec.columns)] = 1.0 / h
-        J = J - anp.reshape(ans, (P, spec.n_out, 1)) * base
+        J = J - anp.reshape(ans, (P, spec.n_out, 1)) * (lift.sum(axis=1) / h)
     return J
 
 
-def _adjoint_vjp(phi, spec, g):
+def _adjoint_vjp(phi, spec, g, cache):
     if isinstance(phi, Box) or isinstance(g, Box):
-        # a derivative of the derivative: the adjoint Jacobian, itself differentiated by shifts
+        # a derivative of the derivative: the adjoint Jacobian, itself differentiated by shifts,
+        # computed once for all the cotangents autograd's jacobian sends
         check_nested(spec)
-        return anp.einsum("pk,pkg->pg", g, adjoint_jacobian(phi, spec))
+        if "adjoint" not in cache:
+            cache["adjoint"] = adjoint_jacobian(phi, spec)
+        return anp.einsum("pk,pkg->pg", g, cache["adjoint"])
     return adjoint_vjp(phi, spec, g)
 
 
@@ -213,7 +228,7 @@ def _evaluate_vjp(ans, phi, spec, inserts=None, purposes="value"):
 
     def vjp(g):
         if spec.gradient == "adjoint":
-            return _adjoint_vjp(phi, spec, g)
+            return _adjoint_vjp(phi, spec, g, cache)
         return anp.einsum("pk,pkg->pg", g, jac())
     return vjp
 
@@ -310,6 +325,9 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
     if memory_budget is not None and (not isinstance(memory_budget, (int, np.integer)) or memory_budget < 1):
         raise ValueError(f"memory must be a positive number of bytes; got {memory_budget!r}")
     executor, chunk = distribute.check_executor(executor, chunk)
+    # the evaluation and every derivative of it see this frozen copy, whatever happens to
+    # the user's circuit afterwards
+    circuit = circuit.snapshot()
     pops = circuit.parametric_operations
     columns = tuple(k for k, op in enumerate(pops) if op.param is not None and op.scale != 0.0)
     plan = plan_measurements(observables) if kind == "expect" else None
