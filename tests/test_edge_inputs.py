@@ -200,3 +200,171 @@ def test_snapshot_refuses_to_change():
         snap.rx(0)
     c.rx(0)
     assert c.snapshot() is not snap and len(c.snapshot()) == 2
+
+
+# -- 6. nested adjoint derivatives: same values as shift rules, shifted Jacobians computed once -
+def test_nested_adjoint_derivatives_compute_each_shifted_jacobian_once(monkeypatch):
+    from qgradlib.evaluation import adjoint_nested
+    c = qg.Circuit(3).ry(0).ry(1).cnot(0, 1).ry(2).cz(1, 2).rx(0).crx(2, 0)
+    H = qg.Observable({"ZZI": 1.0, "IXZ": -0.5})
+    theta = np.array([0.3, -0.4, 0.8, 0.2, 1.1])
+    calls = []
+    real = adjoint_nested.adjoint_vjp
+    monkeypatch.setattr(adjoint_nested, "adjoint_vjp",
+                        lambda phi, spec, g: calls.append(np.shape(phi)[0]) or real(phi, spec, g))
+    h = hessian(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)
+    # exact against shift rules and against the dense reference's curvature plan
+    assert np.allclose(h, hessian(lambda t: qg.expect(c, H, t))(theta), atol=1e-12)
+    # one batch at the point and one of the shifted points (2 per RY/RX, 4 for the CRX):
+    # not one batch of shifted points per entry of the gradient (m = 5 of them)
+    assert len(calls) == 2 and calls[1] == 2 * 4 + 4
+
+
+# -- 9. function gates must be unitary and of one size at every angle --------------------------
+def test_function_gate_that_is_not_unitary_at_some_angles_is_refused():
+    def stretch(a):                 # unitary at 0, a scaled identity elsewhere
+        return np.eye(2) * (1.0 + abs(a))
+    g = qg.Gate.from_function("stretch", stretch, 1)
+    c = qg.Circuit(1).add(g, 0)
+    with pytest.raises(ValueError, match=r"gate 'stretch' .*not unitary at angle 2\.0"):
+        qg.expect(c, Z3, np.array([2.0]))
+    with pytest.raises(ValueError, match="not unitary"):
+        qg.Gate.from_function("scaled", lambda a: 2 * np.eye(2), 1)
+
+
+def test_function_gate_whose_matrix_changes_size_is_refused():
+    g = qg.Gate.from_function("grows", lambda a: np.eye(2 if a < 1 else 4), 1)
+    with pytest.raises(ValueError, match=r"gate 'grows'.* 4x4.* 2x2 matrix"):
+        qg.expect(qg.Circuit(1).add(g, 0), Z3, np.array([[0.5], [1.5]]))
+
+
+# -- 10. finite-difference steps outside their useful range ------------------------------------
+def ry_function_gate():
+    # RY given only by its matrix; <3 Z> = 3 cos(a)   # common practice
+    return qg.Gate.from_function("ry_fn", lambda a: qg.gates.RY.matrix(a), 1)
+
+
+@pytest.mark.parametrize("step", [1e-8, 1e-10, 1e6])
+def test_curvature_step_outside_its_useful_range_is_refused(step):
+    c = qg.Circuit(1).add(ry_function_gate(), 0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        with pytest.raises(ValueError, match=r"step=.* outside the useful range .* order 2"):
+            curvature.hessian(c, Z3, np.array([0.4]), step=step)
+
+
+def test_difference_step_outside_its_useful_range_is_refused():
+    c = one_qubit()
+    for step in (1e-13, 2.0, 1e6):
+        with pytest.raises(ValueError, match=r"step=.* outside the useful range"):
+            qg.expect(c, Z3, np.array([0.4]), gradient="difference", step=step)
+    # 1e-8 is fine for a gradient, not for a Hessian by differences of differences
+    f = lambda t: qg.expect(c, Z3, t, gradient="difference", step=1e-8)  # noqa: E731
+    assert np.allclose(grad(f)(np.array([0.4])), [-3 * np.sin(0.4)], atol=1e-6)   # common practice
+    with pytest.raises(ValueError, match=r"order 2"):
+        hessian(f)(np.array([0.4]))
+
+
+def test_steps_inside_the_range_give_the_derivatives():
+    c = qg.Circuit(1).add(ry_function_gate(), 0)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        r = curvature.hessian(c, Z3, np.array([0.4]), step=1e-3)
+    assert np.isclose(r.hessian[0, 0], -3 * np.cos(0.4), atol=1e-5)       # common practice
+    from qgradlib.rules.stencils import step_range
+    lo, hi = step_range(2)
+    assert lo == pytest.approx((np.finfo(float).eps / 1e-4) ** 0.5) and hi == 1.0
+
+
+# -- 11. high frequencies: points merge only when they are equal circuits ----------------------
+@pytest.mark.parametrize("w", [1e10, 1e13])
+def test_high_frequency_generator_keeps_distinct_points_apart(w):
+    # PHASE-like gate diag(0, w) after H: <X> = cos(w a)   # common practice
+    c = qg.Circuit(1).h(0).add(qg.Gate.from_generator("fast", np.diag([0.0, w])), 0)
+    X = qg.Observable({"X": 1.0})
+    a = 0.3 / w
+    r = curvature.hessian(c, X, np.array([a]))
+    assert np.allclose(r.gradient, [-w * np.sin(w * a)], rtol=1e-9)
+    assert np.allclose(r.hessian, [[-w ** 2 * np.cos(w * a)]], rtol=1e-9)
+    assert r.executions == 3                       # value and the two shifts   # common practice
+    g = grad(lambda t: qg.expect(c, X, t))(np.array([a]))
+    assert np.allclose(g, [-w * np.sin(w * a)], rtol=1e-9)
+
+
+# -- 12. smaller refusals -----------------------------------------------------------------------
+def test_shots_beyond_a_64_bit_count_are_refused():
+    c = one_qubit()
+    with pytest.raises(ValueError, match="shots must be below 2\\*\\*63"):
+        qg.expect(c, Z3, np.array([0.1]), shots=2 ** 63)
+    with pytest.raises(ValueError, match="shots"):
+        qg.sample(c, np.array([0.1]), shots=2 ** 64)
+
+
+def test_empty_batch_gives_empty_results_of_the_right_shape():
+    c = qg.Circuit(2).ry(0).cnot(0, 1)
+    E = np.zeros((0, 1))
+    assert qg.state(c, E).shape == (0, 4)
+    assert qg.density_matrix(c, E).shape == (0, 4, 4)
+    assert qg.expect(c, [ZZ, ZZ], E).shape == (0, 2)
+    assert qg.probabilities(c, E).shape == (0, 4)
+    assert qg.sample(c, E, shots=5, seed=1).shape == (0, 5)
+    for method in ("shift", "adjoint", "difference"):
+        with qg.Ledger() as book:
+            g = grad(lambda t: anp.sum(qg.expect(c, ZZ, t, gradient=method)))(E)
+        assert g.shape == (0, 1) and book.executions == 0
+
+
+@pytest.mark.parametrize("seed, error", [("abc", TypeError), (1.5, TypeError), (-1, ValueError)])
+def test_bad_seed_is_refused_with_or_without_shots(seed, error):
+    c = one_qubit()
+    for shots in (None, 10):
+        with pytest.raises(error, match="seed"):
+            qg.expect(c, Z3, np.array([0.1]), shots=shots, seed=seed)
+
+
+def test_memory_true_and_non_string_gradient_are_refused():
+    c = one_qubit()
+    with pytest.raises(ValueError, match="memory"):
+        qg.expect(c, Z3, np.array([0.1]), memory=True)
+    with pytest.raises(TypeError, match="gradient must be a string"):
+        qg.expect(c, Z3, np.array([0.1]), gradient=np.array(["shift"]))
+
+
+def test_angles_too_large_to_hold_a_phase_are_refused():
+    c = qg.Circuit(1).ry(0).rz(0, param=0, scale=1e3)
+    for theta in (np.array([1e300]), np.array([[0.1], [1e10]])):
+        with pytest.raises(ValueError, match=r"theta gives a gate angle .* 2\*\*40"):
+            qg.expect(c, Z3, theta)
+    assert np.isfinite(qg.expect(c, Z3, np.array([1e8])))
+
+
+# -- 14. nested derivatives through Hamiltonian gates warn when their plans grow -------------
+def test_nested_derivatives_through_hamiltonian_gates_warn_with_the_count(monkeypatch):
+    from qgradlib.evaluation import expectation
+    W = np.array([[0.3, 0.2], [0.2, -0.3]])
+    D = qg.Gate.from_hamiltonian("pulse", drift=W, drive="X")
+    c = qg.Circuit(2).ry(0).add(D, 1).cnot(0, 1).ry(1)
+    H = qg.Observable({"ZZ": 1.0, "XI": 0.3})
+    theta = np.array([0.3, 0.5, -0.2])
+    monkeypatch.setattr(expectation, "NESTED_PLAN_LIMIT", 50)
+    with pytest.warns(qg.NestedPlanWarning, match=r"pulse needs [\d,]+ circuits .*curvature\.derivatives"):
+        h = hessian(lambda t: qg.expect(c, H, t))(theta)
+    assert np.allclose(h, curvature.hessian(c, H, theta).hessian, atol=1e-9)   # the merged plan
+
+
+def test_two_term_gates_keep_their_nested_counts_and_do_not_warn(monkeypatch):
+    from qgradlib.evaluation import expectation
+    monkeypatch.setattr(expectation, "NESTED_PLAN_LIMIT", 1)
+    for m in range(1, 5):
+        c = qg.Circuit(m)
+        for q in range(m):
+            c.ry(q)
+        H = qg.Observable({"Z" * m: 1.0})
+        with warnings.catch_warnings():
+            warnings.simplefilter("error", qg.NestedPlanWarning)
+            with qg.Ledger() as book:
+                hessian(lambda t: qg.expect(c, H, t))(np.linspace(0.1, 0.7, m))
+        # value 1, gradient 2m, the gradient's VJP again 2m, and the shifts of the shifts in
+        # one merged call: m (i = j, +-pi) + 1 (back to the point) + 2m(m - 1) (i < j):
+        # 2m**2 + m + 2   # common practice (two-term rule, shifts +-pi/2, period 2 pi)
+        assert book.executions == 2 * m ** 2 + m + 2

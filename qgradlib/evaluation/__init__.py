@@ -5,8 +5,9 @@ primitive whose derivative rules (shift, adjoint, difference) sit beside it; the
 that spread its rows; and the ledger that counts what a device would run.
 """
 from .distribute import ChunkError
-from .expectation import density_matrix, evaluate, expect, probabilities, sample, state
+from .expectation import (NestedPlanWarning, density_matrix, evaluate, expect, probabilities,
+                          sample, state)
 from .ledger import Ledger
 
 __all__ = ["expect", "probabilities", "state", "sample", "density_matrix", "evaluate", "Ledger",
-           "ChunkError"]
+           "ChunkError", "NestedPlanWarning"]

@@ -22,6 +22,7 @@ is forgotten; see `qgradlib.evaluation.adjoint_nested`).
 """
 from __future__ import annotations
 
+import warnings
 import weakref
 from collections import Counter
 from dataclasses import dataclass
@@ -43,8 +44,10 @@ from ..engine.measurement import (ALLOCATIONS, apply_readout, check_readout, mak
 from .rows import measure_rows_here
 from ..circuits.observables import Observable
 from ..rules.plans import first_order_points
+from ..rules.stencils import check_step
 
-__all__ = ["expect", "probabilities", "state", "density_matrix", "sample", "evaluate", "METHODS"]
+__all__ = ["expect", "probabilities", "state", "density_matrix", "sample", "evaluate", "METHODS",
+           "NestedPlanWarning", "NESTED_PLAN_LIMIT"]
 
 METHODS = ("shift", "adjoint", "difference")
 
@@ -92,6 +95,8 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
     """Measured values (P, K) at gate angles ``phi`` (P, G); identical rows run once."""
     phi = np.asarray(phi, dtype=float)
     P = phi.shape[0]
+    if P == 0:              # an empty batch: an empty result, nothing run or counted
+        return np.zeros((0, spec.n_out))
     ticks = _angle_ticks(phi, spec.circuit)
     keys = [ticks[p].tobytes() + (repr(sorted(inserts[p].items())).encode() if inserts else b"")
             for p in range(P)]
@@ -163,9 +168,27 @@ def _jacobian(points, new_inserts, coeff, names, spec, P):
     return anp.einsum("gt,ptk->pkg", coeff, vals)
 
 
+class NestedPlanWarning(UserWarning):
+    """A nested autograd derivative through Hamiltonian gates needs a very large plan."""
+
+
+# circuits in one nested plan above which NestedPlanWarning is raised
+NESTED_PLAN_LIMIT = 10_000
+
+
 def _shift_jacobian(phi, spec, inserts):
     points, new_inserts, coeff, names = first_order_points(
         spec.circuit, phi, inserts, spec.columns, **spec.rule_options())
+    n = len(names)
+    if inserts is not None and n > NESTED_PLAN_LIMIT:
+        # each order multiplies the points of a Hamiltonian gate by 2 x its quadrature nodes;
+        # autograd differentiates plan by plan, without merging across orders
+        gates = sorted({spec.circuit.parametric_operations[c].gate.name for row in inserts for c in row})
+        warnings.warn(NestedPlanWarning(
+            f"a nested autograd derivative through Hamiltonian gate(s) {', '.join(gates)} needs "
+            f"{n:,} circuits in one plan, and the count multiplies with every order: "
+            "qgradlib.curvature.derivatives(circuit, observable, theta, order=k) builds one "
+            "merged plan for all orders and needs far fewer"), stacklevel=2)
     return _jacobian(points, new_inserts, coeff, names, spec, np.shape(getval(phi))[0])
 
 
@@ -182,7 +205,14 @@ def _fd_jacobian(ans, phi, spec, inserts):
     P, G = np.shape(getval(phi))
     A = spec.circuit.angle_map()[0]
     params = [i for i in range(A.shape[1]) if np.any(A[:, i] != 0.0)]
-    h = spec.step if spec.step is not None else (1e-5 if spec.shots is None else 0.1)
+    # a boxed phi will be differentiated again: this difference is part of one of higher order
+    order = 1 + _depth(phi)
+    if spec.step is not None:
+        h = check_step(spec.step, order)
+    elif spec.shots is not None:
+        h = 0.1
+    else:
+        h = 1e-5 if order == 1 else float(np.finfo(float).eps ** (1.0 / (order + 2)))
     steps = (h, -h) if spec.stencil == "central" else (h,)
     T = len(steps) * len(params)
     delta = np.zeros((T, G))
@@ -201,6 +231,14 @@ def _fd_jacobian(ans, phi, spec, inserts):
         # f'(a) ~ (f(a + h) - f(a)) / h: the value term, reused from the forward pass
         J = J - anp.reshape(ans, (P, spec.n_out, 1)) * (lift.sum(axis=1) / h)
     return J
+
+
+def _depth(x):
+    """How many autograd derivatives are being taken through ``x`` at once."""
+    d = 0
+    while isinstance(x, Box):
+        d, x = d + 1, x._value
+    return d
 
 
 def _adjoint_vjp(phi, spec, g, cache):
@@ -227,6 +265,8 @@ def _evaluate_vjp(ans, phi, spec, inserts=None, purposes="value"):
         return cache["J"]
 
     def vjp(g):
+        if np.shape(getval(phi))[0] == 0:
+            return np.zeros(np.shape(getval(phi)))
         if spec.gradient == "adjoint":
             return _adjoint_vjp(phi, spec, g, cache)
         return anp.einsum("pk,pkg->pg", g, jac())
@@ -253,6 +293,8 @@ def _check_shots(shots):
         return None
     if isinstance(shots, (bool, np.bool_)) or not isinstance(shots, (int, np.integer)) or shots < 1:
         raise ValueError(f"shots must be a positive int or None; got {shots!r}")
+    if shots >= 2 ** 63:
+        raise ValueError(f"shots must be below 2**63 (a count a 64-bit integer can hold); got {shots!r}")
     return int(shots)
 
 
@@ -291,9 +333,12 @@ def _check_qubits(qubits, n):
 def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, gradient="shift",
           shift=None, step=None, stencil="central", splits=1, memory_budget=None,
           allocation="uniform", readout=None, fuse=True, executor=None, chunk=None):
+    if not isinstance(gradient, str):
+        raise TypeError(f"gradient must be a string, one of {METHODS}; got {type(gradient).__name__}")
     if gradient not in METHODS:
         raise ValueError(f"gradient must be one of {METHODS}; got {gradient!r}")
     shots = _check_shots(shots)
+    rng = make_rng(seed)            # checked whether or not shots are taken
     if gradient == "adjoint" and shots is not None:
         raise ValueError("gradient='adjoint' needs the exact state, which a device never has: "
                          "it cannot be combined with shots; use 'shift'")
@@ -314,15 +359,14 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
             raise ValueError(f"shift must be a number in the open interval (0, pi); got {shift!r}")
         shift = float(shift)
     if step is not None:
-        if not isinstance(step, Real) or not np.isfinite(step) or step < 1e-12:
-            raise ValueError("step must be a finite number of at least 1e-12 (smaller steps are "
-                             f"lost in the rounding of angles); got {step!r}")
-        step = float(step)
+        step = check_step(step, 1)
     if stencil not in ("central", "forward"):
         raise ValueError(f"stencil must be 'central' or 'forward'; got {stencil!r}")
     if isinstance(splits, bool) or not isinstance(splits, (int, np.integer)) or splits < 1:
         raise ValueError(f"splits must be a positive int; got {splits!r}")
-    if memory_budget is not None and (not isinstance(memory_budget, (int, np.integer)) or memory_budget < 1):
+    if memory_budget is not None and (isinstance(memory_budget, (bool, np.bool_))
+                                      or not isinstance(memory_budget, (int, np.integer))
+                                      or memory_budget < 1):
         raise ValueError(f"memory must be a positive number of bytes; got {memory_budget!r}")
     executor, chunk = distribute.check_executor(executor, chunk)
     # the evaluation and every derivative of it see this frozen copy, whatever happens to
@@ -335,7 +379,7 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
     # a guard at the call that asks for the state, not deep inside the engine
     _guard(circuit)
     return Spec(circuit, kind, observables, qubits, shots,
-                make_rng(seed) if shots is not None else None, gradient, shift, step, stencil,
+                rng if shots is not None else None, gradient, shift, step, stencil,
                 int(splits), memory_budget, columns, max(1, settings), allocation, readout, plan,
                 _check_fuse(fuse), executor=executor, chunk=chunk)
 
@@ -483,7 +527,10 @@ def state(circuit, theta, *, fuse=True) -> np.ndarray:
     theta = np.asarray(getval(check_theta(circuit, theta)), dtype=float)
     _guard(circuit)
     phi = np.atleast_2d(circuit.angles(theta))
-    psi = run(circuit, phi, fuse=_check_fuse(fuse))
+    fuse = _check_fuse(fuse)
+    if phi.shape[0] == 0:   # an empty batch (0, n_params) has an empty result
+        return np.zeros((0, 2 ** circuit.n_qubits), dtype=complex)
+    psi = run(circuit, phi, fuse=fuse)
     return psi if theta.ndim == 2 else psi[0]
 
 
@@ -504,6 +551,8 @@ def density_matrix(circuit, theta) -> np.ndarray:
     theta = np.asarray(getval(check_theta(circuit, theta)), dtype=float)
     n = circuit.n_qubits
     memory.guard(16 * 4 ** n, f"a density matrix of {n} qubits")
+    if theta.ndim == 2 and theta.shape[0] == 0:
+        return np.zeros((0, 2 ** n, 2 ** n), dtype=complex)
     rho = run_density(circuit, np.atleast_2d(circuit.angles(theta))).reshape(-1, 2 ** n, 2 ** n)
     return rho if theta.ndim == 2 else rho[0]
 
@@ -537,5 +586,6 @@ def sample(circuit, theta, shots, seed=None, *, readout=None) -> np.ndarray:
     # the draw holds one float and one int per shot: refuse what cannot fit
     memory.guard(16 * shots * p.shape[0], f"{shots:,} shots of {p.shape[0]} circuit(s)")
     ledger.record(p.shape[0], 1, shots, {"sample": p.shape[0]})
-    out = np.stack([rng.choice(p.shape[1], size=shots, p=row / row.sum()) for row in p])
+    out = np.stack([rng.choice(p.shape[1], size=shots, p=row / row.sum()) for row in p]) \
+        if p.shape[0] else np.zeros((0, shots), dtype=int)
     return out if np.ndim(getval(theta)) == 2 else out[0]
