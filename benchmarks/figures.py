@@ -79,14 +79,20 @@ def shift_forward(sz, repeats):
                    seconds_forward=float(np.median(b)))
 
 
+def _agree_and_time(target, baseline, sz, repeats):
+    """Largest difference of the two results (a silent mismatch would void the ratio), then
+    their paired times."""
+    diff = float(np.max(np.abs(np.asarray(target()) - np.asarray(baseline()))))
+    return (diff,) + paired(target, baseline, repeats, sz["min_time"])
+
+
 def backprop_adjoint(sz, repeats):
     n, L = sz["adj_n"], sz["adj_layers"]
     c, H, theta = _ising_setup(n, L)
     terms = ising_terms(n)
     adj = lambda: grad(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)  # noqa: E731
     bp = lambda: grad(layered_energy)(theta, n, L, terms)  # noqa: E731
-    diff = float(np.max(np.abs(adj() - bp())))
-    t, b = paired(bp, adj, repeats, sz["min_time"])
+    diff, t, b = _agree_and_time(bp, adj, sz, repeats)
     return _result("backprop_adjoint", f"autograd backprop through a plain tensordot simulator / "
                    f"our adjoint gradient, n = {n}, m = {c.n_params}", 4.0, ">=", t / b,
                    max_gradient_difference=diff, seconds_backprop=float(np.median(t)),
@@ -98,8 +104,7 @@ def hessian_adjoint(sz, repeats):
     c, H, theta = _ising_setup(n, L)
     adj = lambda: hessian(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)  # noqa: E731
     sh = lambda: hessian(lambda t: qg.expect(c, H, t))(theta)  # noqa: E731
-    diff = float(np.max(np.abs(adj() - sh())))
-    t, b = paired(adj, sh, repeats, sz["min_time"])
+    diff, t, b = _agree_and_time(adj, sh, sz, repeats)
     return _result("hessian_adjoint", f"autograd.hessian through gradient='adjoint' / through "
                    f"'shift', n = {n}, m = {c.n_params}", 1.0, "<=", t / b,
                    max_hessian_difference=diff, seconds_adjoint=float(np.median(t)),
