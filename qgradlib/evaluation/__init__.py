@@ -9,6 +9,8 @@ from .expectation import (NestedPlanWarning, density_matrix, evaluate, expect, p
                           sample, state)
 from .fidelity import kernel_matrix
 from .ledger import Ledger
+from .statistics import counts, variance
 
 __all__ = ["expect", "probabilities", "state", "sample", "density_matrix", "evaluate", "Ledger",
-           "ChunkError", "kernel_matrix", "NestedPlanWarning"]
+           "ChunkError", "kernel_matrix", "NestedPlanWarning", "counts",
+           "variance"]
