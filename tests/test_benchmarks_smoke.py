@@ -6,7 +6,8 @@ import subprocess
 import sys
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-KEYS = {"gate_pass", "adjoint_forward", "shift_forward", "backprop_adjoint", "forward_memory",
+KEYS = {"gate_pass", "adjoint_forward", "shift_forward", "backprop_adjoint", "hessian_adjoint",
+        "forward_memory",
         "adjoint_memory", "overhead_n4", "import_time", "rotosolve_sweep", "first_gradient"}
 # the JAX comparison rows: skipped here (--no-jax keeps the run short and JAX optional), with
 # the reason in place of the figures
@@ -43,5 +44,6 @@ def test_quick_suite_writes_every_figure(tmp_path):
     assert proc.stdout.count("target") == len(KEYS | JAX_KEYS)
     # the plain simulator's gradient agrees with ours (a silent mismatch would void the ratio)
     assert figs["backprop_adjoint"]["details"]["max_gradient_difference"] < 1e-9
+    assert figs["hessian_adjoint"]["details"]["max_hessian_difference"] < 1e-9
     # the sweep and the one-call-at-a-time baseline ran the circuits the ledger counted
     assert figs["rotosolve_sweep"]["details"]["circuits"] > 0
