@@ -133,7 +133,7 @@ def bit_flip(p) -> Channel:
 
 
 def _decay(gamma) -> Channel:
-    """Amplitude damping: decay |1> -> |0> with probability ``gamma`` in [0, 1].
+    """Amplitude damping: decay ``|1> -> |0>`` with probability ``gamma`` in [0, 1].
 
     Kraus form ``[[1, 0], [0, sqrt(1 - gamma)]]`` and ``[[0, sqrt(gamma)], [0, 0]]``.
     """

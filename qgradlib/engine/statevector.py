@@ -27,7 +27,7 @@ __all__ = ["zero_states", "apply_matrix", "apply_diagonal", "apply_gate", "run"]
 
 
 def zero_states(n_qubits: int, batch: int = 1) -> np.ndarray:
-    """``batch`` copies of |0...0>, shape (batch, 2**n).
+    """``batch`` copies of ``|0...0>``, shape (batch, 2**n).
 
     Examples
     --------
@@ -163,7 +163,7 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
         One entry a row: {column: ((r, t), ...)} split points of Hamiltonian gates, used by
         the stochastic shift rule. Those columns are never fused.
     psi : ndarray, shape (B, 2**n), optional
-        Initial states (default |0...0>); not modified.
+        Initial states (default ``|0...0>``); not modified.
     fuse : bool, optional
         Gate fusion on (default) or off.
     keep : set of int
