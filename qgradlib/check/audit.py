@@ -28,6 +28,7 @@ import numpy as np
 from autograd import make_vjp, value_and_grad
 from autograd.test_util import check_grads, make_numerical_jvp
 
+from ..circuits import display
 from ..evaluation.expectation import expect
 from ..evaluation.ledger import Ledger
 from ..engine.measurement import make_rng
@@ -123,6 +124,31 @@ class GradientReport:
                          f"{1e3 * m.seconds:>10.2f}  {check}")
         lines.append(f"  largest deviation from the adjoint gradient: {self.max_deviation:.2e}")
         return "\n".join(lines)
+
+
+    def _repr_html_(self, limit=20):
+        """The audit as two tables (components by method, then each method's costs)."""
+        names = [m.method for m in self.methods]
+        ref = np.atleast_2d(self.reference)
+        rows = []
+        for k in range(ref.shape[0]):
+            for j in range(ref.shape[1]):
+                label = f"[{j}]" if ref.shape[0] == 1 else f"obs{k}[{j}]"
+                rows.append([label] + [float(np.atleast_2d(m.gradient)[k, j]) for m in self.methods])
+        note_rows = f"the first {limit} of {len(rows)} components; " if len(rows) > limit else ""
+        components = display.table(["d/dtheta"] + names, rows[:limit], digits=10)
+        costs = display.table(
+            ["method", "vs adjoint", "executions", "shots", "time/ms", "check"],
+            [[m.method, "reference" if m.method == "adjoint" else f"{m.deviation:.2e}",
+              "sim only" if m.executions is None else m.executions, m.shots,
+              f"{1e3 * m.seconds:.2f}", "" if m.passed is None else ("passed" if m.passed else "FAILED")]
+             for m in self.methods])
+        mode = "exact simulation" if self.shots is None else f"{self.shots} shots per execution"
+        title = (f"Gradient audit: {display.plural(self.n_qubits, 'qubit')}, "
+                 f"{display.plural(self.n_params, 'parameter')}, {mode}")
+        return display.display(title, components, costs, note=(
+            f"{note_rows}largest deviation from the adjoint gradient {self.max_deviation:.2e}; "
+            "simulated numbers, not device measurements"))
 
 
 def _derivative(f, single):

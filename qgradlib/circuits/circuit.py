@@ -16,12 +16,14 @@ Examples
 """
 from __future__ import annotations
 
+from collections import Counter
 from dataclasses import dataclass
 from numbers import Real
 
 import autograd.numpy as anp
 import numpy as np
 
+from . import display
 from . import gates as _g
 from .channels import Channel
 from .gates import Gate
@@ -103,6 +105,17 @@ class Circuit:
 
     def __repr__(self):
         return f"Circuit(n_qubits={self._n}, operations={len(self._ops)}, n_params={self._n_params})"
+
+    def _repr_html_(self):
+        """A notebook display: the size of the circuit and its operations counted by gate."""
+        counts = Counter(op.gate.name for op in self._ops)
+        rows = [[name, k] for name, k in sorted(counts.items(), key=lambda kv: (-kv[1], kv[0]))]
+        trainable = sum(op.trainable for op in self._ops)
+        title = (f"Circuit: {display.plural(self._n, 'qubit')}, "
+                 f"{display.plural(self._n_params, 'parameter')}, "
+                 f"{display.plural(len(self._ops), 'operation')}")
+        return display.display(title, display.table(["gate", "operations"], rows),
+                               note=f"{display.plural(trainable, 'operation')} with a trainable angle")
 
     # -- building -------------------------------------------------------------------------
     def add(self, gate: Gate, qubits, param=None, *, scale=1.0, offset=0.0, angle=None):

@@ -16,6 +16,7 @@ from numbers import Real
 import numpy as np
 import scipy.sparse as sp
 
+from . import display
 from .paulis import masks, parse_pauli
 
 __all__ = ["Observable"]
@@ -168,6 +169,18 @@ class Observable:
         return self._dense is None or np.abs(self._dense).max() <= 1e-14
 
     __hash__ = None
+
+    def _repr_html_(self, limit=12):
+        """The terms as a table (the largest ``limit`` by magnitude), for notebooks."""
+        order = sorted(self._terms.items(), key=lambda kv: (-abs(kv[1]), kv[0]))
+        rows = [[w, c] for w, c in order[:limit]]
+        note = f"and {len(order) - limit} smaller terms" if len(order) > limit else None
+        if self._dense is not None:
+            note = ((note + "; ") if note else "") + f"plus a dense {self._dense.shape[0]}x" \
+                f"{self._dense.shape[0]} Hermitian part"
+        title = f"Observable on {display.plural(self._n, 'qubit')}, {display.plural(len(order), 'Pauli term')}"
+        return display.display(title, display.table(["Pauli string", "coefficient"], rows)
+                               if rows else "", note=note)
 
     def __repr__(self):
         parts = [f"{w!r}: {c:g}" for w, c in self._terms.items()]

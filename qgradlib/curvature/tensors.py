@@ -42,6 +42,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..circuits import display
 from ..evaluation.expectation import _check_qubits, _observables, _spec
 from ..rules.higher_plans import build_plan, tensor
 from .execute import prepare, run_plan
@@ -71,6 +72,15 @@ class HessianResult:
     shots: int
 
 
+    def _repr_html_(self):
+        """Shape, eigenvalue range and cost of the Hessian, for notebooks."""
+        rows = [["value", _brief_html(self.value)], ["gradient norm", _norm_text(self.gradient)],
+                ["Hessian shape", str(np.shape(self.hessian))],
+                ["Hessian eigenvalues", _eigen_range(self.hessian)],
+                ["executions", self.executions], ["shots", self.shots]]
+        return display.summary_html("Hessian", rows, note=_note(self.shots))
+
+
 @dataclass(frozen=True, eq=False)
 class DerivativeTensors:
     """All derivative tensors up to ``order``: ``tensors[k]`` has shape (m,)*k (after a
@@ -89,6 +99,41 @@ class DerivativeTensors:
     def tensor(self):
         """The tensor of the highest order."""
         return self.tensors[self.order]
+
+    def _repr_html_(self):
+        """The order, the shape of each tensor and the cost, for notebooks."""
+        rows = [["value", _brief_html(self.value)]]
+        rows += [[f"order {k}", f"shape {np.shape(t)}"] for k, t in enumerate(self.tensors) if k]
+        rows += [["executions", self.executions], ["shots", self.shots]]
+        return display.summary_html(f"Derivative tensors up to order {self.order}", rows,
+                                    note=_note(self.shots))
+
+
+def _brief_html(v):
+    v = np.asarray(v, dtype=float)
+    return float(v) if v.ndim == 0 else f"shape {v.shape}, in [{v.min():.6g}, {v.max():.6g}]"
+
+
+def _norm_text(g):
+    g = np.asarray(g, dtype=float)
+    norms = np.linalg.norm(g, axis=-1)
+    return f"{float(norms):.6g}" if norms.ndim == 0 else ", ".join(f"{x:.6g}" for x in norms)
+
+
+def _eigen_range(H):
+    """The eigenvalue range of the symmetrised Hessian (per observable for a stack)."""
+    H = np.asarray(H, dtype=float)
+    if not H.size:
+        return "empty"
+    ev = np.linalg.eigvalsh(0.5 * (H + np.swapaxes(H, -1, -2)))
+    ev = ev.reshape(-1, ev.shape[-1])
+    return "; ".join(f"[{e.min():.6g}, {e.max():.6g}]" for e in ev)
+
+
+def _note(shots):
+    return ("exact simulation" if not shots else "finite-shot estimates") + \
+        ": simulated numbers, not device measurements"
+
 
 def _check_order(order):
     if isinstance(order, bool) or not isinstance(order, (int, np.integer)) or order < 1:

@@ -23,6 +23,8 @@ import contextvars
 import threading
 from collections import Counter
 
+from ..circuits import display
+
 __all__ = ["Ledger", "record"]
 
 _ACTIVE: contextvars.ContextVar = contextvars.ContextVar("qgradlib_active_ledgers", default=())
@@ -79,6 +81,18 @@ class Ledger:
         if not self.shots:
             lines.append("  (exact simulation: no shots were taken; a device would need them)")
         return "\n".join(lines)
+
+    def _repr_html_(self):
+        """The summary as tables, for notebooks."""
+        totals = display.table(None, [["executions", self.executions],
+                                      ["distinct circuits", self.circuits], ["shots", self.shots]])
+        purposes = sorted(self.by_purpose.items(), key=lambda kv: (-kv[1], kv[0]))
+        parts = [totals]
+        if purposes:
+            parts.append(display.table(["purpose", "executions"], purposes))
+        note = None if self.shots else \
+            "exact simulation: no shots were taken; a device would need them"
+        return display.display("Ledger: device work", *parts, note=note)
 
     def __repr__(self):
         return f"Ledger(executions={self.executions}, circuits={self.circuits}, shots={self.shots})"

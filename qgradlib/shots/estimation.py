@@ -36,6 +36,7 @@ from dataclasses import dataclass
 import numpy as np
 from autograd.tracer import getval
 
+from ..circuits import display
 from ..evaluation import distribute, ledger
 from ..circuits.circuit import check_theta
 from ..evaluation.expectation import _check_circuit, _observables, _spec
@@ -69,6 +70,13 @@ class Estimate:
     settings: int
 
 
+    def _repr_html_(self):
+        """Values with their standard errors as a table, and the price, for notebooks."""
+        return _estimate_html("Estimate", "value", self.value, self.standard_error, [
+            ["executions", self.executions], ["shots", self.shots],
+            ["settings per circuit", self.settings]])
+
+
 @dataclass(frozen=True)
 class GradientEstimate:
     """A finite-shot parameter-shift gradient.
@@ -92,6 +100,24 @@ class GradientEstimate:
     executions: int
     shots: int
     circuits: int
+
+
+    def _repr_html_(self):
+        """Components with their standard errors as a table, and the price, for notebooks."""
+        return _estimate_html("Gradient estimate", "d/dtheta", self.gradient, self.standard_error, [
+            ["executions", self.executions], ["shots", self.shots],
+            ["distinct circuits", self.circuits]])
+
+
+def _estimate_html(title, what, value, error, price, limit=20):
+    value, error = np.asarray(value, dtype=float), np.asarray(error, dtype=float)
+    index = list(np.ndindex(value.shape))
+    rows = [["" if not i else str(list(i)), value[i], error[i]] for i in index[:limit]]
+    note = (f"the first {limit} of {len(index)} entries; " if len(index) > limit else "") + \
+        "simulated shot noise, not device measurements"
+    return display.display(f"{title} from {price[1][1]} shots",
+                           display.table(["entry", what, "standard error"], rows),
+                           display.table(None, price), note=note)
 
 
 def _prepare(circuit, observables, theta, shots, seed, allocation, readout, **options):
