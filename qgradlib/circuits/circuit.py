@@ -33,7 +33,15 @@ __all__ = ["Circuit", "Operation"]
 
 @dataclass(frozen=True)
 class Operation:
-    """One gate (or noise `Channel`) on some qubits; for parametric gates, how its angle is formed."""
+    """One gate (or noise `Channel`) on some qubits; for parametric gates, how its angle is formed.
+
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> op = qg.Circuit(2).crx(0, 1, scale=2.0).operations[0]
+    >>> op.gate.name, op.qubits, op.param, op.scale, op.trainable
+    ('CRX', (0, 1), 0, 2.0, True)
+    """
 
     gate: Gate
     qubits: tuple
@@ -54,6 +62,16 @@ class Circuit:
     method takes ``param=`` (an existing parameter index, or omitted for a new one),
     ``scale=`` and ``offset=`` (angle = scale * theta[param] + offset), or ``angle=`` for a
     fixed, untrainable angle.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(2).h(0).ry(1).cnot(0, 1).rz(1, param=0, scale=0.5)
+    >>> c.n_qubits, c.n_params, len(c)
+    (2, 1, 4)
+    >>> round(float(qg.expect(c, qg.Observable({"ZZ": 1.0}), np.array([0.0]))), 12)
+    1.0
     """
 
     def __init__(self, n_qubits: int):
@@ -338,7 +356,20 @@ def _finite(v, name):
 
 
 def check_theta(circuit: Circuit, theta):
-    """Validate theta: shape (n_params,) or (B, n_params), real, finite. Keeps autograd boxes."""
+    """Validate theta: shape (n_params,) or (B, n_params), real, finite. Keeps autograd boxes.
+
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> from qgradlib.circuits import check_theta
+    >>> c = qg.Circuit(1).ry(0).rx(0)
+    >>> check_theta(c, [0.1, 0.2]).shape
+    (2,)
+    >>> check_theta(c, [0.1])
+    Traceback (most recent call last):
+        ...
+    ValueError: theta must have shape (2,)...
+    """
     from autograd.tracer import getval
 
     raw = getval(theta)

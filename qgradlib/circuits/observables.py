@@ -34,6 +34,13 @@ class Observable:
     Notes
     -----
     Instances are immutable values: arithmetic returns new observables.
+
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> H = qg.Observable({"ZZ": -1.0, "XI": 0.5, "xi": 0.25})   # repeated strings are summed
+    >>> H.n_qubits, H.terms
+    (2, {'ZZ': -1.0, 'XI': 0.75})
     """
 
     __slots__ = ("_terms", "_dense", "_n")

@@ -63,6 +63,14 @@ class HessianResult:
         Distinct circuits times measurement settings, as counted by a `qgradlib.Ledger`.
     shots : int
         Total shots (0 for exact simulation).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> r = qg.curvature.hessian(qg.Circuit(1).ry(0), qg.Observable({"Z": 1.0}), np.array([0.0]))
+    >>> round(r.value, 12), r.hessian.round(12).tolist(), r.executions     # -cos(0) = -1
+    (1.0, [[-1.0]], 3)
     """
 
     value: object
@@ -84,7 +92,17 @@ class HessianResult:
 @dataclass(frozen=True, eq=False)
 class DerivativeTensors:
     """All derivative tensors up to ``order``: ``tensors[k]`` has shape (m,)*k (after a
-    leading (K,) axis for a list of observables); ``tensors[0]`` is the value."""
+    leading (K,) axis for a list of observables); ``tensors[0]`` is the value.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> d = qg.curvature.derivatives(qg.Circuit(2).ry(0).ry(1), qg.Observable({"ZZ": 1.0}),
+    ...                              np.zeros(2), order=3)
+    >>> d.order, [np.shape(t) for t in d.tensors]
+    (3, [(), (2,), (2, 2), (2, 2, 2)])
+    """
 
     tensors: tuple
     order: int

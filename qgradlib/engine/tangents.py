@@ -35,7 +35,18 @@ def _derivative_matrix(gate, a):
 
 
 def state_derivatives(circuit, phi, columns):
-    """psi (d,) and d psi / d phi_c (len(columns), d) in one pass over the circuit."""
+    """psi (d,) and d psi / d phi_c (len(columns), d) in one pass over the circuit.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.engine import state_derivatives
+    >>> c = qg.Circuit(1).ry(0)
+    >>> psi, dpsi = state_derivatives(c, np.array([0.0]), [0])
+    >>> np.round(psi.real, 6).tolist(), np.round(dpsi.real, 6).tolist()   # d/da (cos a/2, sin a/2)
+    ([1.0, 0.0], [[0.0, 0.5]])
+    """
     n = circuit.n_qubits
     guard(16 * (len(columns) + 1) * 2 ** n,
                  f"{len(columns) + 1} states of {n} qubits for the state derivatives")
@@ -66,6 +77,16 @@ def layer_covariances(circuit, phi, columns, lays, diagonal=False):
     ``lays`` are the circuit's layers (objects with ``columns`` and ``effective``, see
     `qgradlib.curvature.metric.layers`); returns the (len(columns), len(columns)) layerwise
     metric in gate-angle space, only the diagonal with ``diagonal=True``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.curvature import layers
+    >>> from qgradlib.engine import layer_covariances
+    >>> c = qg.Circuit(2).ry(0).ry(1)
+    >>> layer_covariances(c, np.zeros(2), [0, 1], layers(c)).tolist()    # Var(Y/2) in |0> = 1/4
+    [[0.25, 0.0], [0.0, 0.25]]
     """
     n = circuit.n_qubits
     pos = {c: i for i, c in enumerate(columns)}

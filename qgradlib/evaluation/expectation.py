@@ -89,7 +89,23 @@ class Spec:
 # -- the primitive and its derivative rules ---------------------------------------------------
 @primitive
 def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
-    """Measured values (P, K) at gate angles ``phi`` (P, G); identical rows run once."""
+    """Measured values (P, K) at gate angles ``phi`` (P, G); identical rows run once.
+
+    The autograd primitive behind `expect` and every derivative: ``spec`` says what to
+    measure and how to differentiate (built by `expect` from its keywords).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.evaluation.expectation import _spec
+    >>> c = qg.Circuit(1).ry(0)
+    >>> spec = _spec(c, "expect", observables=[qg.Observable({"Z": 1.0})])
+    >>> with qg.Ledger() as book:
+    ...     vals = qg.evaluation.evaluate(np.array([[0.0], [np.pi], [0.0]]), spec)
+    >>> np.round(vals, 12).tolist(), book.circuits       # the repeated row ran once
+    ([[1.0], [-1.0], [1.0]], 2)
+    """
     phi = np.asarray(phi, dtype=float)
     P = phi.shape[0]
     ticks = _angle_ticks(phi, spec.circuit)

@@ -44,6 +44,16 @@ class Ledger:
     by_purpose : Counter
         Executions broken down by why they ran: ``"value"``, or the name of the gate whose
         angle was shifted (for example ``"RY"``, ``"CRX"``).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(1).ry(0)
+    >>> with qg.Ledger() as book:
+    ...     _ = qg.expect(c, qg.Observable({"Z": 1.0, "X": 1.0}), np.array([0.1]), shots=100, seed=0)
+    >>> book.executions, book.shots          # one circuit in two measurement settings
+    (2, 200)
     """
 
     def __init__(self):

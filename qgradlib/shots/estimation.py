@@ -61,6 +61,14 @@ class Estimate:
         Total shots taken.
     settings : int
         Measurement settings per circuit.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> r = qg.estimate(qg.Circuit(1).h(0), qg.Observable({"X": 1.0}), np.zeros(0), shots=50, seed=0)
+    >>> float(r.value), float(r.standard_error), r.shots    # |+> gives X = +1 on every shot
+    (1.0, 0.0, 50)
     """
 
     value: object
@@ -93,6 +101,15 @@ class GradientEstimate:
         Total shots taken.
     circuits : int
         Distinct shifted circuits run.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> g = qg.estimate_gradient(qg.Circuit(1).ry(0), qg.Observable({"Z": 1.0}), np.array([0.0]),
+    ...                          shots=200, seed=1)
+    >>> g.gradient.shape, g.circuits, g.shots              # two shifted circuits
+    ((1,), 2, 400)
     """
 
     gradient: np.ndarray

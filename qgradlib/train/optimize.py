@@ -16,6 +16,8 @@ sinusoidal shape of the cost in each parameter.
 - ``"rotosolve"`` (needs the circuit): the exact minimum in one parameter at a time from three
   evaluations (Ostaszewski, Grant and Benedetti, Quantum 5, 391 (2021)).
 
+``METHODS`` lists these names in this order.
+
 Every run is wrapped in a `qgradlib.Ledger`: the result carries the executions and shots a
 device would have needed, besides ``x, fun, jac, nit, success, status, message`` and a
 ``history`` of the cost, the gradient norm and the cumulative executions, one entry per
