@@ -43,6 +43,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..circuits import display
+from ..evaluation.brief import brief
 from ..evaluation.expectation import _check_qubits, _observables, _spec
 from ..rules.higher_plans import build_plan, tensor
 from .execute import prepare, run_plan
@@ -79,6 +80,14 @@ class HessianResult:
     executions: int
     shots: int
 
+    def __repr__(self):
+        H = np.asarray(self.hessian)
+        ev = _eigenvalues(H)
+        spectrum = f"eigenvalues in [{ev.min():.4g}, {ev.max():.4g}]" if ev.size else "empty"
+        return (f"HessianResult(value={brief(self.value)}, gradient={brief(self.gradient)}, "
+                f"hessian: shape {H.shape}, {spectrum}, executions={self.executions}, "
+                f"shots={self.shots})")
+
 
     def _repr_html_(self):
         """Shape, eigenvalue range and cost of the Hessian, for notebooks."""
@@ -109,6 +118,11 @@ class DerivativeTensors:
     executions: int
     shots: int
 
+    def __repr__(self):
+        shapes = ", ".join(str(np.shape(t)) for t in self.tensors[1:])
+        return (f"DerivativeTensors(order={self.order}, value={brief(self.value)}, "
+                f"tensors of shapes {shapes}, executions={self.executions}, shots={self.shots})")
+
     @property
     def value(self):
         return self.tensors[0]
@@ -138,12 +152,17 @@ def _norm_text(g):
     return f"{float(norms):.6g}" if norms.ndim == 0 else ", ".join(f"{x:.6g}" for x in norms)
 
 
+def _eigenvalues(H):
+    """Eigenvalues of the symmetrised Hessian, (m,) or (K, m) for a stack; empty for m = 0."""
+    H = np.asarray(H, dtype=float)
+    return np.linalg.eigvalsh(0.5 * (H + np.swapaxes(H, -1, -2))) if H.size else np.zeros(0)
+
+
 def _eigen_range(H):
     """The eigenvalue range of the symmetrised Hessian (per observable for a stack)."""
-    H = np.asarray(H, dtype=float)
-    if not H.size:
+    ev = _eigenvalues(H)
+    if not ev.size:
         return "empty"
-    ev = np.linalg.eigvalsh(0.5 * (H + np.swapaxes(H, -1, -2)))
     ev = ev.reshape(-1, ev.shape[-1])
     return "; ".join(f"[{e.min():.6g}, {e.max():.6g}]" for e in ev)
 
