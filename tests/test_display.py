@@ -184,3 +184,17 @@ def test_hessian_display_gives_shape_eigenvalue_range_and_cost():
     d = curvature.derivatives(c, qg.Observable({"ZZ": 1.0}), np.array([a, b]), order=3)
     page = parse(d._repr_html_())
     assert row(page, "order 3") == ["order 3", "shape (2, 2, 2)"]
+
+
+# -- training -------------------------------------------------------------------------------------
+def test_training_result_shows_value_cost_and_a_sparkline_of_the_history():
+    c = qg.Circuit(1).ry(0)
+    r = qg.optimize.minimize_expectation(c, qg.Observable({"Z": 1.0}), np.array([0.5]),
+                                         method="gd", steps=12, rate=0.3)
+    page = parse(r._repr_html_())
+    assert float(row(page, "fun")[1]) == pytest.approx(r.fun, rel=1e-7)
+    assert row(page, "executions") == ["executions", str(r.executions)]
+    assert row(page, "nit") == ["nit", "12"]
+    (line,) = [a for t, a in page.tags if t == "polyline"]
+    assert len(line["points"].split()) == len(r.history["cost"]) == 13
+    assert "cost per step" in "".join(page.text)           # the SVG's title says what it draws
