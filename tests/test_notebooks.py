@@ -18,6 +18,10 @@ ROOT = Path(__file__).resolve().parent.parent
 NOTEBOOKS = sorted((ROOT / "docs" / "examples").glob("*.ipynb"))
 
 
+def test_there_are_example_notebooks():
+    assert len(NOTEBOOKS) >= 4, [nb.name for nb in NOTEBOOKS]
+
+
 @pytest.mark.parametrize("path", NOTEBOOKS, ids=[p.stem for p in NOTEBOOKS])
 def test_stored_without_outputs(path):
     nb = json.loads(path.read_text(encoding="utf-8"))
