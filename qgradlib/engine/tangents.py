@@ -115,7 +115,17 @@ def layer_covariances(circuit, phi, columns, lays, diagonal=False):
 
 def effective_generator(gate, a):
     """``K = i (dU/da) U^dagger`` of a Hamiltonian or function gate at angle ``a``: the
-    Hermitian operator whose variance in the state after the gate is the gate's metric entry."""
+    Hermitian operator whose variance in the state after the gate is the gate's metric entry.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from qgradlib import gates
+    >>> from qgradlib.engine import effective_generator
+    >>> K = effective_generator(gates.RY, 0.3)            # for a generator gate, K is G = Y/2
+    >>> bool(np.allclose(K, gates.RY.generator))
+    True
+    """
     U = gate._matrices(np.array([a]))[0]
     K = 1j * _derivative_matrix(gate, a) @ U.conj().T
     return 0.5 * (K + K.conj().T)     # Hermitian exactly (a function gate's dU is a difference)
@@ -123,7 +133,18 @@ def effective_generator(gate, a):
 
 def states_before(circuit, phi, columns):
     """The state just before each parametric column in ``columns``: (len(columns), 2**n), one
-    walk over the circuit."""
+    walk over the circuit.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.engine import states_before
+    >>> c = qg.Circuit(1).ry(0).ry(0)
+    >>> before = states_before(c, np.array([np.pi, 0.0]), [0, 1])
+    >>> np.round(before.real, 12).tolist()               # |0>, then RY(pi)|0> = |1>
+    [[1.0, 0.0], [0.0, 1.0]]
+    """
     n = circuit.n_qubits
     want = {c: i for i, c in enumerate(columns)}
     guard(16 * (len(columns) + 1) * 2 ** n, f"{len(columns) + 1} states of {n} qubits")
