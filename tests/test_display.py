@@ -123,6 +123,16 @@ def test_circuit_counts_operations_and_escapes_gate_names():
     assert "3 parameters" in "".join(page.text)
 
 
+def test_circuit_shows_its_drawing_and_resources():
+    c = qg.Circuit(2).h(0).ry(1).cnot(0, 1).crx(0, 1)
+    page = parse(c._repr_html_())
+    assert str(c) in "".join(page.text)          # the text drawing, unescaped back exactly
+    r = c.resources()
+    assert row(page, "depth") == ["depth", str(r.depth)]
+    # common practice: 2 shifted circuits for RY, 4 for the four-term CRX rule
+    assert row(page, "circuits for one gradient") == ["circuits for one gradient", "6"]
+
+
 # -- the ledger and the audit -------------------------------------------------------------------
 def test_ledger_table_matches_its_counts():
     c = qg.Circuit(2).ry(0).crx(0, 1)

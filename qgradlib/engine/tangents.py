@@ -122,7 +122,10 @@ def effective_generator(gate, a):
     >>> import numpy as np
     >>> from qgradlib import gates
     >>> from qgradlib.engine import effective_generator
-    >>> K = effective_generator(gates.RY, 0.3)            # for a generator gate, K is G = Y/2
+    >>> import warnings
+    >>> with warnings.catch_warnings():
+    ...     warnings.simplefilter("ignore")      # RY taken as a matrix function here
+    ...     K = effective_generator(gates.RY, 0.3)   # for a generator gate, K is G = Y/2
     >>> bool(np.allclose(K, gates.RY.generator))
     True
     """

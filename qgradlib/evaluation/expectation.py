@@ -469,7 +469,7 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
     chunk : int, optional
         Circuits per task on ``executor`` (default: about 4 tasks per worker).
     initial : str or array_like, optional
-        The state the circuit starts from instead of |0...0>: a bitstring such as ``"0110"``
+        The state the circuit starts from instead of ``|0...0>``: a bitstring such as ``"0110"``
         (qubit 0 leftmost) or a normalised state vector of shape (2**n,) (see
         `qgradlib.circuits.preparation`). Derivatives start from it too.
 

@@ -170,7 +170,7 @@ class TensorEstimate:
     >>> import numpy as np
     >>> from qgradlib import TensorEstimate
     >>> t = TensorEstimate(np.eye(2) / 4, np.full((2, 2), 0.01), executions=6, shots=600, circuits=3)
-    >>> t.value.shape, t.standard_error[0, 1], t.shots
+    >>> t.value.shape, float(t.standard_error[0, 1]), t.shots
     ((2, 2), 0.01, 600)
     """
 
