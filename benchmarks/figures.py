@@ -7,7 +7,7 @@ import subprocess
 import sys
 
 import numpy as np
-from autograd import grad
+from autograd import grad, hessian
 
 import qgradlib as qg
 
@@ -21,10 +21,10 @@ __all__ = ["FIGURES", "SIZES"]
 SIZES = {
     "full": {"gate_n": 22, "gate_layers": 2, "adj_n": 16, "adj_layers": 4, "shift_n": 10,
              "shift_layers": 4, "fwd_mem_n": 26, "adj_mem_n": 24, "mem_layers": 1,
-             "overhead_layers": 300, "min_time": 0.05},
+             "overhead_layers": 300, "hess_n": 6, "hess_layers": 5, "min_time": 0.05},
     "quick": {"gate_n": 12, "gate_layers": 2, "adj_n": 8, "adj_layers": 4, "shift_n": 6,
               "shift_layers": 4, "fwd_mem_n": 12, "adj_mem_n": 10, "mem_layers": 1,
-              "overhead_layers": 20, "min_time": 0.002},
+              "overhead_layers": 20, "hess_n": 3, "hess_layers": 2, "min_time": 0.002},
 }
 
 
@@ -79,18 +79,36 @@ def shift_forward(sz, repeats):
                    seconds_forward=float(np.median(b)))
 
 
+def _agree_and_time(target, baseline, sz, repeats):
+    """Largest difference of the two results (a silent mismatch would void the ratio), then
+    their paired times."""
+    diff = float(np.max(np.abs(np.asarray(target()) - np.asarray(baseline()))))
+    return (diff,) + paired(target, baseline, repeats, sz["min_time"])
+
+
 def backprop_adjoint(sz, repeats):
     n, L = sz["adj_n"], sz["adj_layers"]
     c, H, theta = _ising_setup(n, L)
     terms = ising_terms(n)
     adj = lambda: grad(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)  # noqa: E731
     bp = lambda: grad(layered_energy)(theta, n, L, terms)  # noqa: E731
-    diff = float(np.max(np.abs(adj() - bp())))
-    t, b = paired(bp, adj, repeats, sz["min_time"])
+    diff, t, b = _agree_and_time(bp, adj, sz, repeats)
     return _result("backprop_adjoint", f"autograd backprop through a plain tensordot simulator / "
                    f"our adjoint gradient, n = {n}, m = {c.n_params}", 4.0, ">=", t / b,
                    max_gradient_difference=diff, seconds_backprop=float(np.median(t)),
                    seconds_adjoint=float(np.median(b)))
+
+
+def hessian_adjoint(sz, repeats):
+    n, L = sz["hess_n"], sz["hess_layers"]
+    c, H, theta = _ising_setup(n, L)
+    adj = lambda: hessian(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)  # noqa: E731
+    sh = lambda: hessian(lambda t: qg.expect(c, H, t))(theta)  # noqa: E731
+    diff, t, b = _agree_and_time(adj, sh, sz, repeats)
+    return _result("hessian_adjoint", f"autograd.hessian through gradient='adjoint' / through "
+                   f"'shift', n = {n}, m = {c.n_params}", 1.0, "<=", t / b,
+                   max_hessian_difference=diff, seconds_adjoint=float(np.median(t)),
+                   seconds_shift=float(np.median(b)))
 
 
 def _probe(what, n, layers):
@@ -137,5 +155,5 @@ def overhead(sz, repeats):
                    per_gate_over_ufunc_call=float(np.median(t / G / b)))
 
 
-FIGURES = [gate_pass, adjoint_forward, shift_forward, backprop_adjoint, forward_memory,
-           adjoint_memory, overhead]
+FIGURES = [gate_pass, adjoint_forward, shift_forward, backprop_adjoint, hessian_adjoint,
+           forward_memory, adjoint_memory, overhead]

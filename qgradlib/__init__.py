@@ -12,8 +12,8 @@ Examples
 """
 from . import check, curvature, shots
 from .circuits import Channel, Circuit, Gate, Observable, Operation, channels, commutator, gates
-from .evaluation import (ChunkError, Ledger, counts, density_matrix, distribute, expect,
-                         kernel_matrix, probabilities, sample, state, variance)
+from .evaluation import (ChunkError, Ledger, NestedPlanWarning, counts, density_matrix, distribute,
+                         expect, kernel_matrix, probabilities, sample, state, variance)
 from .rules import ShiftRule
 from .shots import Estimate, GradientEstimate, TensorEstimate, estimate, estimate_gradient
 from .train import models, optimize, workflows
@@ -25,7 +25,7 @@ __all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", 
            "Channel", "channels", "density_matrix", "estimate", "estimate_gradient", "Estimate",
            "GradientEstimate", "TensorEstimate", "check", "curvature", "models", "optimize",
            "workflows", "plot", "distribute", "ChunkError", "shots", "kernel_matrix", "counts",
-           "variance", "commutator"]
+           "variance", "commutator", "NestedPlanWarning"]
 
 
 def __getattr__(name):

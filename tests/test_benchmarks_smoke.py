@@ -6,8 +6,8 @@ import subprocess
 import sys
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-KEYS = {"gate_pass", "adjoint_forward", "shift_forward", "backprop_adjoint", "forward_memory",
-        "adjoint_memory", "overhead_n4"}
+KEYS = {"gate_pass", "adjoint_forward", "shift_forward", "backprop_adjoint", "hessian_adjoint",
+        "forward_memory", "adjoint_memory", "overhead_n4"}
 
 
 def test_quick_suite_writes_every_figure(tmp_path):
@@ -37,3 +37,4 @@ def test_quick_suite_writes_every_figure(tmp_path):
     assert proc.stdout.count("target") == len(KEYS)
     # the plain simulator's gradient agrees with ours (a silent mismatch would void the ratio)
     assert figs["backprop_adjoint"]["details"]["max_gradient_difference"] < 1e-9
+    assert figs["hessian_adjoint"]["details"]["max_hessian_difference"] < 1e-9

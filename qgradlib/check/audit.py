@@ -27,7 +27,9 @@ from dataclasses import dataclass
 import numpy as np
 from autograd import make_vjp, value_and_grad
 from autograd.test_util import check_grads, make_numerical_jvp
+from autograd.tracer import getval
 
+from ..circuits.circuit import Circuit, check_theta
 from ..circuits import display
 from ..evaluation.brief import brief, describe
 from ..evaluation.expectation import expect
@@ -267,8 +269,11 @@ def gradients(circuit, observable, theta, *, methods=METHODS, shots=None, seed=N
     if bad or not methods:
         raise ValueError(f"methods must be a non-empty selection of {METHODS}; got {tuple(methods)!r}")
     single = isinstance(observable, Observable)
-    theta = np.asarray(theta, dtype=float) if isinstance(theta, (list, tuple)) else theta
-    if not isinstance(theta, np.ndarray) or theta.ndim != 1:
+    if not isinstance(circuit, Circuit):
+        raise TypeError(f"circuit must be a qgradlib Circuit; got {type(circuit).__name__}")
+    # every method (and autograd's own check) differentiates the same float point
+    theta = np.asarray(getval(check_theta(circuit, theta)), dtype=float)
+    if theta.ndim != 1:
         raise ValueError("theta must be a 1-D array of shape (n_params,); audits take one point, "
                          f"not a batch; got {np.shape(theta)}")
     rng = make_rng(seed)

@@ -30,6 +30,7 @@ from numbers import Real
 import autograd.numpy as anp
 from autograd.tracer import getval
 import numpy as np
+from autograd.tracer import Box, getval
 
 from . import display
 from . import gates as _g
@@ -105,6 +106,8 @@ class Circuit:
         self._n_params = 0
         self._n_inputs = 0
         self._cache = None
+        self._version = 0          # bumped by every change; snapshot() is memoised on it
+        self._frozen = False
 
     # -- read-only views ------------------------------------------------------------------
     @property
@@ -245,6 +248,9 @@ class Circuit:
         >>> qg.Circuit(2).add(qg.Gate.from_generator("zz", M), (0, 1)).n_params
         1
         """
+        if self._frozen:
+            raise ValueError("this circuit is a snapshot held by an evaluation and cannot change; "
+                             "build on a copy (circuit.copy())")
         if not isinstance(gate, (Gate, Channel)):
             raise TypeError(f"gate must be a qgradlib Gate or Channel; got {type(gate).__name__}")
         qs = self._qubits(qubits, gate)
@@ -284,6 +290,7 @@ class Circuit:
     def _append(self, op):
         self._ops.append(op)
         self._cache = None
+        self._version += 1
         return self
 
     def _qubits(self, qubits, gate):
@@ -308,12 +315,39 @@ class Circuit:
         return qs
 
     def copy(self) -> "Circuit":
-        """An independent copy (appending to it leaves this circuit alone)."""
+        """An independent circuit with the same operations (appending to one leaves the other).
+
+        ``copy.copy`` and ``copy.deepcopy`` give the same: operations are frozen values, so
+        sharing them is safe.
+        """
         out = Circuit(self._n)
         out._ops = list(self._ops)
         out._n_params = self._n_params
         out._n_inputs = self._n_inputs
         return out
+
+    def __copy__(self):
+        return self.copy()
+
+    def __deepcopy__(self, memo):
+        return self.copy()
+
+    def snapshot(self) -> "Circuit":
+        """A frozen copy of the circuit as it is now, memoised until the circuit changes.
+
+        An evaluation holds the snapshot of what it evaluated, so its derivative (computed
+        later, when autograd calls the VJP) belongs to that circuit even if the user appends
+        gates meanwhile. A snapshot refuses to change.
+        """
+        if self._frozen:
+            return self
+        memo = getattr(self, "_snap", None)
+        if memo is None or memo[0] != self._version:
+            snap = self.copy()
+            snap._frozen = True
+            memo = (self._version, snap)
+            self._snap = memo
+        return memo[1]
 
     def __add__(self, other):
         """Concatenate: ``other``'s parameters are renumbered to follow ``self``'s; both read
@@ -421,12 +455,17 @@ class Circuit:
             phi = anp.zeros(theta.shape[:-1] + (b.size,)) + b
         else:
             phi = theta[..., idx] * scale + b
-        if inputs is None:
-            return phi
-        # the input gates' columns, added as a (rows, G) array built from x by one product
-        place = np.zeros((xcols.size, b.size))
-        place[np.arange(xcols.size), xcols] = xscale
-        return phi + anp.dot(inputs[..., xidx], place)
+        if inputs is not None:
+            # the input gates' columns, added as a (rows, G) array built from x by one product
+            place = np.zeros((xcols.size, b.size))
+            place[np.arange(xcols.size), xcols] = xscale
+            phi = phi + anp.dot(inputs[..., xidx], place)
+        big = np.abs(getval(phi)).max(initial=0.0)
+        if big >= MAX_ANGLE:
+            raise ValueError(f"theta gives a gate angle of magnitude {big:.3g}; angles (scale * theta "
+                             "+ offset, plus scale * inputs) must stay below 2**40 (about 1.1e12) in "
+                             "magnitude, beyond which a float64 no longer holds an angle to 1e-4 rad")
+        return phi
 
     # -- standard gates -------------------------------------------------------------------
     def h(self, q): return self.add(_g.H, q)  # noqa: E704
@@ -545,6 +584,11 @@ def _finite(v, name):
     return v
 
 
+# Beyond this magnitude a float64 holds an angle to worse than 1e-4 rad (its spacing there is
+# 2**-12) and the reduction modulo a gate's period loses every digit of the phase.
+MAX_ANGLE = 2.0 ** 40
+
+
 def check_inputs(circuit: Circuit, inputs, theta=None):
     """Validate a data point (n_inputs,) or data set (N, n_inputs) against ``circuit``.
 
@@ -589,31 +633,48 @@ def check_inputs(circuit: Circuit, inputs, theta=None):
 
 
 def check_theta(circuit: Circuit, theta):
-    """Validate theta: shape (n_params,) or (B, n_params), real, finite. Keeps autograd boxes.
+    """Validate theta and return it as float64: shape (n_params,) or (B, n_params), real, finite.
+
+    Integer arrays, lists, tuples and nested lists become float arrays. Inside an autograd
+    derivative the result stays a box, so the derivative reaches the caller's argument:
+
+    - a list or tuple of floats is stacked with ``autograd.numpy.array`` (autograd then returns
+      the gradient as a list, as it does for any list argument);
+    - an integer array that is itself the argument being differentiated is converted exactly;
+    - an integer array made by other autograd operations, and a list of Python ints, are
+      refused: autograd carries derivatives with respect to integers as integers (its
+      indexing rule truncates them), so the derivative could already be wrong upstream.
+
+    Booleans are refused everywhere.
 
     Examples
     --------
     >>> import qgradlib as qg
     >>> from qgradlib.circuits import check_theta
     >>> c = qg.Circuit(1).ry(0).rx(0)
-    >>> check_theta(c, [0.1, 0.2]).shape
-    (2,)
+    >>> check_theta(c, [1, 2]).dtype, check_theta(c, [0.1, 0.2]).shape
+    (dtype('float64'), (2,))
     >>> check_theta(c, [0.1])
     Traceback (most recent call last):
         ...
     ValueError: theta must have shape (2,)...
     """
-    from autograd.tracer import getval
-
     raw = getval(theta)
-    if isinstance(raw, (list, tuple)):
+    listed = isinstance(raw, (list, tuple))
+    if listed:
+        leaves = _leaves(raw)
+        if any(isinstance(v, (bool, np.bool_)) for v in leaves):
+            raise TypeError("theta must hold real numbers, not booleans")
+        if isinstance(theta, Box) and any(not isinstance(v, (float, np.floating)) for v in leaves):
+            raise TypeError("theta is a list of ints inside an autograd derivative: autograd cannot "
+                            "differentiate with respect to Python ints; pass a float array such "
+                            "as np.array(theta, dtype=float)")
         try:
-            raw = np.asarray(raw)
-        except ValueError:  # rows of different lengths
+            raw = np.asarray(_unboxed(raw))
+        except (ValueError, TypeError):  # rows of different lengths, or non-numbers
             raise ValueError(f"theta must have shape ({circuit.n_params},) or (B, {circuit.n_params}); "
-                             "got a ragged sequence") from None
-        theta = raw
-    if not isinstance(raw, (np.ndarray, Real, np.generic)) or isinstance(raw, bool):
+                             "got a ragged or non-numeric sequence") from None
+    if not isinstance(raw, (np.ndarray, Real, np.generic)) or isinstance(raw, (bool, np.bool_)):
         raise TypeError(f"theta must be a real array of shape ({circuit.n_params},) or "
                         f"(B, {circuit.n_params}); got {type(raw).__name__}")
     arr = np.asarray(raw)
@@ -624,6 +685,44 @@ def check_theta(circuit: Circuit, theta):
                          f"got {arr.shape}")
     if not np.all(np.isfinite(arr)):
         raise ValueError("theta must be finite (found NaN or inf)")
-    if theta is raw and arr.dtype != float:
-        return arr.astype(float)
+    if not isinstance(theta, Box) and not (listed and _holds_box(theta)):
+        return np.asarray(arr, dtype=float)
+    if listed:
+        return anp.array(theta)
+    if arr.dtype.kind in "iu":
+        if not _is_argument(theta):
+            raise TypeError("theta is an integer array made inside an autograd derivative: autograd "
+                            "carries derivatives with respect to integer arrays as integers and "
+                            "truncates them; differentiate with respect to a float array "
+                            "(np.asarray(theta, dtype=float))")
+        return theta * 1.0
     return theta
+
+
+def _leaves(seq):
+    out = []
+    for v in seq:
+        v = getval(v)
+        if isinstance(v, (list, tuple)):
+            out.extend(_leaves(v))
+        else:
+            out.append(v)
+    return out
+
+
+def _unboxed(seq):
+    """The nested sequence with every autograd box replaced by its value."""
+    return [_unboxed(getval(v)) if isinstance(getval(v), (list, tuple)) else getval(v) for v in seq]
+
+
+def _holds_box(seq):
+    return any(isinstance(v, Box) or (isinstance(v, (list, tuple)) and _holds_box(v)) for v in seq)
+
+
+def _is_argument(box):
+    """True when ``box`` (at every level of nesting) is the argument of its derivative itself."""
+    while isinstance(box, Box):
+        if getattr(box._node, "parents", None) != []:
+            return False
+        box = box._value
+    return True

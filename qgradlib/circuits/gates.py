@@ -38,6 +38,7 @@ __all__ = ["Gate", "STANDARD", "H", "X", "Y", "Z", "S", "T", "SX", "CNOT", "CZ",
            "RX", "RY", "RZ", "PHASE", "CRX", "CRY", "CRZ", "CPHASE", "RXX", "RYY", "RZZ"]
 
 _TOL = 1e-10
+_UNITARY_TOL = 1e-8       # |U^dagger U - I| allowed for matrices given by a function
 
 
 def _square(m, name):
@@ -190,7 +191,9 @@ class Gate:
         u = _square(fn(0.0), "fn(0.0)")
         if u.shape[0] != 2 ** k:
             raise ValueError(f"fn(0.0) must be {2**k}x{2**k} for n_qubits={k}; got {u.shape}")
-        return cls(_name(name), k, "function", function=fn)
+        gate = cls(_name(name), k, "function", function=fn)
+        gate._function_matrices(np.zeros(1))      # unitary at 0 (every angle is checked when used)
+        return gate
 
     # -- comparing ------------------------------------------------------------------------
     def _key(self):
@@ -372,8 +375,29 @@ class Gate:
         if self.kind == "hamiltonian":
             return hamiltonian_matrices(self, a)
         if self.kind == "function":
-            return np.stack([_square(self.function(float(x)), f"fn({float(x)})") for x in a])
+            return self._function_matrices(a)
         raise AssertionError(self.kind)
+
+    def _function_matrices(self, a):
+        """fn(a) for every angle, checked where it is built: square of the gate's size, unitary."""
+        d = self.dim
+        out = np.empty((a.size, d, d), dtype=complex)
+        for i, x in enumerate(a):
+            u = _square(self.function(float(x)), f"fn({float(x)!r}) of gate {self.name!r}")
+            if u.shape != (d, d):
+                raise ValueError(f"gate {self.name!r}: fn({float(x)!r}) is {u.shape[0]}x{u.shape[1]}, "
+                                 f"but the gate acts on {self.n_qubits} qubit(s), so every angle must "
+                                 f"give a {d}x{d} matrix")
+            out[i] = u
+        # one batched check of U^dagger U = I for all angles (a few flops per entry)
+        err = np.abs(np.einsum("bji,bjk->bik", out.conj(), out) - np.eye(d)).max(axis=(1, 2))
+        bad = np.flatnonzero(err > _UNITARY_TOL)
+        if bad.size:
+            i = bad[0]
+            raise ValueError(f"gate {self.name!r} built by Gate.from_function is not unitary at angle "
+                             f"{float(a[i])!r}: max |U^dagger U - I| = {err[i]:.2e} (tolerance "
+                             f"{_UNITARY_TOL:g}); fn(angle) must return a unitary matrix at every angle")
+        return out
 
     def diagonal_values(self, a):
         """Diagonal of the matrix for angles ``a`` (B,), shape (B, d); diagonal gates only."""

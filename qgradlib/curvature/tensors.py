@@ -46,6 +46,7 @@ from ..circuits import display
 from ..evaluation.brief import brief
 from ..evaluation.expectation import _check_qubits, _observables, _spec
 from ..rules.higher_plans import build_plan, tensor
+from ..rules.stencils import check_step
 from .execute import prepare, run_plan
 
 __all__ = ["HessianResult", "DerivativeTensors", "hessian", "derivatives"]
@@ -182,6 +183,8 @@ def _tensors(circuit, observables, theta, orders, *, shots, seed, shift, step, s
              executor, chunk):
     theta, phi, A = prepare(circuit, theta)
     obs, single = _observables(observables, circuit.n_qubits)
+    if step is not None:
+        check_step(step, max(orders))       # the highest order taken sets the useful range
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, shift=shift,
                  step=step, splits=splits, memory_budget=memory, executor=executor,
                  chunk=chunk)

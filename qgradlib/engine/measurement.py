@@ -182,9 +182,13 @@ def make_rng(seed):
     """A numpy Generator from an int, a Generator or None."""
     if isinstance(seed, np.random.Generator):
         return seed
-    if seed is None or (isinstance(seed, (int, np.integer)) and not isinstance(seed, bool)):
-        return np.random.default_rng(seed)
-    raise TypeError(f"seed must be an int, a numpy.random.Generator or None; got {type(seed).__name__}")
+    if seed is None:
+        return np.random.default_rng()
+    if isinstance(seed, (int, np.integer)) and not isinstance(seed, (bool, np.bool_)):
+        if seed < 0:
+            raise ValueError(f"seed must be a non-negative int (or a numpy.random.Generator); got {seed!r}")
+        return np.random.default_rng(int(seed))
+    raise TypeError(f"seed must be an int, a numpy.random.Generator or None; got {seed!r}")
 
 
 class PointSeeds:

@@ -5,10 +5,12 @@ primitive whose derivative rules (shift, adjoint, difference) sit beside it; the
 that spread its rows; and the ledger that counts what a device would run.
 """
 from .distribute import ChunkError
-from .expectation import density_matrix, evaluate, expect, probabilities, sample, state
+from .expectation import (NestedPlanWarning, density_matrix, evaluate, expect, probabilities,
+                          sample, state)
 from .fidelity import kernel_matrix
 from .ledger import Ledger
 from .statistics import counts, variance
 
 __all__ = ["expect", "probabilities", "state", "sample", "density_matrix", "evaluate", "Ledger",
-           "ChunkError", "kernel_matrix", "counts", "variance"]
+           "ChunkError", "kernel_matrix", "NestedPlanWarning", "counts",
+           "variance"]

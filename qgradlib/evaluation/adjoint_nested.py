@@ -110,15 +110,26 @@ def adjoint_jacobian(phi, spec):
 
 
 def _adjoint_jacobian_vjp(ans, phi, spec):
+    held = {}
+
+    def shifted():
+        # autograd's jacobian (and hessian) calls this VJP once per output entry: the shifted
+        # Jacobians do not depend on the cotangent, so they are computed once, not per call
+        if "J" not in held:
+            points, _, coeff, _ = first_order_points(spec.circuit, phi, None, spec.columns,
+                                                     **spec.rule_options())
+            P, G = np.shape(getval(phi))
+            T = coeff.shape[1]
+            held["J"] = None if T == 0 else (
+                coeff, anp.reshape(adjoint_jacobian(points, spec), (P, T, spec.n_out, G)))
+        return held["J"]
+
     def vjp(V):
-        points, _, coeff, _ = first_order_points(spec.circuit, phi, None, spec.columns,
-                                                 **spec.rule_options())
-        P, G = np.shape(getval(phi))
-        T = coeff.shape[1]
-        if T == 0:
-            return anp.zeros((P, G))
-        shifted = anp.reshape(adjoint_jacobian(points, spec), (P, T, spec.n_out, G))
-        return anp.einsum("pkg,jt,ptkg->pj", V, coeff, shifted)
+        plan = shifted()
+        if plan is None:
+            return anp.zeros(np.shape(getval(phi)))
+        coeff, J = plan
+        return anp.einsum("pkg,jt,ptkg->pj", V, coeff, J)
     return vjp
 
 

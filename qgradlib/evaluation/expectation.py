@@ -22,6 +22,7 @@ is forgotten; see `qgradlib.evaluation.adjoint_nested`).
 """
 from __future__ import annotations
 
+import warnings
 from collections import Counter
 from dataclasses import dataclass, replace
 from numbers import Real
@@ -43,8 +44,10 @@ from .rows import measure_rows_here
 from ..circuits.observables import Observable
 from ..circuits.preparation import prepared
 from ..rules.plans import first_order_points
+from ..rules.stencils import check_step
 
-__all__ = ["expect", "probabilities", "state", "density_matrix", "sample", "evaluate", "METHODS"]
+__all__ = ["expect", "probabilities", "state", "density_matrix", "sample", "evaluate", "METHODS",
+           "NestedPlanWarning", "NESTED_PLAN_LIMIT"]
 
 METHODS = ("shift", "adjoint", "difference")
 
@@ -108,6 +111,8 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
     """
     phi = np.asarray(phi, dtype=float)
     P = phi.shape[0]
+    if P == 0:              # an empty batch: an empty result, nothing run or counted
+        return np.zeros((0, spec.n_out))
     ticks = _angle_ticks(phi, spec.circuit)
     keys = [ticks[p].tobytes() + (repr(sorted(inserts[p].items())).encode() if inserts else b"")
             for p in range(P)]
@@ -145,9 +150,12 @@ def _angle_ticks(phi, circuit):
     periods = _periods(circuit)
     has = ~np.isnan(periods)
     if np.any(has):
-        # reduce first, round after: a point just below a period rounds onto it, hence mod again
+        # reduce first, round after: a point just below a period rounds onto it, hence mod again.
+        # Gates with a period below one radian (high frequencies) get a grid that fine relative
+        # to their period, so their distinct shifts never share a tick.
         per = periods[has]
-        t[:, has] = np.mod(np.round(np.mod(t[:, has], per) * _TICK), np.round(per * _TICK))
+        tick = _TICK / np.minimum(per, 1.0)
+        t[:, has] = np.mod(np.round(np.mod(t[:, has], per) * tick), np.round(per * tick))
     if not np.all(has):
         t[:, ~has] = np.round(t[:, ~has] * _TICK)
     return t + 0.0          # -0.0 and 0.0 must give one key
@@ -173,42 +181,96 @@ def _jacobian(points, new_inserts, coeff, names, spec, P):
     return anp.einsum("gt,ptk->pkg", coeff, vals)
 
 
+class NestedPlanWarning(UserWarning):
+    """A nested autograd derivative through Hamiltonian gates needs a very large plan."""
+
+
+# circuits in one nested plan above which NestedPlanWarning is raised
+NESTED_PLAN_LIMIT = 10_000
+
+
 def _shift_jacobian(phi, spec, inserts):
     points, new_inserts, coeff, names = first_order_points(
         spec.circuit, phi, inserts, spec.columns, **spec.rule_options())
+    n = len(names)
+    if inserts is not None and n > NESTED_PLAN_LIMIT:
+        # each order multiplies the points of a Hamiltonian gate by 2 x its quadrature nodes;
+        # autograd differentiates plan by plan, without merging across orders
+        gates = sorted({spec.circuit.parametric_operations[c].gate.name for row in inserts for c in row})
+        warnings.warn(NestedPlanWarning(
+            f"a nested autograd derivative through Hamiltonian gate(s) {', '.join(gates)} needs "
+            f"{n:,} circuits in one plan, and the count multiplies with every order: "
+            "qgradlib.curvature.derivatives(circuit, observable, theta, order=k) builds one "
+            "merged plan for all orders and needs far fewer"), stacklevel=2)
     return _jacobian(points, new_inserts, coeff, names, spec, np.shape(getval(phi))[0])
 
 
 def _fd_jacobian(ans, phi, spec, inserts):
+    """Finite differences that step theta, one trainable parameter at a time, as (P, K, G).
+
+    A device steps the parameters, not each gate angle: parameter i moves phi along column
+    ``A[:, i]`` of the angle map, so a parameter shared by six gates costs two circuits
+    (central), not twelve. The differences ``D_i ~ dE/dtheta_i`` are returned lifted to phi
+    as ``D @ diag(1 / |A_i|**2) @ A.T``; the chain rule through the angle map (``A.T``) turns
+    that back into exactly ``D``, since each gate angle belongs to one parameter and
+    ``A.T @ A`` is therefore diagonal. Data features that autograd traces (``inputs``) are
+    stepped the same way, along the columns of the input map ``B``: a gate reads a parameter
+    or a feature, never both, so ``[A B]`` keeps that property.
+    """
     P, G = np.shape(getval(phi))
-    h = spec.step if spec.step is not None else (1e-5 if spec.shots is None else 0.1)
+    circuit = spec.circuit
+    A = circuit.angle_map()[0]
+    m = A.shape[1]
+    if circuit.n_inputs:
+        A = np.hstack([A, circuit.input_map()])
+    traced = np.zeros(G, dtype=bool)
+    traced[list(spec.columns)] = True
+    A = np.where(traced[:, None], A, 0.0)          # only the columns autograd traces
+    params = [i for i in range(A.shape[1]) if np.any(A[:, i] != 0.0)]
+    # a boxed phi will be differentiated again: this difference is part of one of higher order
+    order = 1 + _depth(phi)
+    if spec.step is not None:
+        h = check_step(spec.step, order)
+    elif spec.shots is not None:
+        h = 0.1
+    else:
+        h = 1e-5 if order == 1 else float(np.finfo(float).eps ** (1.0 / (order + 2)))
     steps = (h, -h) if spec.stencil == "central" else (h,)
-    T = len(steps) * len(spec.columns)
+    T = len(steps) * len(params)
     delta = np.zeros((T, G))
-    coeff = np.zeros((G, T))
-    names = []
-    for i, j in enumerate(spec.columns):
+    coeff = np.zeros((len(params), T))
+    for i, param in enumerate(params):
         for s, step in enumerate(steps):
             t = i * len(steps) + s
-            delta[t, j] = step
-            coeff[j, t] = (1.0 if step > 0 else -1.0) / (len(steps) * h)
-            names.append(spec.circuit.parametric_operations[j].gate.name)
+            delta[t] = step * A[:, param]
+            coeff[i, t] = (1.0 if step > 0 else -1.0) / (len(steps) * h)
+    lift = A[:, params] / np.sum(A[:, params] ** 2, axis=0)           # (G, len(params))
+    names = [f"theta[{i}]" if i < m else f"inputs[{i - m}]" for i in params for _ in steps]
     points = anp.reshape(phi[:, None, :] + delta[None], (P * T, G))
     ins = None if inserts is None else [row for row in inserts for _ in range(T)]
-    J = _jacobian(points, ins, coeff, names * P, spec, P)
+    J = _jacobian(points, ins, lift @ coeff, names * P, spec, P)
     if spec.stencil == "forward" and T:
         # f'(a) ~ (f(a + h) - f(a)) / h: the value term, reused from the forward pass
-        base = np.zeros((G,))
-        base[list(spec.columns)] = 1.0 / h
-        J = J - anp.reshape(ans, (P, spec.n_out, 1)) * base
+        J = J - anp.reshape(ans, (P, spec.n_out, 1)) * (lift.sum(axis=1) / h)
     return J
 
 
-def _adjoint_vjp(phi, spec, g):
+def _depth(x):
+    """How many autograd derivatives are being taken through ``x`` at once."""
+    d = 0
+    while isinstance(x, Box):
+        d, x = d + 1, x._value
+    return d
+
+
+def _adjoint_vjp(phi, spec, g, cache):
     if isinstance(phi, Box) or isinstance(g, Box):
-        # a derivative of the derivative: the adjoint Jacobian, itself differentiated by shifts
+        # a derivative of the derivative: the adjoint Jacobian, itself differentiated by shifts,
+        # computed once for all the cotangents autograd's jacobian sends
         check_nested(spec)
-        return anp.einsum("pk,pkg->pg", g, adjoint_jacobian(phi, spec))
+        if "adjoint" not in cache:
+            cache["adjoint"] = adjoint_jacobian(phi, spec)
+        return anp.einsum("pk,pkg->pg", g, cache["adjoint"])
     return adjoint_vjp(phi, spec, g)
 
 
@@ -225,8 +287,10 @@ def _evaluate_vjp(ans, phi, spec, inserts=None, purposes="value"):
         return cache["J"]
 
     def vjp(g):
+        if np.shape(getval(phi))[0] == 0:
+            return np.zeros(np.shape(getval(phi)))
         if spec.gradient == "adjoint":
-            return _adjoint_vjp(phi, spec, g)
+            return _adjoint_vjp(phi, spec, g, cache)
         return anp.einsum("pk,pkg->pg", g, jac())
     return vjp
 
@@ -272,6 +336,8 @@ def _check_shots(shots):
         return None
     if isinstance(shots, (bool, np.bool_)) or not isinstance(shots, (int, np.integer)) or shots < 1:
         raise ValueError(f"shots must be a positive int or None; got {shots!r}")
+    if shots >= 2 ** 63:
+        raise ValueError(f"shots must be below 2**63 (a count a 64-bit integer can hold); got {shots!r}")
     return int(shots)
 
 
@@ -344,9 +410,12 @@ def _check_qubits(qubits, n):
 def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, gradient="shift",
           shift=None, step=None, stencil="central", splits=1, memory_budget=None,
           allocation="uniform", readout=None, fuse=True, executor=None, chunk=None):
+    if not isinstance(gradient, str):
+        raise TypeError(f"gradient must be a string, one of {METHODS}; got {type(gradient).__name__}")
     if gradient not in METHODS:
         raise ValueError(f"gradient must be one of {METHODS}; got {gradient!r}")
     shots = _check_shots(shots)
+    rng = make_rng(seed)            # checked whether or not shots are taken
     if gradient == "adjoint" and shots is not None:
         raise ValueError("gradient='adjoint' needs the exact state, which a device never has: "
                          "it cannot be combined with shots; use 'shift'")
@@ -367,17 +436,19 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
             raise ValueError(f"shift must be a number in the open interval (0, pi); got {shift!r}")
         shift = float(shift)
     if step is not None:
-        if not isinstance(step, Real) or not np.isfinite(step) or step < 1e-12:
-            raise ValueError("step must be a finite number of at least 1e-12 (smaller steps are "
-                             f"lost in the rounding of angles); got {step!r}")
-        step = float(step)
+        step = check_step(step, 1)
     if stencil not in ("central", "forward"):
         raise ValueError(f"stencil must be 'central' or 'forward'; got {stencil!r}")
     if isinstance(splits, bool) or not isinstance(splits, (int, np.integer)) or splits < 1:
         raise ValueError(f"splits must be a positive int; got {splits!r}")
-    if memory_budget is not None and (not isinstance(memory_budget, (int, np.integer)) or memory_budget < 1):
+    if memory_budget is not None and (isinstance(memory_budget, (bool, np.bool_))
+                                      or not isinstance(memory_budget, (int, np.integer))
+                                      or memory_budget < 1):
         raise ValueError(f"memory must be a positive number of bytes; got {memory_budget!r}")
     executor, chunk = distribute.check_executor(executor, chunk)
+    # the evaluation and every derivative of it see this frozen copy, whatever happens to
+    # the user's circuit afterwards
+    circuit = circuit.snapshot()
     pops = circuit.parametric_operations
     columns = tuple(k for k, op in enumerate(pops) if op.param is not None and op.scale != 0.0)
     plan = plan_measurements(observables) if kind == "expect" else None
@@ -385,7 +456,7 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
     # a guard at the call that asks for the state, not deep inside the engine
     _guard(circuit)
     return Spec(circuit, kind, observables, qubits, shots,
-                make_rng(seed) if shots is not None else None, gradient, shift, step, stencil,
+                rng if shots is not None else None, gradient, shift, step, stencil,
                 int(splits), memory_budget, columns, max(1, settings), allocation, readout, plan,
                 _check_fuse(fuse), executor=executor, chunk=chunk)
 
@@ -516,7 +587,8 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
         return out[0] if single else anp.stack(out, axis=-1)
     circuit = prepared(circuit, initial)
     obs, single = _observables(observables, circuit.n_qubits)
-    check_inputs(circuit, inputs, check_theta(circuit, theta))
+    theta = check_theta(circuit, theta)
+    check_inputs(circuit, inputs, theta)
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
                  allocation=allocation, readout=readout, fuse=fuse, executor=executor, chunk=chunk)
@@ -547,7 +619,8 @@ def probabilities(circuit, theta, qubits=None, *, inputs=None, shots=None, seed=
     _check_circuit(circuit)
     circuit = prepared(circuit, initial)
     qs = _check_qubits(qubits, circuit.n_qubits)
-    check_inputs(circuit, inputs, check_theta(circuit, theta))
+    theta = check_theta(circuit, theta)
+    check_inputs(circuit, inputs, theta)
     spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
                  readout=readout, fuse=fuse, executor=executor, chunk=chunk)
@@ -579,7 +652,10 @@ def state(circuit, theta, *, inputs=None, fuse=True, initial=None) -> np.ndarray
                          "qgradlib.density_matrix(circuit, theta) instead of state()")
     phi = _plain_angles(circuit, theta, inputs)
     _guard(circuit)
-    psi = run(circuit, np.atleast_2d(phi), fuse=_check_fuse(fuse))
+    fuse = _check_fuse(fuse)
+    if phi.ndim == 2 and phi.shape[0] == 0:     # an empty batch has an empty result
+        return np.zeros((0, 2 ** circuit.n_qubits), dtype=complex)
+    psi = run(circuit, np.atleast_2d(phi), fuse=fuse)
     return psi if phi.ndim == 2 else psi[0]
 
 
@@ -610,6 +686,8 @@ def density_matrix(circuit, theta, *, inputs=None, initial=None) -> np.ndarray:
     phi = _plain_angles(circuit, theta, inputs)
     n = circuit.n_qubits
     memory.guard(16 * 4 ** n, f"a density matrix of {n} qubits")
+    if phi.ndim == 2 and phi.shape[0] == 0:
+        return np.zeros((0, 2 ** n, 2 ** n), dtype=complex)
     rho = run_density(circuit, np.atleast_2d(phi)).reshape(-1, 2 ** n, 2 ** n)
     return rho if phi.ndim == 2 else rho[0]
 
@@ -645,5 +723,6 @@ def sample(circuit, theta, shots, seed=None, *, inputs=None, readout=None,
     # the draw holds one float and one int per shot: refuse what cannot fit
     memory.guard(16 * shots * p.shape[0], f"{shots:,} shots of {p.shape[0]} circuit(s)")
     ledger.record(p.shape[0], 1, shots, {"sample": p.shape[0]})
-    out = np.stack([rng.choice(p.shape[1], size=shots, p=row / row.sum()) for row in p])
+    out = np.stack([rng.choice(p.shape[1], size=shots, p=row / row.sum()) for row in p]) \
+        if p.shape[0] else np.zeros((0, shots), dtype=int)
     return out if np.ndim(getval(theta)) == 2 or np.ndim(getval(inputs)) == 2 else out[0]

@@ -20,8 +20,10 @@ from .stencils import duhamel_rule, gate_stencil
 
 __all__ = ["Plan", "build_plan", "tensor"]
 
-# Displaced angles closer than this (after reduction by the period) are one point.
-_KEY_TOL = 1e-9
+# Displaced angles are one point when they agree to this fraction of their gate's period
+# (after reduction by it), or exactly where the gate has none: relative, so that a gate of
+# frequency 1e10 (period 6e-10) keeps its distinct shifts apart.
+_KEY_FRACTION = 2.0 ** -40
 
 
 @dataclass(frozen=True, eq=False)
@@ -39,10 +41,14 @@ class Plan:
 
 
 def _reduce(x, period):
+    """``(x reduced into [-period/2, period/2), key)``: equal keys are equal circuits."""
     if period is None:
-        return x
-    x = x - period * np.round(x / period)
-    return -period / 2 if x >= period / 2 - _KEY_TOL else x
+        return x, float(x)
+    r = x - period * np.round(x / period)                   # in [-period/2, period/2]
+    tick = int(np.rint(r / period / _KEY_FRACTION))
+    if tick >= 2 ** 39:                                      # +period/2 is -period/2
+        return r - period, tick - 2 ** 40
+    return r, tick
 
 
 def _column_rules(circuit, phi, columns, max_order, *, shift, step, shots, splits, rng):
@@ -83,19 +89,19 @@ def build_plan(circuit, phi, columns, orders, *, shift=None, step=None, shots=No
             for combo in product(*factors):
                 delta, cut, weight = {}, {}, 1.0
                 for c, (x, cuts, w) in zip(cols, combo):
-                    x = _reduce(x, pops[c].gate.period)
-                    if abs(x) > _KEY_TOL:
-                        delta[c] = x
+                    x, tick = _reduce(x, pops[c].gate.period)
+                    if tick != 0:
+                        delta[c] = (x, tick)
                     if cuts:
                         cut[c] = cuts
                     weight *= w
-                key = (tuple((c, int(np.rint(x / _KEY_TOL))) for c, x in sorted(delta.items())),
+                key = (tuple((c, tick) for c, (_, tick) in sorted(delta.items())),
                        tuple((c, tuple((round(r, 12), round(t, 12)) for r, t in v))
                              for c, v in sorted(cut.items())))
                 if key not in index:
                     index[key] = len(deltas)
                     row = np.zeros(G)
-                    for c, x in delta.items():
+                    for c, (x, _) in delta.items():
                         row[c] = x
                     deltas.append(row)
                     inserts.append(cut)

@@ -32,7 +32,8 @@ import numpy as np
 from .shift_rules import warn_approximate
 from .plans import piecewise_quadrature
 
-__all__ = ["Stencil", "trig_stencil", "fd_stencil", "gate_stencil", "duhamel_rule"]
+__all__ = ["Stencil", "trig_stencil", "fd_stencil", "gate_stencil", "duhamel_rule", "check_step",
+           "step_range"]
 
 # Weights below this fraction of the largest weight of their order are rounding noise of
 # an exact zero (for example the weight of x = 0 in a symmetric first-order rule).
@@ -151,7 +152,7 @@ def gate_stencil(gate, max_order: int, *, shift=None, step=None) -> Stencil:
         return trig_stencil(gate.frequencies, rule.shifts, K)
     if gate.kind == "function":
         warn_approximate(gate)
-        h = step if step is not None else float(np.finfo(float).eps ** (1.0 / (K + 2)))
+        h = check_step(step, K) if step is not None else float(np.finfo(float).eps ** (1.0 / (K + 2)))
         return fd_stencil(K, h)
     raise ValueError(f"gate {gate.name!r} of kind {gate.kind!r} has no finite stencil; "
                      "Hamiltonian gates use duhamel_rule")
@@ -193,6 +194,42 @@ def duhamel_rule(order: int, spread: float, *, first=None, shots=None, splits=1,
                     nxt.append((tuple(sorted(cuts + ((float(r), t),))), sign * float(w) * weight))
         entries = nxt
     return entries
+
+
+# A k-th finite difference carries rounding error ~ eps * |f| / step**k and truncation
+# error ~ step**2 * |f^(k+2)| (central). Steps are refused where rounding alone would exceed
+# this fraction of the value's scale, or where a step of more than one radian leaves the
+# truncation error of the order of the derivative itself (for unit frequencies).
+_ROUNDING_BUDGET = 1e-4
+_MAX_STEP = 1.0
+
+
+def step_range(order: int):
+    """``(smallest, largest)`` finite-difference step allowed for derivatives of ``order``.
+
+    Examples
+    --------
+    >>> [f"{lo:.1e}" for lo, hi in (step_range(1), step_range(2), step_range(3))]
+    ['2.2e-12', '1.5e-06', '1.3e-04']
+    """
+    k = max(1, _order(order))
+    return (np.finfo(float).eps / _ROUNDING_BUDGET) ** (1.0 / k), _MAX_STEP
+
+
+def check_step(step, order: int, name: str = "step") -> float:
+    """``step`` as a float, refused (ValueError naming ``name``) outside `step_range` (order)."""
+    if isinstance(step, (bool, np.bool_)) or not isinstance(step, (int, float, np.integer, np.floating)):
+        raise TypeError(f"{name} must be a positive number; got {step!r}")
+    h = float(step)
+    lo, hi = step_range(order)
+    if not (np.isfinite(h) and lo <= h <= hi):
+        best = np.finfo(float).eps ** (1.0 / (max(1, order) + 2))
+        raise ValueError(
+            f"{name}={step!r} is outside the useful range [{lo:.1e}, {hi:g}] for a derivative of "
+            f"order {order}: below it rounding (~ eps / {name}**{order}) swamps the difference, "
+            f"above it truncation (~ {name}**2) does; about {best:.0e} balances the two for "
+            "exact values (larger with shots)")
+    return h
 
 
 def _order(k):

@@ -337,6 +337,8 @@ def _check_x0(theta0):
         raise TypeError(f"theta0 must be a 1-D array of real numbers; got {type(theta0).__name__}") from None
     if np.iscomplexobj(np.asarray(getval(theta0))):
         raise TypeError("theta0 must be real")
+    if np.asarray(getval(theta0)).dtype == bool:
+        raise TypeError("theta0 must hold real numbers, not booleans")
     if x.ndim != 1 or x.size == 0:
         raise ValueError(f"theta0 must be a non-empty 1-D array; got shape {x.shape}")
     if not np.all(np.isfinite(x)):
