@@ -182,7 +182,18 @@ def _jacobian(points, new_inserts, coeff, names, spec, P):
 
 
 class NestedPlanWarning(UserWarning):
-    """A nested autograd derivative through Hamiltonian gates needs a very large plan."""
+    """A nested autograd derivative through Hamiltonian gates needs a very large plan.
+
+    Examples
+    --------
+    >>> import warnings
+    >>> import qgradlib as qg
+    >>> with warnings.catch_warnings(record=True) as caught:
+    ...     warnings.simplefilter("always")
+    ...     warnings.warn("a plan of 20000 circuits", qg.NestedPlanWarning)
+    >>> issubclass(caught[0].category, UserWarning)
+    True
+    """
 
 
 # circuits in one nested plan above which NestedPlanWarning is raised
