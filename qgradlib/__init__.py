@@ -1,4 +1,15 @@
-"""qgradlib: parameter-shift gradients, curvature and shot accounting for quantum circuits."""
+"""qgradlib: parameter-shift gradients, curvature and shot accounting for quantum circuits.
+
+The public names are listed in ``__all__``; ``__version__`` is the package version.
+
+Examples
+--------
+>>> import numpy as np
+>>> import qgradlib as qg
+>>> c = qg.Circuit(1).ry(0)
+>>> round(float(qg.expect(c, qg.Observable({"Z": 1.0}), np.array([np.pi / 3]))), 12)
+0.5
+"""
 from . import check, curvature, shots
 from .circuits import Channel, Circuit, Gate, Observable, Operation, channels, commutator, gates
 from .evaluation import (ChunkError, Ledger, NestedPlanWarning, counts, density_matrix, distribute,

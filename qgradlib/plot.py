@@ -72,6 +72,16 @@ def training(result, path=None, *, title=None):
     matplotlib.figure.Figure
         Two panels: cost (left axis) and executions so far (right axis, dashed) against step;
         gradient norm against step on a log scale.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> r = qg.optimize.minimize_expectation(qg.Circuit(1).ry(0), qg.Observable({"Z": 1.0}),
+    ...                                      np.array([0.5]), method="gd", steps=5)
+    >>> fig = qg.plot.training(r, title="one qubit")
+    >>> len(fig.axes)           # cost with executions on a twin axis, and the gradient norm
+    3
     """
     runs = _runs(result)
     fig = _figure(figsize=(7.0, 6.0))
@@ -121,6 +131,16 @@ def landscape(cost, theta, i, j, path=None, *, span=np.pi, points=31, batched=Fa
     -------
     matplotlib.figure.Figure
         A filled contour plot with the centre marked.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(2).ry(0).ry(1)
+    >>> cost = lambda t: qg.expect(c, qg.Observable({"ZZ": 1.0}), t)
+    >>> fig = qg.plot.landscape(cost, np.zeros(2), 0, 1, points=5, batched=True)
+    >>> fig.axes[0].get_xlabel()
+    'theta[0]'
     """
     if not callable(cost):
         raise TypeError(f"cost must be callable; got {type(cost).__name__}")

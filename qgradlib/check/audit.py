@@ -29,6 +29,7 @@ from autograd import make_vjp, value_and_grad
 from autograd.tracer import getval
 
 from ..circuits.circuit import Circuit, check_theta
+from ..circuits import display
 from ..evaluation.brief import brief, describe
 from ..evaluation.expectation import expect
 from ..evaluation.ledger import Ledger
@@ -62,6 +63,15 @@ class MethodAudit:
         Wall time here, on the simulator.
     passed : bool or None
         For ``"autograd-check"``: whether `check_grads` accepted the shift-rule derivative.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> line = qg.check.gradients(qg.Circuit(1).ry(0), qg.Observable({"Z": 1.0}), np.array([0.2]),
+    ...                           methods=("shift",))["shift"]
+    >>> line.method, line.executions, bool(line.deviation < 1e-12)     # value + two shifts
+    ('shift', 3, True)
     """
 
     method: str
@@ -80,7 +90,17 @@ class MethodAudit:
 
 @dataclass(frozen=True)
 class GradientReport:
-    """The audit of `gradients`; ``print`` it for the table."""
+    """The audit of `gradients`; ``print`` it for the table.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> report = qg.check.gradients(qg.Circuit(1).ry(0), qg.Observable({"Z": 1.0}), np.array([0.2]),
+    ...                             methods=("shift", "adjoint"))
+    >>> [m.method for m in report.methods], report.ok(1e-9)
+    (['shift', 'adjoint'], True)
+    """
 
     methods: tuple
     reference: np.ndarray
@@ -136,6 +156,31 @@ class GradientReport:
                          f"{_milliseconds(m.seconds):>10}  {check}")
         lines.append(f"  largest deviation from the adjoint gradient: {self.max_deviation:.2e}")
         return "\n".join(lines)
+
+
+    def _repr_html_(self, limit=20):
+        """The audit as two tables (components by method, then each method's costs)."""
+        names = [m.method for m in self.methods]
+        ref = np.atleast_2d(self.reference)
+        rows = []
+        for k in range(ref.shape[0]):
+            for j in range(ref.shape[1]):
+                label = f"[{j}]" if ref.shape[0] == 1 else f"obs{k}[{j}]"
+                rows.append([label] + [float(np.atleast_2d(m.gradient)[k, j]) for m in self.methods])
+        note_rows = f"the first {limit} of {len(rows)} components; " if len(rows) > limit else ""
+        components = display.table(["d/dtheta"] + names, rows[:limit], digits=10)
+        costs = display.table(
+            ["method", "vs adjoint", "executions", "shots", "time/ms", "check"],
+            [[m.method, "reference" if m.method == "adjoint" else f"{m.deviation:.2e}",
+              "sim only" if m.executions is None else m.executions, m.shots,
+              _milliseconds(m.seconds), "" if m.passed is None else ("passed" if m.passed else "FAILED")]
+             for m in self.methods])
+        mode = "exact simulation" if self.shots is None else f"{self.shots} shots per execution"
+        title = (f"Gradient audit: {display.plural(self.n_qubits, 'qubit')}, "
+                 f"{display.plural(self.n_params, 'parameter')}, {mode}")
+        return display.display(title, components, costs, note=(
+            f"{note_rows}largest deviation from the adjoint gradient {self.max_deviation:.2e}; "
+            "simulated numbers, not device measurements"))
 
 
 def _milliseconds(seconds):

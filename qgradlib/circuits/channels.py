@@ -49,6 +49,16 @@ class Channel:
     n_qubits : int
     kraus : tuple of ndarray
         Read-only (d, d) complex matrices with ``sum_k K_k^dagger K_k = I``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> ch = qg.channels.bit_flip(0.25)
+    >>> ch.name, ch.n_qubits, len(ch.kraus)
+    ('bit_flip', 1, 2)
+    >>> bool(np.allclose(sum(K.conj().T @ K for K in ch.kraus), np.eye(2)))   # trace preserving
+    True
     """
 
     name: str
@@ -131,6 +141,14 @@ def depolarizing(p) -> Channel:
 
     Kraus form: ``sqrt(1 - 3p/4) I`` and ``sqrt(p/4)`` times X, Y, Z, since
     ``X rho X + Y rho Y + Z rho Z = 2 I - rho`` for a unit-trace ``rho``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(1).noise(0, qg.channels.depolarizing(0.2))
+    >>> round(float(qg.expect(c, qg.Observable({"Z": 1.0}), np.zeros(0))), 12)    # (1 - p) <Z>
+    0.8
     """
     p = _probability(p, "p")
     return _make("depolarizing", [np.sqrt(1 - 0.75 * p) * _I, np.sqrt(p / 4) * _X,
@@ -138,21 +156,47 @@ def depolarizing(p) -> Channel:
 
 
 def dephasing(p) -> Channel:
-    """``rho -> (1 - p) rho + p Z rho Z`` on one qubit, ``p`` in [0, 1]."""
+    """``rho -> (1 - p) rho + p Z rho Z`` on one qubit, ``p`` in [0, 1].
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(1).h(0).noise(0, qg.channels.dephasing(0.1))
+    >>> round(float(qg.expect(c, qg.Observable({"X": 1.0}), np.zeros(0))), 12)    # 1 - 2p
+    0.8
+    """
     p = _probability(p, "p")
     return _make("dephasing", [np.sqrt(1 - p) * _I, np.sqrt(p) * _Z])
 
 
 def bit_flip(p) -> Channel:
-    """``rho -> (1 - p) rho + p X rho X`` on one qubit, ``p`` in [0, 1]."""
+    """``rho -> (1 - p) rho + p X rho X`` on one qubit, ``p`` in [0, 1].
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(1).noise(0, qg.channels.bit_flip(0.1))
+    >>> round(float(qg.expect(c, qg.Observable({"Z": 1.0}), np.zeros(0))), 12)    # 1 - 2p
+    0.8
+    """
     p = _probability(p, "p")
     return _make("bit_flip", [np.sqrt(1 - p) * _I, np.sqrt(p) * _X])
 
 
 def _decay(gamma) -> Channel:
-    """Amplitude damping: decay |1> -> |0> with probability ``gamma`` in [0, 1].
+    """Amplitude damping: decay ``|1> -> |0>`` with probability ``gamma`` in [0, 1].
 
     Kraus form ``[[1, 0], [0, sqrt(1 - gamma)]]`` and ``[[0, sqrt(gamma)], [0, 0]]``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(1).x(0).noise(0, qg.channels.amplitude_damping(0.3))
+    >>> np.round(qg.probabilities(c, np.zeros(0)), 12).tolist()      # |1> decays with probability 0.3
+    [0.3, 0.7]
     """
     g = _probability(gamma, "gamma")
     return _make("amplitude_damping", [np.array([[1, 0], [0, np.sqrt(1 - g)]]),

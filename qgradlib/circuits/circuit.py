@@ -23,6 +23,7 @@ Examples
 """
 from __future__ import annotations
 
+from collections import Counter
 from dataclasses import dataclass
 from numbers import Real
 
@@ -31,6 +32,7 @@ from autograd.tracer import getval
 import numpy as np
 from autograd.tracer import Box, getval
 
+from . import display
 from . import gates as _g
 from . import files, transform
 from .channels import Channel
@@ -43,7 +45,15 @@ __all__ = ["Circuit", "Operation"]
 
 @dataclass(frozen=True)
 class Operation:
-    """One gate (or noise `Channel`) on some qubits; for parametric gates, how its angle is formed."""
+    """One gate (or noise `Channel`) on some qubits; for parametric gates, how its angle is formed.
+
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> op = qg.Circuit(2).crx(0, 1, scale=2.0).operations[0]
+    >>> op.gate.name, op.qubits, op.param, op.scale, op.trainable
+    ('CRX', (0, 1), 0, 2.0, True)
+    """
 
     gate: Gate
     qubits: tuple
@@ -75,6 +85,16 @@ class Circuit:
     ``scale=`` and ``offset=`` (angle = scale * theta[param] + offset), ``input=`` for
     feature ``k`` of a data point (angle = scale * x[k] + offset; not trainable, the same
     feature may be read by any number of gates), or ``angle=`` for a fixed, untrainable angle.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(2).h(0).ry(1).cnot(0, 1).rz(1, param=0, scale=0.5)
+    >>> c.n_qubits, c.n_params, len(c)
+    (2, 1, 4)
+    >>> round(float(qg.expect(c, qg.Observable({"ZZ": 1.0}), np.array([0.0]))), 12)
+    1.0
     """
 
     def __init__(self, n_qubits: int):
@@ -167,6 +187,21 @@ class Circuit:
         theta = np.zeros(self._n_params) if theta is None else \
             np.asarray(getval(check_theta(self, theta)), dtype=float)
         return resources(self, theta)
+
+    def _repr_html_(self):
+        """A notebook display: the text drawing, then the resources and the gate counts."""
+        r = self.resources()
+        title = (f"Circuit: {display.plural(self._n, 'qubit')}, "
+                 f"{display.plural(self._n_params, 'parameter')}, "
+                 f"{display.plural(len(self._ops), 'operation')}")
+        summary = display.table(None, [["depth", r.depth], ["two-qubit gates", r.two_qubit],
+                                       ["noise channels", r.channels],
+                                       ["circuits for one gradient", r.gradient_circuits],
+                                       ["circuits for value, gradient and Hessian",
+                                        r.hessian_circuits]])
+        counts = sorted(r.counts.items(), key=lambda kv: (-kv[1], kv[0]))
+        return display.display(title, display.preformatted(str(self)), summary,
+                               display.table(["gate", "operations"], counts))
 
     # -- files ----------------------------------------------------------------------------
     def to_json(self, indent=None) -> str:
@@ -611,6 +646,18 @@ def check_theta(circuit: Circuit, theta):
       indexing rule truncates them), so the derivative could already be wrong upstream.
 
     Booleans are refused everywhere.
+
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> from qgradlib.circuits import check_theta
+    >>> c = qg.Circuit(1).ry(0).rx(0)
+    >>> check_theta(c, [1, 2]).dtype, check_theta(c, [0.1, 0.2]).shape
+    (dtype('float64'), (2,))
+    >>> check_theta(c, [0.1])
+    Traceback (most recent call last):
+        ...
+    ValueError: theta must have shape (2,)...
     """
     raw = getval(theta)
     listed = isinstance(raw, (list, tuple))

@@ -4,6 +4,16 @@ A parametric gate knows its generator ``G``; its spectrum gives the frequencies 
 expectation value in its angle, and from those its shift rule. The standard gates carry
 closed-form matrices; custom gates are diagonalised once.
 
+The standard gates (instances of `Gate`):
+
+- fixed: ``H``, ``X``, ``Y``, ``Z``, ``S``, ``T``, ``SX`` on one qubit; ``CNOT`` (control
+  first), ``CZ``, ``SWAP`` on two;
+- rotations with generator ``P/2`` for a Pauli word ``P`` (one frequency, the two-term
+  rule): ``RX``, ``RY``, ``RZ``, ``RXX``, ``RYY``, ``RZZ``; ``PHASE(a) = diag(1, e^{ia})``;
+- controlled rotations ``CRX``, ``CRY``, ``CRZ`` (generator ``|1><1| (x) P/2``, frequencies
+  1/2 and 1, a four-term rule) and ``CPHASE`` (``diag(1, 1, 1, e^{ia})``, one frequency);
+- ``STANDARD`` maps each of their names to the gate.
+
 Examples
 --------
 >>> import numpy as np
@@ -78,6 +88,14 @@ class Gate:
     drift, drive : ndarray or None, str or None
         For a Hamiltonian gate, ``U(a) = expm(-1j * (drift + a * P))`` with ``P`` the Pauli
         word ``drive``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> zz = qg.Gate.from_generator("zz", generator=np.diag([0.5, -0.5, -0.5, 0.5]))
+    >>> zz.n_qubits, zz.kind, zz.shift_rule.n_terms      # one frequency: the two-term rule
+    (2, 'generator', 2)
     """
 
     name: str

@@ -16,6 +16,7 @@ from numbers import Real
 import numpy as np
 from autograd.tracer import Box, getval
 
+from . import display
 from .paulis import masks, parse_pauli
 
 __all__ = ["Observable", "commutator", "word_product"]
@@ -33,6 +34,13 @@ class Observable:
     Notes
     -----
     Instances are immutable values: arithmetic returns new observables.
+
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> H = qg.Observable({"ZZ": -1.0, "XI": 0.5, "xi": 0.25})   # repeated strings are summed
+    >>> H.n_qubits, H.terms
+    (2, {'ZZ': -1.0, 'XI': 0.75})
     """
 
     __slots__ = ("_terms", "_dense", "_n")
@@ -251,6 +259,18 @@ class Observable:
     def traced(self) -> bool:
         """True when some coefficient is an autograd value (being differentiated)."""
         return any(isinstance(c, Box) for c in self._terms.values())
+
+    def _repr_html_(self, limit=12):
+        """The terms as a table (the largest ``limit`` by magnitude), for notebooks."""
+        order = sorted(self._terms.items(), key=lambda kv: (-abs(kv[1]), kv[0]))
+        rows = [[w, c] for w, c in order[:limit]]
+        note = f"and {len(order) - limit} smaller terms" if len(order) > limit else None
+        if self._dense is not None:
+            note = ((note + "; ") if note else "") + f"plus a dense {self._dense.shape[0]}x" \
+                f"{self._dense.shape[0]} Hermitian part"
+        title = f"Observable on {display.plural(self._n, 'qubit')}, {display.plural(len(order), 'Pauli term')}"
+        return display.display(title, display.table(["Pauli string", "coefficient"], rows)
+                               if rows else "", note=note)
 
     def __repr__(self):
         parts = [f"{w!r}: {float(getval(c)):g}" for w, c in self._terms.items()]

@@ -50,6 +50,13 @@ class Layer:
         True for a Hamiltonian or function gate: its effective generator
         ``K = i (dU/da) U^dagger`` is not a Pauli sum of fixed form and is measured in its own
         eigenbasis (one setting).
+
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> (first,) = qg.curvature.layers(qg.Circuit(2).ry(0).ry(1))
+    >>> first.columns, first.n_settings
+    ((0, 1), 1)
     """
 
     columns: tuple

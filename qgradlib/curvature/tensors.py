@@ -42,6 +42,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..circuits import display
 from ..evaluation.brief import brief
 from ..evaluation.expectation import _check_qubits, _observables, _spec
 from ..rules.higher_plans import build_plan, tensor
@@ -64,6 +65,14 @@ class HessianResult:
         Distinct circuits times measurement settings, as counted by a `qgradlib.Ledger`.
     shots : int
         Total shots (0 for exact simulation).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> r = qg.curvature.hessian(qg.Circuit(1).ry(0), qg.Observable({"Z": 1.0}), np.array([0.0]))
+    >>> round(r.value, 12), r.hessian.round(12).tolist(), r.executions     # -cos(0) = -1
+    (1.0, [[-1.0]], 3)
     """
 
     value: object
@@ -74,18 +83,36 @@ class HessianResult:
 
     def __repr__(self):
         H = np.asarray(self.hessian)
-        sym = 0.5 * (H + np.swapaxes(H, -1, -2))
-        ev = np.linalg.eigvalsh(sym) if H.size else np.zeros(0)
+        ev = _eigenvalues(H)
         spectrum = f"eigenvalues in [{ev.min():.4g}, {ev.max():.4g}]" if ev.size else "empty"
         return (f"HessianResult(value={brief(self.value)}, gradient={brief(self.gradient)}, "
                 f"hessian: shape {H.shape}, {spectrum}, executions={self.executions}, "
                 f"shots={self.shots})")
 
 
+    def _repr_html_(self):
+        """Shape, eigenvalue range and cost of the Hessian, for notebooks."""
+        rows = [["value", _brief_html(self.value)], ["gradient norm", _norm_text(self.gradient)],
+                ["Hessian shape", str(np.shape(self.hessian))],
+                ["Hessian eigenvalues", _eigen_range(self.hessian)],
+                ["executions", self.executions], ["shots", self.shots]]
+        return display.summary_html("Hessian", rows, note=_note(self.shots))
+
+
 @dataclass(frozen=True, eq=False)
 class DerivativeTensors:
     """All derivative tensors up to ``order``: ``tensors[k]`` has shape (m,)*k (after a
-    leading (K,) axis for a list of observables); ``tensors[0]`` is the value."""
+    leading (K,) axis for a list of observables); ``tensors[0]`` is the value.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> d = qg.curvature.derivatives(qg.Circuit(2).ry(0).ry(1), qg.Observable({"ZZ": 1.0}),
+    ...                              np.zeros(2), order=3)
+    >>> d.order, [np.shape(t) for t in d.tensors]
+    (3, [(), (2,), (2, 2), (2, 2, 2)])
+    """
 
     tensors: tuple
     order: int
@@ -105,6 +132,46 @@ class DerivativeTensors:
     def tensor(self):
         """The tensor of the highest order."""
         return self.tensors[self.order]
+
+    def _repr_html_(self):
+        """The order, the shape of each tensor and the cost, for notebooks."""
+        rows = [["value", _brief_html(self.value)]]
+        rows += [[f"order {k}", f"shape {np.shape(t)}"] for k, t in enumerate(self.tensors) if k]
+        rows += [["executions", self.executions], ["shots", self.shots]]
+        return display.summary_html(f"Derivative tensors up to order {self.order}", rows,
+                                    note=_note(self.shots))
+
+
+def _brief_html(v):
+    v = np.asarray(v, dtype=float)
+    return float(v) if v.ndim == 0 else f"shape {v.shape}, in [{v.min():.6g}, {v.max():.6g}]"
+
+
+def _norm_text(g):
+    g = np.asarray(g, dtype=float)
+    norms = np.linalg.norm(g, axis=-1)
+    return f"{float(norms):.6g}" if norms.ndim == 0 else ", ".join(f"{x:.6g}" for x in norms)
+
+
+def _eigenvalues(H):
+    """Eigenvalues of the symmetrised Hessian, (m,) or (K, m) for a stack; empty for m = 0."""
+    H = np.asarray(H, dtype=float)
+    return np.linalg.eigvalsh(0.5 * (H + np.swapaxes(H, -1, -2))) if H.size else np.zeros(0)
+
+
+def _eigen_range(H):
+    """The eigenvalue range of the symmetrised Hessian (per observable for a stack)."""
+    ev = _eigenvalues(H)
+    if not ev.size:
+        return "empty"
+    ev = ev.reshape(-1, ev.shape[-1])
+    return "; ".join(f"[{e.min():.6g}, {e.max():.6g}]" for e in ev)
+
+
+def _note(shots):
+    return ("exact simulation" if not shots else "finite-shot estimates") + \
+        ": simulated numbers, not device measurements"
+
 
 def _check_order(order):
     if isinstance(order, bool) or not isinstance(order, (int, np.integer)) or order < 1:

@@ -97,12 +97,31 @@ def pauli_terms_expectation(psi: np.ndarray, n: int, terms: dict) -> np.ndarray:
 
 
 def pauli_expectation(psi: np.ndarray, n: int, word: str) -> np.ndarray:
-    """<psi|P|psi> of one Pauli word for every row; returns (B,)."""
+    """<psi|P|psi> of one Pauli word for every row; returns (B,).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from qgradlib.engine import pauli_expectation
+    >>> plus = np.full((1, 2), 2 ** -0.5, dtype=complex)
+    >>> np.round(pauli_expectation(plus, 1, "X"), 12).tolist(), np.round(pauli_expectation(plus, 1, "Z"), 12).tolist()
+    ([1.0], [0.0])
+    """
     return pauli_terms_expectation(psi, n, {word: 1.0})
 
 
 def expectations(psi: np.ndarray, n: int, observables) -> np.ndarray:
-    """Expectation of each observable for every row; returns (B, K) float."""
+    """Expectation of each observable for every row; returns (B, K) float.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.engine import expectations
+    >>> psi = np.array([[1.0, 0.0, 0.0, 0.0]], dtype=complex)          # |00>
+    >>> expectations(psi, 2, [qg.Observable({"ZI": 1.0}), qg.Observable({"XX": 1.0})]).tolist()
+    [[1.0, 0.0]]
+    """
     out = np.empty((psi.shape[0], len(observables)))
     for k, obs in enumerate(observables):
         v = pauli_terms_expectation(psi, n, obs.terms) if obs.terms else 0.0
@@ -113,7 +132,16 @@ def expectations(psi: np.ndarray, n: int, observables) -> np.ndarray:
 
 
 def probabilities(psi: np.ndarray, n: int, qubits=None) -> np.ndarray:
-    """Marginal probabilities over ``qubits`` (first listed = most significant); (B, 2**k)."""
+    """Marginal probabilities over ``qubits`` (first listed = most significant); (B, 2**k).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from qgradlib.engine import probabilities
+    >>> psi = np.array([[0.0, 0.6, 0.0, 0.8]], dtype=complex)          # qubit 1 is |1>
+    >>> np.round(probabilities(psi, 2, [0]), 4).tolist(), np.round(probabilities(psi, 2, [1]), 4).tolist()
+    ([[0.36, 0.64]], [[0.0, 1.0]])
+    """
     B = psi.shape[0]
     p = np.abs(psi) ** 2
     if qubits is None:

@@ -65,6 +65,14 @@ def measurement_settings(observable: Observable) -> list:
 
     The identity term needs no setting. A dense part, if any, is not included here: it is
     measured in its own eigenbasis (one more setting).
+
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> from qgradlib.shots import measurement_settings
+    >>> H = qg.Observable({"ZZ": 1.0, "ZI": 0.5, "XX": 0.2, "II": 3.0})
+    >>> len(measurement_settings(H))          # all-Z for ZZ and ZI, all-X for XX
+    2
     """
     groups = []  # [basis list, terms]
     items = sorted(observable.terms.items(), key=lambda kv: -abs(kv[1]))
@@ -84,7 +92,14 @@ def measurement_settings(observable: Observable) -> list:
 
 
 def n_settings(observable: Observable) -> int:
-    """Measurement settings a device needs for one estimate of ``observable``."""
+    """Measurement settings a device needs for one estimate of ``observable``.
+
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> qg.shots.n_settings(qg.Observable({"ZZ": 1.0, "XI": 0.5, "IY": 0.1}))
+    2
+    """
     return max(1, len(measurement_settings(observable)) + (observable.dense is not None))
 
 
@@ -143,6 +158,12 @@ def plan_measurements(observables) -> MeasurementPlan:
 def allocate(weights, shots: int, allocation: str = "uniform") -> np.ndarray:
     """Shots per setting: ``shots`` each (uniform), or ``shots * len(weights)`` in total
     split by ``weights`` after a floor of 2 each (weighted; largest remainders get the spare).
+
+    Examples
+    --------
+    >>> from qgradlib.shots import allocate
+    >>> allocate([3.0, 1.0], 10).tolist(), allocate([3.0, 1.0], 10, "weighted").tolist()
+    ([10, 10], [14, 6])
     """
     w = np.asarray(weights, dtype=float)
     S = w.size

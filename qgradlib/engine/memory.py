@@ -7,11 +7,28 @@ __all__ = ["available_bytes", "guard", "StateTooLarge"]
 
 
 class StateTooLarge(ValueError):
-    """Raised when a state (or batch of states) would not fit in memory."""
+    """Raised when a state (or batch of states) would not fit in memory.
+
+    Examples
+    --------
+    >>> from qgradlib.engine import StateTooLarge, guard
+    >>> try:
+    ...     guard(1 << 70, "a 66-qubit state")
+    ... except StateTooLarge as err:
+    ...     print(str(err).split(" needs ")[0])
+    a 66-qubit state
+    """
 
 
 def available_bytes() -> int:
-    """Memory available to this process now (MemAvailable, else physical pages)."""
+    """Memory available to this process now (MemAvailable, else physical pages).
+
+    Examples
+    --------
+    >>> from qgradlib.engine import available_bytes
+    >>> available_bytes() > 16 * 2 ** 10      # at least a 10-qubit state fits
+    True
+    """
     try:
         with open("/proc/meminfo") as fh:
             for line in fh:
@@ -26,7 +43,14 @@ def available_bytes() -> int:
 
 
 def guard(nbytes: int, what: str) -> None:
-    """Raise `StateTooLarge` if ``nbytes`` exceed what is available."""
+    """Raise `StateTooLarge` if ``nbytes`` exceed what is available.
+
+    Examples
+    --------
+    >>> from qgradlib.engine import guard
+    >>> guard(16 * 2 ** 10, "a 10-qubit state") is None    # fits: returns quietly
+    True
+    """
     avail = available_bytes()
     if nbytes > avail:
         raise StateTooLarge(f"{what} needs {nbytes:,} bytes ({nbytes / 2**30:.2f} GiB) but only "

@@ -28,7 +28,7 @@ __all__ = ["zero_states", "apply_matrix", "apply_diagonal", "apply_gate", "run"]
 
 
 def zero_states(n_qubits: int, batch: int = 1) -> np.ndarray:
-    """``batch`` copies of |0...0>, shape (batch, 2**n).
+    """``batch`` copies of ``|0...0>``, shape (batch, 2**n).
 
     Examples
     --------
@@ -67,7 +67,16 @@ def apply_matrix(psi: np.ndarray, n: int, mat: np.ndarray, qubits, out=None) -> 
 
 
 def apply_diagonal(psi: np.ndarray, n: int, diag: np.ndarray, qubits) -> np.ndarray:
-    """Multiply by a (d,) or per-row (B, d) diagonal on ``qubits``, in place; returns psi."""
+    """Multiply by a (d,) or per-row (B, d) diagonal on ``qubits``, in place; returns psi.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from qgradlib.engine import apply_diagonal
+    >>> psi = np.full((1, 4), 0.5, dtype=complex)
+    >>> apply_diagonal(psi, 2, np.array([1.0, -1.0]), (1,)).real.tolist()   # Z on qubit 1
+    [[0.5, -0.5, 0.5, -0.5]]
+    """
     if psi.flags.c_contiguous and psi.dtype == complex:
         return kernels.apply_diag(psi, n, np.asarray(diag), tuple(qubits))
     # strided or non-complex input: work on a C-ordered complex copy and write it back
@@ -83,6 +92,16 @@ def apply_gate(psi, n, gate, qubits, angles=None, out=None):
     """Apply ``gate`` (angles: None, or per-row array of shape (B,) or (1,)).
 
     Diagonal gates act in place (``psi`` is returned); others return a new array or ``out``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from qgradlib import gates
+    >>> from qgradlib.engine import apply_gate, zero_states
+    >>> psi = apply_gate(zero_states(2, 1), 2, gates.H, (0,))
+    >>> psi = apply_gate(psi, 2, gates.CNOT, (0, 1))
+    >>> np.round(psi.real, 4).tolist()              # a Bell pair
+    [[0.7071, 0.0, 0.0, 0.7071]]
     """
     if not gate.parametric:
         if gate.diagonal:
@@ -165,7 +184,7 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
         One entry a row: {column: ((r, t), ...)} split points of Hamiltonian gates, used by
         the stochastic shift rule. Those columns are never fused.
     psi : ndarray, shape (B, 2**n), optional
-        Initial states (default |0...0>); not modified.
+        Initial states (default ``|0...0>``); not modified.
     fuse : bool, optional
         Gate fusion on (default) or off.
     keep : set of int

@@ -37,7 +37,18 @@ def _derivative_matrix(gate, a):
 
 @limited
 def state_derivatives(circuit, phi, columns):
-    """psi (d,) and d psi / d phi_c (len(columns), d) in one pass over the circuit."""
+    """psi (d,) and d psi / d phi_c (len(columns), d) in one pass over the circuit.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.engine import state_derivatives
+    >>> c = qg.Circuit(1).ry(0)
+    >>> psi, dpsi = state_derivatives(c, np.array([0.0]), [0])
+    >>> np.round(psi.real, 6).tolist(), np.round(dpsi.real, 6).tolist()   # d/da (cos a/2, sin a/2)
+    ([1.0, 0.0], [[0.0, 0.5]])
+    """
     n = circuit.n_qubits
     guard(16 * (len(columns) + 1) * 2 ** n,
                  f"{len(columns) + 1} states of {n} qubits for the state derivatives")
@@ -69,6 +80,16 @@ def layer_covariances(circuit, phi, columns, lays, diagonal=False):
     ``lays`` are the circuit's layers (objects with ``columns`` and ``effective``, see
     `qgradlib.curvature.metric.layers`); returns the (len(columns), len(columns)) layerwise
     metric in gate-angle space, only the diagonal with ``diagonal=True``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.curvature import layers
+    >>> from qgradlib.engine import layer_covariances
+    >>> c = qg.Circuit(2).ry(0).ry(1)
+    >>> layer_covariances(c, np.zeros(2), [0, 1], layers(c)).tolist()    # Var(Y/2) in |0> = 1/4
+    [[0.25, 0.0], [0.0, 0.25]]
     """
     n = circuit.n_qubits
     pos = {c: i for i, c in enumerate(columns)}
@@ -97,7 +118,20 @@ def layer_covariances(circuit, phi, columns, lays, diagonal=False):
 
 def effective_generator(gate, a):
     """``K = i (dU/da) U^dagger`` of a Hamiltonian or function gate at angle ``a``: the
-    Hermitian operator whose variance in the state after the gate is the gate's metric entry."""
+    Hermitian operator whose variance in the state after the gate is the gate's metric entry.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from qgradlib import gates
+    >>> from qgradlib.engine import effective_generator
+    >>> import warnings
+    >>> with warnings.catch_warnings():
+    ...     warnings.simplefilter("ignore")      # RY taken as a matrix function here
+    ...     K = effective_generator(gates.RY, 0.3)   # for a generator gate, K is G = Y/2
+    >>> bool(np.allclose(K, gates.RY.generator))
+    True
+    """
     U = gate._matrices(np.array([a]))[0]
     K = 1j * _derivative_matrix(gate, a) @ U.conj().T
     return 0.5 * (K + K.conj().T)     # Hermitian exactly (a function gate's dU is a difference)
@@ -105,7 +139,18 @@ def effective_generator(gate, a):
 
 def states_before(circuit, phi, columns):
     """The state just before each parametric column in ``columns``: (len(columns), 2**n), one
-    walk over the circuit."""
+    walk over the circuit.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.engine import states_before
+    >>> c = qg.Circuit(1).ry(0).ry(0)
+    >>> before = states_before(c, np.array([np.pi, 0.0]), [0, 1])
+    >>> np.round(before.real, 12).tolist()               # |0>, then RY(pi)|0> = |1>
+    [[1.0, 0.0], [0.0, 1.0]]
+    """
     n = circuit.n_qubits
     want = {c: i for i, c in enumerate(columns)}
     guard(16 * (len(columns) + 1) * 2 ** n, f"{len(columns) + 1} states of {n} qubits")

@@ -71,6 +71,14 @@ class ChunkError(RuntimeError):
         exact metric tensor: the gate-angle columns of the chunk).
     angles : ndarray (n, G)
         The gate angles of those points.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from qgradlib import ChunkError
+    >>> err = ChunkError("chunk 2 failed", indices=[4, 5], angles=np.zeros((2, 3)))
+    >>> err.indices, err.angles.shape
+    ((4, 5), (2, 3))
     """
 
     def __init__(self, message, indices=(), angles=None):
@@ -95,7 +103,18 @@ def _dask_client(executor):
 
 
 def check_executor(executor, chunk):
-    """Validate ``executor=`` and ``chunk=``; returns them (chunk as int or None)."""
+    """Validate ``executor=`` and ``chunk=``; returns them (chunk as int or None).
+
+    Examples
+    --------
+    >>> from qgradlib import distribute
+    >>> distribute.check_executor(None, None)
+    (None, None)
+    >>> distribute.check_executor(None, 0)
+    Traceback (most recent call last):
+        ...
+    ValueError: chunk must be a positive int ...
+    """
     if executor is not None and not isinstance(executor, Executor) and _dask_client(executor) is None:
         raise TypeError("executor must be a concurrent.futures.Executor (ProcessPoolExecutor, "
                         "ThreadPoolExecutor, a dask Client's get_executor()) or a "
@@ -110,7 +129,16 @@ def check_executor(executor, chunk):
 
 
 def workers(executor) -> int:
-    """Workers (threads, for dask) that ``executor`` runs tasks on."""
+    """Workers (threads, for dask) that ``executor`` runs tasks on.
+
+    Examples
+    --------
+    >>> from concurrent.futures import ThreadPoolExecutor
+    >>> from qgradlib import distribute
+    >>> with ThreadPoolExecutor(3) as pool:
+    ...     distribute.workers(pool)
+    3
+    """
     client = _dask_client(executor)
     if client is not None:
         return max(1, sum(client.nthreads().values()))
@@ -131,7 +159,17 @@ def _submit(executor, fn, *args):
 
 def payload(executor, obj, what="the circuit and observables"):
     """What the tasks get: ``obj`` itself for threads (they share this process), else ``obj``
-    pickled once for all chunks with the standard module, or a TypeError that says why not."""
+    pickled once for all chunks with the standard module, or a TypeError that says why not.
+
+    Examples
+    --------
+    >>> from concurrent.futures import ThreadPoolExecutor
+    >>> from qgradlib import distribute
+    >>> data = {"circuit": "anything"}
+    >>> with ThreadPoolExecutor(1) as pool:
+    ...     distribute.payload(pool, data) is data       # threads share this process
+    True
+    """
     if isinstance(executor, ThreadPoolExecutor):
         return obj
     try:
@@ -147,7 +185,16 @@ def unpack(obj):
 
 
 def chunk_size(executor, count, chunk=None) -> int:
-    """``chunk`` if given, else about `CHUNKS_PER_WORKER` chunks per worker (at least 1 each)."""
+    """``chunk`` if given, else about `CHUNKS_PER_WORKER` chunks per worker (at least 1 each).
+
+    Examples
+    --------
+    >>> from concurrent.futures import ThreadPoolExecutor
+    >>> from qgradlib import distribute
+    >>> with ThreadPoolExecutor(2) as pool:
+    ...     distribute.chunk_size(pool, 80), distribute.chunk_size(pool, 80, chunk=25)
+    (10, 25)
+    """
     return chunk or max(1, math.ceil(count / (CHUNKS_PER_WORKER * workers(executor))))
 
 
@@ -193,6 +240,15 @@ def run_chunks(executor, task, payload, jobs):
     """``task(payload, *args)`` for every job ``(args, indices, angles)``; results in job order.
 
     A failure raises `ChunkError` for the first failing chunk in order and cancels the rest.
+
+    Examples
+    --------
+    >>> from concurrent.futures import ThreadPoolExecutor
+    >>> from qgradlib import distribute
+    >>> jobs = [((k,), [k], None) for k in range(3)]
+    >>> with ThreadPoolExecutor(2) as pool:
+    ...     distribute.run_chunks(pool, lambda base, k: base + k, 10, jobs)
+    [10, 11, 12]
     """
     # tasks in this process (threads) take the BLAS setting of this thread: OpenBLAS ignores
     # a change asked for in a thread that did not start it
@@ -231,6 +287,16 @@ def measure_rows(phi, spec, inserts=None, *, errors=False, index=None):
 
     Runs here when ``spec.executor`` is None, else in chunks on it. ``index`` gives the rows'
     positions in the caller's batch, for error messages.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.evaluation.expectation import _spec
+    >>> c = qg.Circuit(1).ry(0)
+    >>> spec = _spec(c, "expect", observables=[qg.Observable({"Z": 1.0})])
+    >>> np.round(qg.distribute.measure_rows(np.array([[0.0], [np.pi]]), spec), 12).tolist()
+    [[1.0], [-1.0]]
     """
     phi = np.asarray(phi, dtype=float)
     base = None if spec.shots is None else int(spec.rng.integers(2 ** 63))

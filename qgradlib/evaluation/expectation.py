@@ -92,7 +92,23 @@ class Spec:
 # -- the primitive and its derivative rules ---------------------------------------------------
 @primitive
 def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
-    """Measured values (P, K) at gate angles ``phi`` (P, G); identical rows run once."""
+    """Measured values (P, K) at gate angles ``phi`` (P, G); identical rows run once.
+
+    The autograd primitive behind `expect` and every derivative: ``spec`` says what to
+    measure and how to differentiate (built by `expect` from its keywords).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.evaluation.expectation import _spec
+    >>> c = qg.Circuit(1).ry(0)
+    >>> spec = _spec(c, "expect", observables=[qg.Observable({"Z": 1.0})])
+    >>> with qg.Ledger() as book:
+    ...     vals = qg.evaluation.evaluate(np.array([[0.0], [np.pi], [0.0]]), spec)
+    >>> np.round(vals, 12).tolist(), book.circuits       # the repeated row ran once
+    ([[1.0], [-1.0], [1.0]], 2)
+    """
     phi = np.asarray(phi, dtype=float)
     P = phi.shape[0]
     if P == 0:              # an empty batch: an empty result, nothing run or counted
@@ -166,7 +182,18 @@ def _jacobian(points, new_inserts, coeff, names, spec, P):
 
 
 class NestedPlanWarning(UserWarning):
-    """A nested autograd derivative through Hamiltonian gates needs a very large plan."""
+    """A nested autograd derivative through Hamiltonian gates needs a very large plan.
+
+    Examples
+    --------
+    >>> import warnings
+    >>> import qgradlib as qg
+    >>> with warnings.catch_warnings(record=True) as caught:
+    ...     warnings.simplefilter("always")
+    ...     warnings.warn("a plan of 20000 circuits", qg.NestedPlanWarning)
+    >>> issubclass(caught[0].category, UserWarning)
+    True
+    """
 
 
 # circuits in one nested plan above which NestedPlanWarning is raised
@@ -524,7 +551,7 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
     chunk : int, optional
         Circuits per task on ``executor`` (default: about 4 tasks per worker).
     initial : str or array_like, optional
-        The state the circuit starts from instead of |0...0>: a bitstring such as ``"0110"``
+        The state the circuit starts from instead of ``|0...0>``: a bitstring such as ``"0110"``
         (qubit 0 leftmost) or a normalised state vector of shape (2**n,) (see
         `qgradlib.circuits.preparation`). Derivatives start from it too.
 

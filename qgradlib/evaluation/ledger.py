@@ -23,6 +23,8 @@ import contextvars
 import threading
 from collections import Counter
 
+from ..circuits import display
+
 __all__ = ["Ledger", "record"]
 
 _ACTIVE: contextvars.ContextVar = contextvars.ContextVar("qgradlib_active_ledgers", default=())
@@ -42,6 +44,16 @@ class Ledger:
     by_purpose : Counter
         Executions broken down by why they ran: ``"value"``, or the name of the gate whose
         angle was shifted (for example ``"RY"``, ``"CRX"``).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(1).ry(0)
+    >>> with qg.Ledger() as book:
+    ...     _ = qg.expect(c, qg.Observable({"Z": 1.0, "X": 1.0}), np.array([0.1]), shots=100, seed=0)
+    >>> book.executions, book.shots          # one circuit in two measurement settings
+    (2, 200)
     """
 
     def __init__(self):
@@ -79,6 +91,18 @@ class Ledger:
         if not self.shots:
             lines.append("  (exact simulation: no shots were taken; a device would need them)")
         return "\n".join(lines)
+
+    def _repr_html_(self):
+        """The summary as tables, for notebooks."""
+        totals = display.table(None, [["executions", self.executions],
+                                      ["distinct circuits", self.circuits], ["shots", self.shots]])
+        purposes = sorted(self.by_purpose.items(), key=lambda kv: (-kv[1], kv[0]))
+        parts = [totals]
+        if purposes:
+            parts.append(display.table(["purpose", "executions"], purposes))
+        note = None if self.shots else \
+            "exact simulation: no shots were taken; a device would need them"
+        return display.display("Ledger: device work", *parts, note=note)
 
     def __repr__(self):
         return f"Ledger(executions={self.executions}, circuits={self.circuits}, shots={self.shots})"

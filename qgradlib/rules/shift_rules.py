@@ -162,7 +162,17 @@ def _general_shifts(w: tuple):
 
 
 def frequencies_of(eigenvalues) -> np.ndarray:
-    """Distinct positive differences of ``eigenvalues`` (merged within 1e-8)."""
+    """Distinct positive differences of ``eigenvalues`` (merged within 1e-8).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from qgradlib.rules import frequencies_of
+    >>> frequencies_of(np.array([-0.5, 0.5])).tolist()          # RY's generator Y/2
+    [1.0]
+    >>> frequencies_of(np.array([0.0, 0.0, -0.5, 0.5])).tolist()   # CRX's: 0.5 and 1
+    [0.5, 1.0]
+    """
     ev = np.asarray(eigenvalues, dtype=float).reshape(-1)
     diffs = np.abs(ev[:, None] - ev[None, :]).reshape(-1)
     diffs = np.sort(diffs[diffs > _FREQ_TOL])
@@ -178,6 +188,12 @@ def rule_for_frequencies(freqs, shift=None) -> ShiftRule:
 
     One frequency: the two-term rule (with ``shift`` if given). Frequencies
     ``w, 2w, ..., Rw``: the 2R-term equidistant rule. Anything else: `ShiftRule.general`.
+
+    Examples
+    --------
+    >>> from qgradlib.rules import rule_for_frequencies
+    >>> rule_for_frequencies([1.0]).n_terms, rule_for_frequencies([1.0, 2.0]).n_terms
+    (2, 4)
     """
     w = np.asarray(freqs, dtype=float)
     if w.size == 0:

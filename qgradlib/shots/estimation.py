@@ -36,6 +36,7 @@ from dataclasses import dataclass
 import numpy as np
 from autograd.tracer import getval
 
+from ..circuits import display
 from ..evaluation import distribute, ledger
 from ..evaluation.brief import describe
 from ..circuits.circuit import check_inputs, check_theta
@@ -62,6 +63,14 @@ class Estimate:
         Total shots taken.
     settings : int
         Measurement settings per circuit.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> r = qg.estimate(qg.Circuit(1).h(0), qg.Observable({"X": 1.0}), np.zeros(0), shots=50, seed=0)
+    >>> float(r.value), float(r.standard_error), r.shots    # |+> gives X = +1 on every shot
+    (1.0, 0.0, 50)
     """
 
     value: object
@@ -73,6 +82,13 @@ class Estimate:
     def __repr__(self):
         return describe("Estimate", value=self.value, standard_error=self.standard_error,
                         executions=self.executions, shots=self.shots, settings=self.settings)
+
+
+    def _repr_html_(self):
+        """Values with their standard errors as a table, and the price, for notebooks."""
+        return _estimate_html("Estimate", "value", self.value, self.standard_error, [
+            ["executions", self.executions], ["shots", self.shots],
+            ["settings per circuit", self.settings]])
 
 
 @dataclass(frozen=True)
@@ -91,6 +107,15 @@ class GradientEstimate:
         Total shots taken.
     circuits : int
         Distinct shifted circuits run.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> g = qg.estimate_gradient(qg.Circuit(1).ry(0), qg.Observable({"Z": 1.0}), np.array([0.0]),
+    ...                          shots=200, seed=1)
+    >>> g.gradient.shape, g.circuits, g.shots              # two shifted circuits
+    ((1,), 2, 400)
     """
 
     gradient: np.ndarray
@@ -103,6 +128,23 @@ class GradientEstimate:
         return describe("GradientEstimate", gradient=self.gradient,
                         standard_error=self.standard_error, executions=self.executions,
                         shots=self.shots, circuits=self.circuits)
+
+    def _repr_html_(self):
+        """Components with their standard errors as a table, and the price, for notebooks."""
+        return _estimate_html("Gradient estimate", "d/dtheta", self.gradient, self.standard_error, [
+            ["executions", self.executions], ["shots", self.shots],
+            ["distinct circuits", self.circuits]])
+
+
+def _estimate_html(title, what, value, error, price, limit=20):
+    value, error = np.asarray(value, dtype=float), np.asarray(error, dtype=float)
+    index = list(np.ndindex(value.shape))
+    rows = [["" if not i else str(list(i)), value[i], error[i]] for i in index[:limit]]
+    note = (f"the first {limit} of {len(index)} entries; " if len(index) > limit else "") + \
+        "simulated shot noise, not device measurements"
+    return display.display(f"{title} from {price[1][1]} shots",
+                           display.table(["entry", what, "standard error"], rows),
+                           display.table(None, price), note=note)
 
 
 @dataclass(frozen=True)
@@ -122,6 +164,14 @@ class TensorEstimate:
         Total shots taken.
     circuits : int
         Distinct circuits run.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from qgradlib import TensorEstimate
+    >>> t = TensorEstimate(np.eye(2) / 4, np.full((2, 2), 0.01), executions=6, shots=600, circuits=3)
+    >>> t.value.shape, float(t.standard_error[0, 1]), t.shots
+    ((2, 2), 0.01, 600)
     """
 
     value: np.ndarray

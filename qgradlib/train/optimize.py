@@ -16,6 +16,8 @@ sinusoidal shape of the cost in each parameter.
 - ``"rotosolve"`` (needs the circuit): the exact minimum in one parameter at a time from three
   evaluations (Ostaszewski, Grant and Benedetti, Quantum 5, 391 (2021)).
 
+``METHODS`` lists these names in this order.
+
 Every run is wrapped in a `qgradlib.Ledger`: the result carries the executions and shots a
 device would have needed, besides ``x, fun, jac, nit, success, status, message`` and a
 ``history`` of the cost, the gradient norm and the cumulative executions, one entry per
@@ -47,6 +49,7 @@ from autograd.tracer import getval
 from scipy.optimize import OptimizeResult
 
 from . import rotosolve as _roto
+from ..circuits import display
 from ..circuits.circuit import Circuit, check_theta
 from ..evaluation.expectation import METHODS as _GRADIENTS
 from ..evaluation.brief import brief
@@ -106,6 +109,21 @@ class TrainingResult(OptimizeResult):
 
     def _repr_pretty_(self, printer, cycle):
         printer.text(repr(self))
+
+    def _repr_html_(self):
+        """Final value, steps, cost in executions and shots, and a sparkline of the cost."""
+        rows = [[k, self[k]] for k in ("method", "fun", "fun_error", "fun_exact", "nit",
+                                       "executions", "circuits", "shots") if k in self]
+        if "x" in self:
+            rows.insert(1, ["x", brief(self["x"])])
+        if "message" in self:
+            rows.append(["stopped", self["message"]])
+        parts = [display.table(None, rows, digits=8)]
+        cost = self.get("history", {}).get("cost")
+        if cost is not None and len(cost) > 1:
+            parts.append(display.sparkline(cost, label="cost per step"))
+        note = "fun_exact is the exact value at x, simulator only" if "fun_exact" in self else None
+        return display.display("Training result", *parts, note=note)
 
 
 # -- public functions ---------------------------------------------------------------------------

@@ -43,6 +43,15 @@ class Comparison:
         The exact lowest eigenvalue of the observable (None when not computed).
     start_energy : float
         The cost at ``theta0``.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> cmp = qg.workflows.compare_training(qg.Circuit(1).ry(0), qg.Observable({"Z": 1.0}),
+    ...                                     np.array([0.5]), methods=("rotosolve",), steps=1)
+    >>> round(cmp.energies["rotosolve"], 9), cmp.ground_energy
+    (-1.0, -1.0)
     """
 
     results: dict
@@ -122,6 +131,16 @@ def compare_training(circuit, observable, theta0, methods=("adam", "rotosolve"),
     Returns
     -------
     Comparison
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> cmp = qg.workflows.compare_training(qg.Circuit(1).ry(0), qg.Observable({"Z": 1.0}),
+    ...                                     np.array([0.5]), methods=("gd", "rotosolve"),
+    ...                                     steps={"gd": 5, "rotosolve": 1})
+    >>> sorted(cmp.results), cmp.results["gd"].nit
+    (['gd', 'rotosolve'], 5)
     """
     names = tuple(methods) if not isinstance(methods, str) else (methods,)
     if not names:
