@@ -102,3 +102,16 @@ def test_global_random_state_is_left_alone():
     before = np.random.get_state()[1].copy()
     qg.check.gradients(c, obs, theta, seed=0)
     np.testing.assert_array_equal(np.random.get_state()[1], before)
+
+
+def test_a_circuit_without_parameters_gets_an_empty_report():
+    # before: np.max of an empty deviation raised NumPy's "zero-size array to reduction"
+    c = qg.Circuit(2).h(0).cnot(0, 1)
+    for obs, shape in ((qg.Observable({"ZZ": 1.0}), (0,)),
+                       ([qg.Observable({"ZZ": 1.0}), qg.Observable({"XX": 1.0})], (2, 0))):
+        r = qg.check.gradients(c, obs, np.zeros(0), seed=0)
+        assert all(m.gradient.shape == shape for m in r.methods)
+        assert r.max_deviation == 0.0 and r.ok()
+        # only the value runs: one circuit per observable's setting (common practice)
+        assert r["shift"].executions == r["difference"].executions == len(np.atleast_1d(obs))
+        assert "no parameters" in str(r)
