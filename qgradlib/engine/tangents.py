@@ -19,10 +19,10 @@ import numpy as np
 
 from ..rules.shift_rules import warn_approximate
 from .adjoint import hamiltonian_derivative
-from .memory import guard
+from .memory import guard_states
 from .statevector import apply_gate, apply_matrix, zero_states
 
-__all__ = ["state_derivatives", "layer_covariances"]
+__all__ = ["state_derivatives", "derivative_states", "layer_covariances"]
 
 
 def _derivative_matrix(gate, a):
@@ -34,11 +34,17 @@ def _derivative_matrix(gate, a):
     return (gate._matrices(np.array([a + h]))[0] - gate._matrices(np.array([a - h]))[0]) / (2 * h)
 
 
+def derivative_states(columns: int) -> int:
+    """States alive at the peak of `state_derivatives` for ``columns`` derivatives: the
+    ``columns + 1`` rows, the new rows `apply_gate` returns, and one derivative in the making.
+    The memory guard's estimate: change it with `state_derivatives`."""
+    return 2 * (columns + 1) + 1
+
+
 def state_derivatives(circuit, phi, columns):
     """psi (d,) and d psi / d phi_c (len(columns), d) in one pass over the circuit."""
     n = circuit.n_qubits
-    guard(16 * (len(columns) + 1) * 2 ** n,
-                 f"{len(columns) + 1} states of {n} qubits for the state derivatives")
+    guard_states(n, derivative_states(len(columns)), f"the state and {len(columns)} state derivatives")
     row = {c: i + 1 for i, c in enumerate(columns)}
     psi = zero_states(n, len(columns) + 1)
     col = -1

@@ -36,11 +36,11 @@ from . import distribute, ledger
 from ..circuits.circuit import Circuit, check_theta
 from ..engine import memory
 from .adjoint_nested import adjoint_jacobian, adjoint_vjp, check_nested, keep_states
-from ..engine.density import run_density
-from ..engine.statevector import run
+from ..engine.density import density_states, run_density
+from ..engine.statevector import run, run_states
 from ..engine.measurement import (ALLOCATIONS, apply_readout, check_readout, make_rng,
                                   outcome_distribution, plan_measurements)
-from .rows import measure_rows_here
+from .rows import guard_rows, measure_rows_here
 from ..circuits.observables import Observable
 from ..rules.plans import first_order_points
 
@@ -314,20 +314,19 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
     columns = tuple(k for k, op in enumerate(pops) if op.param is not None and op.scale != 0.0)
     plan = plan_measurements(observables) if kind == "expect" else None
     settings = plan.n_settings if plan is not None else 1
-    # a guard at the call that asks for the state, not deep inside the engine
-    _guard(circuit)
-    return Spec(circuit, kind, observables, qubits, shots,
+    spec = Spec(circuit, kind, observables, qubits, shots,
                 make_rng(seed) if shots is not None else None, gradient, shift, step, stencil,
                 int(splits), memory_budget, columns, max(1, settings), allocation, readout, plan,
                 _check_fuse(fuse), executor=executor, chunk=chunk)
+    # a guard at the call that asks for the work, not deep inside the engine: one circuit
+    # must fit (batches are then cut into chunks that fit)
+    guard_rows(spec, 1, "evaluating")
+    return spec
 
 
 def _guard(circuit):
-    n = circuit.n_qubits
-    if circuit.has_noise:
-        memory.guard(16 * 4 ** n, f"a density matrix of {n} qubits (a circuit with noise)")
-    else:
-        memory.guard(16 * 2 ** n, f"a state of {n} qubits")
+    """Refuse a final state (`state`) that cannot be computed here."""
+    memory.guard_states(circuit.n_qubits, run_states(), "the final state")
 
 
 def _run(spec, theta):
@@ -485,7 +484,7 @@ def density_matrix(circuit, theta) -> np.ndarray:
     _check_circuit(circuit)
     theta = np.asarray(getval(check_theta(circuit, theta)), dtype=float)
     n = circuit.n_qubits
-    memory.guard(16 * 4 ** n, f"a density matrix of {n} qubits")
+    memory.guard_states(n, density_states(), "the final density matrix", density=True)
     rho = run_density(circuit, np.atleast_2d(circuit.angles(theta))).reshape(-1, 2 ** n, 2 ** n)
     return rho if theta.ndim == 2 else rho[0]
 
@@ -516,8 +515,9 @@ def sample(circuit, theta, shots, seed=None, *, readout=None) -> np.ndarray:
     else:
         states = np.atleast_2d(state(circuit, theta))
     p = apply_readout(outcome_distribution(states, n, density=circuit.has_noise), n, flips)
-    # the draw holds one float and one int per shot: refuse what cannot fit
-    memory.guard(16 * shots * p.shape[0], f"{shots:,} shots of {p.shape[0]} circuit(s)")
+    # a row's draw holds a float and an int a shot, the drawn rows and their stack an int a
+    # shot each: refuse what cannot fit
+    memory.guard(16 * shots * (p.shape[0] + 1), f"{shots:,} shots of {p.shape[0]} circuit(s)")
     ledger.record(p.shape[0], 1, shots, {"sample": p.shape[0]})
     out = np.stack([rng.choice(p.shape[1], size=shots, p=row / row.sum()) for row in p])
     return out if np.ndim(getval(theta)) == 2 else out[0]
