@@ -191,7 +191,7 @@ def _deviation(g, ref):
 
 
 def gradients(circuit, observable, theta, *, methods=METHODS, shots=None, seed=None, executor=None,
-              chunk=None):
+              chunk=None, timeout=None):
     """Audit the gradient of ``expect(circuit, observable, theta)`` across methods.
 
     Parameters
@@ -212,6 +212,8 @@ def gradients(circuit, observable, theta, *, methods=METHODS, shots=None, seed=N
         backward pass runs here. Wall times then include the executor's overhead.
     chunk : int, optional
         Circuits per task on ``executor``.
+    timeout : float, optional
+        Seconds to wait for the tasks of each evaluation (a `qgradlib.ChunkError` past it).
 
     Returns
     -------
@@ -240,7 +242,7 @@ def gradients(circuit, observable, theta, *, methods=METHODS, shots=None, seed=N
 
     def f(method, **kw):
         return lambda t: expect(circuit, observable, t, gradient=method, executor=executor,
-                                chunk=chunk, **kw)
+                                chunk=chunk, timeout=timeout, **kw)
 
     with warnings.catch_warnings():
         if theta.size == 0:

@@ -73,6 +73,7 @@ class Spec:
     fuse: bool = True              # gate fusion in the engine (never changes results beyond 1e-12)
     executor: object = None        # where the unique rows run (qgradlib.evaluation.distribute); None: here
     chunk: int | None = None       # rows per task on the executor
+    timeout: float | None = None   # seconds to wait for the executor's chunks of one batch
 
     @property
     def n_out(self):
@@ -296,7 +297,7 @@ def _check_qubits(qubits, n):
 
 def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, gradient="shift",
           shift=None, step=None, stencil="central", splits=1, memory_budget=None,
-          allocation="uniform", readout=None, fuse=True, executor=None, chunk=None):
+          allocation="uniform", readout=None, fuse=True, executor=None, chunk=None, timeout=None):
     if gradient not in METHODS:
         raise ValueError(f"gradient must be one of {METHODS}; got {gradient!r}")
     shots = _check_shots(shots)
@@ -331,6 +332,7 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
     if memory_budget is not None and (not isinstance(memory_budget, (int, np.integer)) or memory_budget < 1):
         raise ValueError(f"memory must be a positive number of bytes; got {memory_budget!r}")
     executor, chunk = distribute.check_executor(executor, chunk)
+    timeout = distribute.check_timeout(timeout, executor)
     pops = circuit.parametric_operations
     columns = tuple(k for k, op in enumerate(pops) if op.param is not None and op.scale != 0.0)
     plan = plan_measurements(observables) if kind == "expect" else None
@@ -338,7 +340,7 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
     spec = Spec(circuit, kind, observables, qubits, shots,
                 make_rng(seed) if shots is not None else None, gradient, shift, step, stencil,
                 int(splits), memory_budget, columns, max(1, settings), allocation, readout, plan,
-                _check_fuse(fuse), executor=executor, chunk=chunk)
+                _check_fuse(fuse), executor=executor, chunk=chunk, timeout=timeout)
     # a guard at the call that asks for the work, not deep inside the engine: one circuit
     # must fit (batches are then cut into chunks that fit)
     guard_rows(spec, 1, "evaluating")
@@ -374,7 +376,7 @@ def _traced(spec, theta, inputs):
 # -- public functions ---------------------------------------------------------------------------
 def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, gradient="shift",
            shift=None, step=None, stencil="central", splits=1, memory=None, allocation="uniform",
-           readout=None, fuse=True, executor=None, chunk=None):
+           readout=None, fuse=True, executor=None, chunk=None, timeout=None):
     """Expectation value(s) of ``observables`` after ``circuit`` at parameters ``theta``.
 
     Differentiable with autograd (`grad`, `jacobian`, `hessian`, ...); the derivative is
@@ -420,6 +422,9 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
         chunks (see `qgradlib.evaluation.distribute`); results equal the serial ones.
     chunk : int, optional
         Circuits per task on ``executor`` (default: about 4 tasks per worker).
+    timeout : float, optional
+        Seconds to wait for the chunks of one batch on ``executor`` (default: no limit);
+        past it a `qgradlib.ChunkError` names the points that did not finish.
 
     Returns
     -------
@@ -455,7 +460,8 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
     check_inputs(circuit, inputs, check_theta(circuit, theta))
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
-                 allocation=allocation, readout=readout, fuse=fuse, executor=executor, chunk=chunk)
+                 allocation=allocation, readout=readout, fuse=fuse, executor=executor, chunk=chunk,
+                 timeout=timeout)
     vals, batched = _run(spec, theta, inputs)
     if single:
         vals = vals[:, 0]
@@ -464,7 +470,7 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
 
 def probabilities(circuit, theta, qubits=None, *, inputs=None, shots=None, seed=None,
                   gradient="shift", shift=None, step=None, stencil="central", splits=1,
-                  memory=None, readout=None, fuse=True, executor=None, chunk=None):
+                  memory=None, readout=None, fuse=True, executor=None, chunk=None, timeout=None):
     """Probabilities of the outcomes on ``qubits`` (first listed = most significant bit).
 
     Differentiable like `expect`. Returns shape (2**k,) or (B, 2**k) (or (N, 2**k) for a data
@@ -484,7 +490,7 @@ def probabilities(circuit, theta, qubits=None, *, inputs=None, shots=None, seed=
     check_inputs(circuit, inputs, check_theta(circuit, theta))
     spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
-                 readout=readout, fuse=fuse, executor=executor, chunk=chunk)
+                 readout=readout, fuse=fuse, executor=executor, chunk=chunk, timeout=timeout)
     vals, batched = _run(spec, theta, inputs)
     return vals if batched else vals[0]
 
