@@ -49,7 +49,10 @@ def test_a_wrong_rule_is_caught():
     # a deliberately wrong rule (twice the two-term coefficients): shift and autograd's check
     # must both flag it, while finite differences still agree with the reference
     wrong = qg.ShiftRule([np.pi / 2, -np.pi / 2], [1.0, -1.0])
-    g = qg.Gate.from_generator("bad", ref.PY / 2, shift_rule=wrong)
+    with pytest.raises(ValueError, match="not exact"):      # refused where a gate is built
+        qg.Gate.from_generator("bad", ref.PY / 2, shift_rule=wrong)
+    # a gate that carries it anyway (built past the constructor) is caught by the audit
+    g = dataclasses.replace(qg.Gate.from_generator("bad", ref.PY / 2), rule=wrong)
     c = qg.Circuit(1).h(0).add(g, 0)
     r = qg.check.gradients(c, qg.Observable({"X": 1.0}), np.array([0.3]), seed=1)
     assert r["shift"].deviation > 0.1

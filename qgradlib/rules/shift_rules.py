@@ -201,10 +201,11 @@ def check_rule(rule: ShiftRule, frequencies, name: str = "shift_rule") -> None:
     Examples
     --------
     >>> check_rule(ShiftRule.two_term(1.0), [1.0])
-    >>> check_rule(ShiftRule.two_term(1.0), [1.0, 2.0])
-    Traceback (most recent call last):
-    ...
-    ValueError: shift_rule is not exact for the gate's frequencies (1, 2): for sin(2 x) it gives 0 instead of f'(0) = 2; a rule must be exact for every frequency of the generator (rule_for_frequencies builds one)
+    >>> try:
+    ...     check_rule(ShiftRule.two_term(1.0), [1.0, 2.0])
+    ... except ValueError as err:
+    ...     print("for sin(2 x) it gives" in str(err))
+    True
     """
     w = np.asarray(frequencies, dtype=float).reshape(-1)
     s, c = rule.shifts, rule.coefficients
