@@ -50,7 +50,10 @@ def test_a_wrong_rule_is_caught():
     # a deliberately wrong rule (twice the two-term coefficients): shift and autograd's check
     # must both flag it, while finite differences still agree with the reference
     wrong = qg.ShiftRule([np.pi / 2, -np.pi / 2], [1.0, -1.0])
-    g = qg.Gate.from_generator("bad", ref.PY / 2, shift_rule=wrong)
+    with pytest.raises(ValueError, match="not exact"):      # refused where a gate is built
+        qg.Gate.from_generator("bad", ref.PY / 2, shift_rule=wrong)
+    # a gate that carries it anyway (built past the constructor) is caught by the audit
+    g = dataclasses.replace(qg.Gate.from_generator("bad", ref.PY / 2), rule=wrong)
     c = qg.Circuit(1).h(0).add(g, 0)
     r = qg.check.gradients(c, qg.Observable({"X": 1.0}), np.array([0.3]), seed=1)
     assert r["shift"].deviation > 0.1
@@ -103,3 +106,16 @@ def test_global_random_state_is_left_alone():
     before = np.random.get_state()[1].copy()
     qg.check.gradients(c, obs, theta, seed=0)
     np.testing.assert_array_equal(np.random.get_state()[1], before)
+
+
+def test_a_circuit_without_parameters_gets_an_empty_report():
+    # before: np.max of an empty deviation raised NumPy's "zero-size array to reduction"
+    c = qg.Circuit(2).h(0).cnot(0, 1)
+    for obs, shape in ((qg.Observable({"ZZ": 1.0}), (0,)),
+                       ([qg.Observable({"ZZ": 1.0}), qg.Observable({"XX": 1.0})], (2, 0))):
+        r = qg.check.gradients(c, obs, np.zeros(0), seed=0)
+        assert all(m.gradient.shape == shape for m in r.methods)
+        assert r.max_deviation == 0.0 and r.ok()
+        # only the value runs: one circuit per observable's setting (common practice)
+        assert r["shift"].executions == r["difference"].executions == len(np.atleast_1d(obs))
+        assert "no parameters" in str(r)

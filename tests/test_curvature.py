@@ -484,3 +484,29 @@ def test_random_circuits_hessian_and_metric_vs_dense_reference(ops, share, seed)
     r = curvature.hessian(c, OBS2, th)
     np.testing.assert_allclose(r.hessian, ref.hessian_fd(c, OBS2, th), atol=2e-7)
     np.testing.assert_allclose(curvature.metric_tensor(c, th), ref.metric(c, th), atol=1e-12)
+
+
+def test_classical_fisher_near_a_vanishing_outcome():
+    # common practice: for RY(t)|0>, p = (cos^2(t/2), sin^2(t/2)) and F = 1 for every t != 0;
+    # before, at t = 1e-7 the outcome of p = 2.5e-15 fell under the cut and F came out 2.5e-15
+    c = qg.Circuit(1).ry(0)
+    for t in (1e-7, 1e-4, -3e-9, np.pi - 1e-7):
+        assert np.isclose(curvature.fisher_information(c, [t])[0, 0], 1.0, rtol=1e-9), t
+    # two qubits, one of them measured: the marginal keeps the same closed form
+    c2 = qg.Circuit(2).ry(0).cnot(0, 1)
+    for qubits in (None, [1], [1, 0]):
+        assert np.isclose(curvature.fisher_information(c2, [1e-7], qubits=qubits)[0, 0], 1.0, rtol=1e-9)
+
+
+def test_classical_fisher_agrees_with_the_shift_plan_away_from_zero():
+    # away from vanishing outcomes, F from shift-rule derivatives of the probabilities
+    # (autograd's jacobian of qg.probabilities through the shift plan) is the same quantity
+    from autograd import jacobian
+
+    c, th = controlled_circuit()
+    for qubits in (None, [2, 0]):
+        p = qg.probabilities(c, th, qubits=qubits)
+        J = jacobian(lambda t: qg.probabilities(c, t, qubits=qubits))(th)
+        keep = p > 1e-9
+        want = (J[keep].T / p[keep]) @ J[keep]
+        np.testing.assert_allclose(curvature.fisher_information(c, th, qubits=qubits), want, atol=1e-9)

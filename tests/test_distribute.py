@@ -287,3 +287,87 @@ def test_bad_executor_and_chunk_are_refused():
                 qg.expect(c, H, t, executor=threads, chunk=bad)
     with pytest.raises(ValueError, match="executor"):
         curvature.hessian(c, H, t, chunk=4)
+
+
+# -- executors that misbehave (issue 19 item 6) ---------------------------------------------------
+from concurrent.futures import Executor, Future  # noqa: E402
+
+
+class Tampering(Executor):
+    """Runs each task here, then changes what comes back (a stand-in for a faulty scheduler)."""
+
+    def __init__(self, how):
+        self.how, self.calls, self._max_workers = how, 0, 2
+
+    def submit(self, fn, *args, **kwargs):
+        fut = Future()
+        self.calls += 1
+        if self.how == "hang":
+            return fut                           # never finishes
+        result = fn(*args, **kwargs)
+        start, sums, values = result
+        if self.how == "shape":
+            result = (start, sums, values[:-1])  # a row short
+        elif self.how == "reorder":
+            result = (start, sums[::-1], values[::-1])
+        elif self.how == "swap" and self.calls == 1:
+            args = list(args)
+            args[1] = args[1][::-1]              # the rows ran in another order
+            result = fn(*args, **kwargs)
+        fut.set_result(result)
+        return fut
+
+
+def _chunked_case():
+    c = qg.Circuit(2).ry(0).cnot(0, 1).rx(1)
+    H = qg.Observable({"ZZ": 1.0, "XI": 0.5})
+    thetas = np.array([[0.1, 0.2], [0.3, 0.4], [0.5, 0.6], [0.7, 0.8]])
+    return c, H, thetas
+
+
+@pytest.mark.parametrize("how", ["shape", "reorder", "swap"])
+def test_a_chunk_that_comes_back_wrong_is_a_chunk_error(how):
+    # before: a short chunk raised IndexError from deep inside, rows in another order went
+    # unnoticed; the values that would have come back differ from the serial ones
+    c, H, thetas = _chunked_case()
+    with pytest.raises(ChunkError, match="came back|not the chunk's rows") as info:
+        qg.expect(c, H, thetas, executor=Tampering(how), chunk=2)
+    assert info.value.indices == (0, 1)
+    # a faithful executor of the same kind gives the serial numbers
+    # (serial: anchored to the dense reference in test_serial_results_match_the_dense_reference)
+    np.testing.assert_allclose(qg.expect(c, H, thetas, executor=Tampering("none"), chunk=2),
+                               qg.expect(c, H, thetas), atol=1e-14)
+
+
+def test_a_hung_worker_is_a_chunk_error_after_the_timeout():
+    c, H, thetas = _chunked_case()
+    with pytest.raises(ChunkError, match=r"did not finish within timeout=0.5 s") as info:
+        qg.expect(c, H, thetas, executor=Tampering("hang"), chunk=2, timeout=0.5)
+    assert info.value.indices == (0, 1, 2, 3)
+    assert np.allclose(info.value.angles, c.angles(thetas))
+    # every function that takes executor= takes timeout= and gives up the same way
+    theta = thetas[0]
+    calls = [
+        lambda ex: qg.probabilities(c, theta, executor=ex, timeout=0.5),
+        lambda ex: qg.estimate(c, H, theta, shots=100, seed=0, executor=ex, timeout=0.5),
+        lambda ex: qg.estimate_gradient(c, H, theta, shots=100, seed=0, executor=ex, timeout=0.5),
+        lambda ex: curvature.hessian(c, H, theta, executor=ex, timeout=0.5),
+        lambda ex: curvature.derivatives(c, H, theta, order=2, executor=ex, timeout=0.5),
+        lambda ex: curvature.metric_tensor(c, theta, executor=ex, timeout=0.5),
+        lambda ex: curvature.fisher_information(c, theta, executor=ex, timeout=0.5),
+        lambda ex: qg.check.gradients(c, H, theta, executor=ex, timeout=0.5),
+        lambda ex: qg.optimize.minimize_expectation(c, H, theta, steps=1, executor=ex, timeout=0.5),
+    ]
+    for call in calls:
+        with pytest.raises(ChunkError, match="did not finish within timeout"):
+            call(Tampering("hang"))
+
+
+def test_bad_timeout_is_refused():
+    c, H, thetas = _chunked_case()
+    with ThreadPoolExecutor(1) as pool:
+        for bad in (0, -1.0, float("inf"), "1", True):
+            with pytest.raises(ValueError, match="timeout must be a positive number"):
+                qg.expect(c, H, thetas, executor=pool, timeout=bad)
+    with pytest.raises(ValueError, match="give executor= as well"):
+        qg.expect(c, H, thetas, timeout=1.0)

@@ -194,3 +194,59 @@ def test_one_batch_per_vjp_and_memory_chunks_agree():
     assert book.calls == 2                    # the value, then one batch of 8 shifted circuits
     g_small = grad(lambda t: qg.expect(c, Z0, t, memory=1))(theta)
     np.testing.assert_array_equal(g, g_small)
+
+
+def test_a_ledger_nested_in_itself_counts_once():
+    # common practice: a value and 2 shifted circuits for one two-term parameter
+    c = _ry_circuit(1)
+    book = qg.Ledger()
+    with book:
+        with book:
+            grad(lambda t: qg.expect(c, Z0, t))(np.array([0.2]))
+        grad(lambda t: qg.expect(c, Z0, t))(np.array([0.2]))     # still active after the inner exit
+    qg.expect(c, Z0, np.array([0.2]))                             # no longer active
+    assert book.executions == 2 * 3
+
+
+def test_one_ledger_entered_from_several_threads_at_once():
+    # issue 11 item 13: each thread enters the same ledger (its own context); before, the
+    # second exit reset a token made in another thread's context (ValueError)
+    c = _ry_circuit(1)
+    book = qg.Ledger()
+    barrier = threading.Barrier(4)
+    errors = []
+
+    def work(k):
+        try:
+            with book:
+                barrier.wait()          # all four threads inside the ledger at once
+                for _ in range(k):
+                    grad(lambda t: qg.expect(c, Z0, t))(np.array([0.2]))
+                barrier.wait()
+        except Exception as err:        # pragma: no cover - the failure being tested
+            errors.append(err)
+
+    threads = [threading.Thread(target=work, args=(k,)) for k in (1, 2, 3, 4)]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join()
+    assert errors == []
+    assert book.executions == (1 + 2 + 3 + 4) * 3       # each thread's work, counted once
+    qg.expect(c, Z0, np.array([0.2]))                    # this thread never entered it
+    assert book.executions == 30
+
+
+def test_a_ledger_pickles_and_deep_copies_with_its_counts():
+    import copy
+    import pickle
+
+    c = _ry_circuit(1)
+    with qg.Ledger() as book:
+        grad(lambda t: qg.expect(c, Z0, t))(np.array([0.2]))
+    for other in (pickle.loads(pickle.dumps(book)), copy.deepcopy(book), copy.copy(book)):
+        assert (other.executions, other.circuits, other.shots) == (3, 3, 0)
+        assert other.by_purpose == book.by_purpose and other.by_purpose is not book.by_purpose
+        with other:                      # a working ledger of its own, with its own lock
+            qg.expect(c, Z0, np.array([0.2]))
+        assert other.executions == 4 and book.executions == 3

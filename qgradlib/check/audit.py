@@ -22,6 +22,7 @@ True
 from __future__ import annotations
 
 import time
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -155,6 +156,8 @@ class GradientReport:
             lines.append(f"  {m.method:<16}{dev:>12}{ex:>12}{m.shots:>10}"
                          f"{_milliseconds(m.seconds):>10}  {check}")
         lines.append(f"  largest deviation from the adjoint gradient: {self.max_deviation:.2e}")
+        if self.n_params == 0:
+            lines.append("  (the circuit has no parameters: every gradient is empty)")
         return "\n".join(lines)
 
 
@@ -224,12 +227,19 @@ def _autograd_check(f, theta, rng):
     finally:
         np.random.set_state(saved)
     jvp = make_numerical_jvp(f, theta)
+    if theta.size == 0:
+        return passed, np.zeros(np.shape(f(theta)) + (0,))
     numeric = np.stack([np.asarray(jvp(e)) for e in np.eye(theta.size)], axis=-1)
     return passed, numeric
 
 
+def _deviation(g, ref):
+    # a circuit without parameters has an empty gradient, which deviates by nothing
+    return float(np.max(np.abs(g - ref), initial=0.0))
+
+
 def gradients(circuit, observable, theta, *, methods=METHODS, shots=None, seed=None, executor=None,
-              chunk=None):
+              chunk=None, timeout=None):
     """Audit the gradient of ``expect(circuit, observable, theta)`` across methods.
 
     Parameters
@@ -250,6 +260,8 @@ def gradients(circuit, observable, theta, *, methods=METHODS, shots=None, seed=N
         backward pass runs here. Wall times then include the executor's overhead.
     chunk : int, optional
         Circuits per task on ``executor``.
+    timeout : float, optional
+        Seconds to wait for the tasks of each evaluation (a `qgradlib.ChunkError` past it).
 
     Returns
     -------
@@ -281,8 +293,17 @@ def gradients(circuit, observable, theta, *, methods=METHODS, shots=None, seed=N
 
     def f(method, **kw):
         return lambda t: expect(circuit, observable, t, gradient=method, executor=executor,
-                                chunk=chunk, **kw)
+                                chunk=chunk, timeout=timeout, **kw)
 
+    with warnings.catch_warnings():
+        if theta.size == 0:
+            # no parameters: autograd rightly notes that nothing depends on theta
+            warnings.filterwarnings("ignore", "Output seems independent of input")
+        rows, ref = _audit(f, theta, methods, single, shots, rng)
+    return GradientReport(tuple(rows), ref, circuit.n_qubits, circuit.n_params, shots)
+
+
+def _audit(f, theta, methods, single, shots, rng):
     (_, ref), _, ref_seconds = _timed(_derivative(f("adjoint"), single), theta)
     ref = np.asarray(ref, dtype=float)
     rows = []
@@ -293,12 +314,12 @@ def gradients(circuit, observable, theta, *, methods=METHODS, shots=None, seed=N
         if method == "autograd-check":
             (passed, numeric), book, seconds = _timed(
                 lambda t: _autograd_check(f("shift"), t, rng), theta)
-            rows.append(MethodAudit(method, numeric, float(np.max(np.abs(numeric - ref))),
+            rows.append(MethodAudit(method, numeric, _deviation(numeric, ref),
                                     book.executions, book.shots, seconds, passed))
             continue
         kw = {} if shots is None else {"shots": shots, "seed": np.random.default_rng(rng.integers(2 ** 63))}
         (_, g), book, seconds = _timed(_derivative(f(method, **kw), single), theta)
         g = np.asarray(g, dtype=float)
-        rows.append(MethodAudit(method, g, float(np.max(np.abs(g - ref))), book.executions,
+        rows.append(MethodAudit(method, g, _deviation(g, ref), book.executions,
                                 book.shots, seconds))
-    return GradientReport(tuple(rows), ref, circuit.n_qubits, circuit.n_params, shots)
+    return rows, ref

@@ -32,7 +32,8 @@ from functools import cached_property
 import numpy as np
 
 from .paulis import pauli_matrix, parse_pauli
-from ..rules.shift_rules import ShiftRule, frequencies_of, rule_for_frequencies, warn_approximate
+from ..rules.shift_rules import (ShiftRule, check_rule, frequencies_of, rule_for_frequencies,
+                                 warn_approximate)
 
 __all__ = ["Gate", "STANDARD", "H", "X", "Y", "Z", "S", "T", "SX", "CNOT", "CZ", "SWAP",
            "RX", "RY", "RZ", "PHASE", "CRX", "CRY", "CRZ", "CPHASE", "RXX", "RYY", "RZZ"]
@@ -58,7 +59,7 @@ def _square(m, name):
 
 def _hermitian(m, name):
     a = _square(m, name)
-    if not np.allclose(a, a.conj().T, atol=_TOL * max(1.0, np.abs(a).max())):
+    if not np.allclose(a, a.conj().T, rtol=0, atol=_TOL * np.abs(a).max()):
         raise ValueError(f"{name} must be Hermitian (equal to its conjugate transpose)")
     return (a + a.conj().T) / 2
 
@@ -136,7 +137,8 @@ class Gate:
         name : str
         generator : array_like, Hermitian, shape (2**k, 2**k)
         shift_rule : ShiftRule, optional
-            A rule of your own; by default one is derived from the generator's spectrum.
+            A rule of your own; by default one is derived from the generator's spectrum. It
+            must be exact for every frequency of the generator (checked; ValueError if not).
 
         Examples
         --------
@@ -148,8 +150,11 @@ class Gate:
         g = _hermitian(generator, "generator")
         if shift_rule is not None and not isinstance(shift_rule, ShiftRule):
             raise TypeError(f"shift_rule must be a ShiftRule; got {type(shift_rule).__name__}")
+        if shift_rule is not None:
+            check_rule(shift_rule, frequencies_of(np.linalg.eigvalsh(g)))
         diag = None
-        if np.allclose(g, np.diag(np.diag(g)), atol=_TOL):
+        # diagonal up to rounding of the generator's own scale, not of 1
+        if np.allclose(g, np.diag(np.diag(g)), rtol=0, atol=_TOL * np.abs(g).max()):
             ev = np.diag(g).real.copy()
             diag = lambda a, ev=ev: np.exp(-1j * np.multiply.outer(a, ev))  # noqa: E731
         return cls(_name(name), int(g.shape[0]).bit_length() - 1, "generator",
@@ -301,10 +306,11 @@ class Gate:
 
     @cached_property
     def shift_rule(self) -> ShiftRule | None:
-        """The exact first-derivative rule (None for gates that have none)."""
+        """The exact first-derivative rule (None for gates that have none, and for a generator
+        that is a multiple of the identity: a global phase, whose derivative is zero)."""
         if self.rule is not None:
             return self.rule
-        if self.kind != "generator":
+        if self.kind != "generator" or self.frequencies.size == 0:
             return None
         return rule_for_frequencies(self.frequencies)
 

@@ -9,19 +9,22 @@ Examples
 """
 from __future__ import annotations
 
+from collections import Counter
+
 import numpy as np
 
+from ..evaluation import ledger as _ledger
 from ..evaluation.expectation import _check_qubits, _spec
 from ..rules.higher_plans import build_plan, tensor
 from ..shots.estimation import TensorEstimate, check_shots
 from .execute import prepare, run_plan
-from .metric import metric_tensor, refuse_noise
+from .metric import metric_tensor, refuse_noise, state_and_derivatives
 
 __all__ = ["fisher_information"]
 
 
 def fisher_information(circuit, theta, kind="classical", qubits=None, *, shots=None, seed=None,
-                       tol=1e-12, memory=None, executor=None, chunk=None):
+                       tol=None, memory=None, executor=None, chunk=None, timeout=None):
     """Fisher information of the parameters, shape (m, m).
 
     Parameters
@@ -30,8 +33,15 @@ def fisher_information(circuit, theta, kind="classical", qubits=None, *, shots=N
     theta : array_like, shape (n_params,)
     kind : {"classical", "quantum"}
         "classical": of the distribution of computational-basis outcomes on ``qubits``,
-        ``F_ij = sum_x d_i p_x d_j p_x / p_x``, with the derivatives of the probabilities
-        from one merged shift plan (recorded in the ledger). "quantum": ``4 g`` with ``g``
+        ``F_ij = sum_x d_i p_x d_j p_x / p_x = 4 sum_x d_i sqrt(p_x) d_j sqrt(p_x)``. A device
+        would estimate the probabilities and their derivatives from one merged shift plan:
+        that plan's circuits are what the ledger records. The simulator computes the value
+        from the exact amplitudes and their derivatives instead, ``d p_x = 2 Re(conj(psi_x)
+        d psi_x)`` (summed over the unmeasured qubits), whose ratio stays accurate where
+        ``p_x`` is tiny: ``(d p_x)**2 / p_x`` has a finite limit as ``p_x -> 0`` (at most
+        ``4 |d psi_x|**2``), which differences of shifted probabilities cannot resolve. A
+        circuit with noise runs the shift plan on the density-matrix path (no amplitudes).
+        "quantum": ``4 g`` with ``g``
         the exact `metric_tensor` (pure states; Meyer, Quantum 5, 539 (2021)); refused for
         a circuit with noise channels, whose classical kind is available (the density-matrix
         path).
@@ -47,13 +57,15 @@ def fisher_information(circuit, theta, kind="classical", qubits=None, *, shots=N
         sampled overlap circuits (unbiased; see `metric_tensor`).
     seed : int or numpy.random.Generator, optional
     tol : float
-        Outcomes with ``p_x <= tol`` are left out of the sum (0/0 is taken as 0, the usual
-        convention). At parameters where a probability vanishes the classical Fisher
-        information can be discontinuous; this is a property of the quantity, not of the
-        method.
+        Outcomes with ``p_x <= tol`` are left out of the sum (default 0: only outcomes of
+        probability exactly zero, where 0/0 is taken as 0, the usual convention; the noisy
+        path's probabilities carry rounding, so there outcomes below 1e-12 are left out). At
+        parameters where a probability vanishes the classical Fisher information can be
+        discontinuous (for RY it is 1 for every angle but 0 at 0); this is a property of the
+        quantity, not of the method.
     memory : int, optional
         Bytes the engine may use for one chunk of the batch.
-    executor, chunk : optional
+    executor, chunk, timeout : optional
         As in `hessian` (for "quantum", as in `metric_tensor`).
 
     Returns
@@ -80,26 +92,55 @@ def fisher_information(circuit, theta, kind="classical", qubits=None, *, shots=N
         if qubits is not None:
             raise ValueError("qubits applies to kind='classical'; the quantum Fisher information "
                              "here is that of the whole (pure) output state")
-        g = metric_tensor(circuit, theta, shots=shots, seed=seed, executor=executor, chunk=chunk)
+        g = metric_tensor(circuit, theta, shots=shots, seed=seed, executor=executor, chunk=chunk,
+                          timeout=timeout)
         if shots is None:
             return 4.0 * g
         return TensorEstimate(4.0 * g.value, 4.0 * g.standard_error, g.executions, g.shots,
                               g.circuits)
-    if isinstance(tol, bool) or not isinstance(tol, (int, float)) or not 0 <= tol < 1:
-        raise ValueError(f"tol must be a number in [0, 1); got {tol!r}")
+    if tol is not None and (isinstance(tol, bool) or not isinstance(tol, (int, float))
+                            or not 0 <= tol < 1):
+        raise ValueError(f"tol must be a number in [0, 1) or None; got {tol!r}")
     theta, phi, A = prepare(circuit, theta)
     spec = _spec(circuit, "probs", qubits=_check_qubits(qubits, circuit.n_qubits),
                  shots=None if shots is None else check_shots(shots), seed=seed,
-                 memory_budget=memory, executor=executor, chunk=chunk)
+                 memory_budget=memory, executor=executor, chunk=chunk, timeout=timeout)
     plan = build_plan(circuit, phi, spec.columns, (0, 1), shots=spec.shots, rng=spec.rng)
-    vals, book = run_plan(plan, spec, phi)
-    if shots is not None:
-        F, var = _from_frequencies(plan, vals, spec.columns, A, spec.shots, tol)
-        return TensorEstimate(F, np.sqrt(var), book.executions, book.shots, book.circuits)
-    p = np.clip(tensor(plan, vals, spec.columns, A, 0), 0.0, None)
-    J = tensor(plan, vals, spec.columns, A, 1)          # (outcomes, m)
-    keep = p > tol
-    return (J[keep].T / p[keep]) @ J[keep]
+    if shots is not None or circuit.has_noise:
+        # sampled frequencies, or the density-matrix path's probabilities: both carry noise or
+        # rounding, so outcomes below 1e-12 are left out by default
+        cut = 1e-12 if tol is None else tol
+        vals, book = run_plan(plan, spec, phi)
+        if shots is not None:
+            F, var = _from_frequencies(plan, vals, spec.columns, A, spec.shots, cut)
+            return TensorEstimate(F, np.sqrt(var), book.executions, book.shots, book.circuits)
+        p = np.clip(tensor(plan, vals, spec.columns, A, 0), 0.0, None)
+        J = tensor(plan, vals, spec.columns, A, 1)          # (outcomes, m)
+        keep = p > cut
+        return (J[keep].T / p[keep]) @ J[keep]
+    # what a device would run for the probabilities and their derivatives
+    _ledger.record(plan.n_points, 1, 0, Counter(plan.purposes))
+    psi, D = state_and_derivatives(circuit, phi, spec.columns, spec.executor, spec.chunk, spec.timeout)
+    Ac = A[list(spec.columns)] if spec.columns else np.zeros((0, A.shape[1]))
+    dpsi = Ac.T @ D                                         # (m, d): along theta
+    n = circuit.n_qubits
+    p = _marginal(np.abs(psi) ** 2, n, spec.qubits)
+    dp = _marginal(2.0 * np.real(np.conj(psi) * dpsi), n, spec.qubits)   # (m, outcomes)
+    keep = p > (0.0 if tol is None else tol)
+    return (dp[:, keep] / p[keep]) @ dp[:, keep].T
+
+
+def _marginal(v, n, qubits):
+    """Sums of ``v`` (..., 2**n) over the unmeasured qubits, outcomes ordered as ``qubits``."""
+    if qubits is None:
+        return v
+    lead = v.shape[:-1]
+    t = v.reshape(lead + (2,) * n)
+    k = len(lead)
+    t = t.sum(axis=tuple(k + q for q in range(n) if q not in qubits))
+    kept = sorted(qubits)
+    t = np.transpose(t, tuple(range(k)) + tuple(k + kept.index(q) for q in qubits))
+    return t.reshape(lead + (-1,))
 
 
 def _from_frequencies(plan, freq, columns, A, shots, tol):

@@ -86,7 +86,8 @@ def _commute(a, b):
         return True
     support = sorted(set(a.qubits) | set(b.qubits))
     X, Y = _embedded(a, support), _embedded(b, support)
-    return bool(np.allclose(X @ Y, Y @ X, atol=1e-10))
+    # relative to the generators' scale: tiny generators commute only if they really do
+    return bool(np.allclose(X @ Y, Y @ X, rtol=0, atol=1e-10 * np.abs(X).max() * np.abs(Y).max()))
 
 
 _LETTERS = "IXYZ"
@@ -98,12 +99,13 @@ def _generator_terms(op, n):
     k = op.gate.n_qubits
     G = np.asarray(op.gate.generator)
     terms = {}
+    scale = np.abs(G).max()
     for letters in product(_LETTERS, repeat=k):
         word = "".join(letters)
         if word == "I" * k:
             continue
         c = np.trace(pauli_matrix(word) @ G) / 2 ** k
-        if abs(c) > 1e-12:
+        if abs(c) > 1e-12 * scale:
             full = ["I"] * n
             for q, ch in zip(op.qubits, word):
                 full[q] = ch
@@ -223,7 +225,9 @@ def _derivative_task(circuit, phi, columns):
     return state_derivatives(distribute.unpack(circuit), phi, columns)
 
 
-def _exact_metric_phi(circuit, phi, columns, executor=None, chunk=None):
+def state_and_derivatives(circuit, phi, columns, executor=None, chunk=None, timeout=None):
+    """The final state (d,) and its derivatives along the gate angles ``columns`` (C, d),
+    exact, on the simulator; with ``executor``, in chunks of columns."""
     if executor is None or not columns:
         psi, D = state_derivatives(circuit, phi, columns)
     else:
@@ -231,9 +235,23 @@ def _exact_metric_phi(circuit, phi, columns, executor=None, chunk=None):
         size = distribute.chunk_size(executor, len(columns), chunk)
         jobs = [((phi, columns[lo:lo + size]), columns[lo:lo + size], phi[None])
                 for lo in range(0, len(columns), size)]
+        d = 2 ** circuit.n_qubits
+
+        def check(k, result):
+            cols = jobs[k][1]
+            shapes = tuple(np.shape(r) for r in result) if isinstance(result, tuple) else None
+            if shapes != ((d,), (len(cols), d)):
+                raise ValueError(f"the task returned shapes {shapes}; expected the state ({d},) "
+                                 f"and {len(cols)} derivative(s) ({len(cols)}, {d})")
         parts = distribute.run_chunks(executor, _derivative_task,
-                                      distribute.payload(executor, circuit, "the circuit"), jobs)
+                                      distribute.payload(executor, circuit, "the circuit"), jobs,
+                                      check=check, timeout=timeout)
         psi, D = parts[0][0], np.concatenate([d for _, d in parts])
+    return psi, D
+
+
+def _exact_metric_phi(circuit, phi, columns, executor=None, chunk=None, timeout=None):
+    psi, D = state_and_derivatives(circuit, phi, columns, executor, chunk, timeout)
     v = D @ psi.conj()                     # <psi|d_i psi>
     return np.real(D.conj() @ D.T) - np.real(np.outer(v.conj(), v))
 
@@ -262,7 +280,7 @@ def refuse_noise(circuit, what):
 
 
 def metric_tensor(circuit, theta, structure="full", *, shots=None, seed=None, executor=None,
-                  chunk=None):
+                  chunk=None, timeout=None):
     """The Fubini-Study metric tensor of the circuit's output state, shape (m, m).
 
     ``g_ij = Re(<d_i psi|d_j psi> - <d_i psi|psi><psi|d_j psi>)`` in the parameters theta.
@@ -290,6 +308,8 @@ def metric_tensor(circuit, theta, structure="full", *, shots=None, seed=None, ex
         one pass over one state, and sampled metrics are drawn here: they run here.
     chunk : int, optional
         Columns per task on ``executor`` (default: about 4 tasks per worker).
+    timeout : float, optional
+        Seconds to wait for those tasks; past it a `qgradlib.ChunkError` names the columns.
 
     Returns
     -------
@@ -334,14 +354,14 @@ def metric_tensor(circuit, theta, structure="full", *, shots=None, seed=None, ex
         raise ValueError(f"structure must be one of {STRUCTURES}; got {structure!r}")
     refuse_noise(circuit, "metric_tensor")
     theta, phi, A = prepare(circuit, theta)
-    spec = _spec(circuit, "probs", executor=executor, chunk=chunk)
+    spec = _spec(circuit, "probs", executor=executor, chunk=chunk, timeout=timeout)
     columns = spec.columns
     if shots is not None:
         return _sampled_metric(circuit, phi, A, columns, structure, check_shots(shots),
                                make_rng(seed))
     Ac = A[list(columns)] if columns else np.zeros((0, A.shape[1]))
     if structure == "full":
-        g = _exact_metric_phi(circuit, phi, columns, spec.executor, spec.chunk)
+        g = _exact_metric_phi(circuit, phi, columns, spec.executor, spec.chunk, spec.timeout)
         plan, origin = _overlap_plan(circuit, phi, columns)
         count = plan.n_points - len(origin)
         if count:

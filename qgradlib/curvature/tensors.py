@@ -180,14 +180,14 @@ def _check_order(order):
 
 
 def _tensors(circuit, observables, theta, orders, *, shots, seed, shift, step, splits, memory,
-             executor, chunk):
+             executor, chunk, timeout=None):
     theta, phi, A = prepare(circuit, theta)
     obs, single = _observables(observables, circuit.n_qubits)
     if step is not None:
         check_step(step, max(orders))       # the highest order taken sets the useful range
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, shift=shift,
                  step=step, splits=splits, memory_budget=memory, executor=executor,
-                 chunk=chunk)
+                 chunk=chunk, timeout=timeout)
     plan = build_plan(circuit, phi, spec.columns, orders, shift=spec.shift, step=spec.step,
                        shots=spec.shots, splits=spec.splits, rng=spec.rng)
     vals, book = run_plan(plan, spec, phi)
@@ -198,7 +198,7 @@ def _tensors(circuit, observables, theta, orders, *, shots, seed, shift, step, s
 
 
 def hessian(circuit, observable, theta, *, shots=None, seed=None, memory=None, shift=None,
-            step=None, splits=1, executor=None, chunk=None) -> HessianResult:
+            step=None, splits=1, executor=None, chunk=None, timeout=None) -> HessianResult:
     """Value, gradient and Hessian of an expectation value from one merged shift plan.
 
     Parameters
@@ -223,6 +223,9 @@ def hessian(circuit, observable, theta, *, shots=None, seed=None, memory=None, s
         result and the ledger equal the serial ones.
     chunk : int, optional
         Circuits per task on ``executor`` (default: about 4 tasks per worker).
+    timeout : float, optional
+        Seconds to wait for the plan's chunks on ``executor``; past it a `qgradlib.ChunkError`
+        names the points that did not finish.
 
     Returns
     -------
@@ -248,17 +251,18 @@ def hessian(circuit, observable, theta, *, shots=None, seed=None, memory=None, s
     """
     out, book = _tensors(circuit, observable, theta, (0, 1, 2), shots=shots, seed=seed,
                          shift=shift, step=step, splits=splits, memory=memory,
-                         executor=executor, chunk=chunk)
+                         executor=executor, chunk=chunk, timeout=timeout)
     return HessianResult(_scalar(out[0]), out[1], out[2], book.executions, book.shots)
 
 
 def derivatives(circuit, observable, theta, order=2, *, shots=None, seed=None, memory=None,
-                shift=None, step=None, splits=1, executor=None, chunk=None) -> DerivativeTensors:
+                shift=None, step=None, splits=1, executor=None, chunk=None,
+                timeout=None) -> DerivativeTensors:
     """Every derivative tensor of an expectation value up to ``order``, from one plan.
 
     Parameters
     ----------
-    circuit, observable, theta, shots, seed, memory, shift, step, splits, executor, chunk
+    circuit, observable, theta, shots, seed, memory, shift, step, splits, executor, chunk, timeout
         As in `hessian`.
     order : int
         Highest order (1, 2, 3, 4, ...). The tensors of lower orders come with it: their
@@ -286,7 +290,7 @@ def derivatives(circuit, observable, theta, order=2, *, shots=None, seed=None, m
     k = _check_order(order)
     out, book = _tensors(circuit, observable, theta, tuple(range(k + 1)), shots=shots, seed=seed,
                          shift=shift, step=step, splits=splits, memory=memory,
-                         executor=executor, chunk=chunk)
+                         executor=executor, chunk=chunk, timeout=timeout)
     tensors = (_scalar(out[0]),) + tuple(out[j] for j in range(1, k + 1))
     return DerivativeTensors(tensors, k, book.executions, book.shots)
 

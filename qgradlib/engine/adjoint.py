@@ -19,11 +19,11 @@ import numpy as np
 
 from .threads import engine_threads
 from . import kernels
-from .memory import guard
+from .memory import guard_states
 from .program import program, step_matrix
 from .statevector import _table, run
 
-__all__ = ["adjoint_gradient", "hamiltonian_derivative"]
+__all__ = ["adjoint_gradient", "adjoint_states", "hamiltonian_derivative"]
 
 
 def hamiltonian_derivative(gate, a: float) -> np.ndarray:
@@ -164,8 +164,17 @@ def _undo_step(s, both, buf, n, phi, shared, table, P):
     return kernels.apply_dense(both, n, mh, s.qubits, buf, real=s.real), both
 
 
+def adjoint_states(rows: int, observable_scratch: float = 0.0) -> float:
+    """States alive at the peak of `adjoint_gradient` on ``rows`` rows: the stacked bra and
+    ket rows and their spare buffer (4 a row; the forward run inside needs only 3), plus what
+    applying the observable needs beyond its own scratch buffer (``observable_scratch`` a
+    row, see `qgradlib.engine.measure.observable_scratch`). The memory guard's estimate:
+    change it with `adjoint_gradient`."""
+    return rows * (4 + observable_scratch)
+
+
 def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, observable_into=None,
-                     psi=None, fuse=None) -> np.ndarray:
+                     psi=None, fuse=None, observable_scratch=0.0) -> np.ndarray:
     """dE/dphi for every row of ``phi`` (P, G), where ``E = <psi|O|psi>``.
 
     Parameters
@@ -180,9 +189,12 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
         ``observable_into(psi, out, scratch)`` writing ``O psi`` into ``out`` without
         allocating (``scratch`` may be overwritten); preferred over ``apply_observable``.
     psi : ndarray, shape (P, 2**n), optional
-        The final states of a forward run at ``phi``, when the caller already has them.
+        The final states of a forward run at ``phi``, when the caller already has them; pass
+        the last reference (they are released once copied, and the memory guard counts so).
     fuse : bool, optional
         Fusion of the gates between trainable ones (on by default).
+    observable_scratch : float
+        States a row that applying the observable allocates (for the memory guard).
 
     Returns
     -------
@@ -208,7 +220,9 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
     prog = program(circuit, fuse, want)
     if prog.const_columns and not np.all(phi[:, list(prog.const_columns)] == prog.const_angles):
         prog = program(circuit, fuse, want, bake_fixed_angles=False)
-    guard(4 * P * N * 16, f"the adjoint method on {P} state(s) of {n} qubits (four states each)")
+    # states handed in are released once copied (the caller passes its last reference)
+    handed = P if psi is not None else 0
+    guard_states(n, adjoint_states(P, observable_scratch) - handed, f"the adjoint method on {P} row(s)")
     both = np.empty((2 * P, N), dtype=complex)
     if psi is None:
         run(circuit, phi, out=both[:P], fuse=fuse, keep=want)

@@ -21,7 +21,7 @@ from . import kernels
 from .program import program, step_matrix
 from .statevector import _external, _solo, _table, zero_states
 
-__all__ = ["divergence", "run_branched"]
+__all__ = ["divergence", "run_branched", "branched_states"]
 
 
 def _reference(phi, inserts):
@@ -64,6 +64,13 @@ def divergence(phi, inserts=None):
                 if tuple(row.get(c, ())) != tuple(ref_ins.get(c, ())) and c < first[p]:
                     first[p] = c
     return ref, ref_ins, first
+
+
+def branched_states(rows: int) -> int:
+    """States alive at the peak of `run_branched` on ``rows`` rows: the reference and the
+    branches in two alternating buffers (``rows + 1`` rows each) and the ``rows`` results
+    gathered at the end. The memory guard's estimate: change it with `run_branched`."""
+    return 2 * (rows + 1) + rows
 
 
 @limited

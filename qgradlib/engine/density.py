@@ -19,16 +19,23 @@ import numpy as np
 from .threads import limited
 from ..circuits.paulis import masks
 from .measure import probabilities as _state_marginals
-from .memory import guard
+from .memory import guard_states
 from .statevector import apply_diagonal, apply_matrix, zero_states
 
-__all__ = ["zero_densities", "apply_unitary", "apply_channel", "run_density",
+__all__ = ["density_states", "zero_densities", "apply_unitary", "apply_channel", "run_density",
            "density_expectations", "density_probabilities", "diagonal", "marginal"]
+
+
+def density_states() -> int:
+    """Density matrices per row alive at the peak of `run_density`: the current one, the two
+    products of `apply_unitary` (``U rho``, then ``U rho U^dagger``) and a kernel buffer.
+    The memory guard's estimate: change it with `run_density`."""
+    return 4
 
 
 def zero_densities(n: int, batch: int = 1) -> np.ndarray:
     """``batch`` copies of |0...0><0...0| vectorised, shape (batch, 4**n)."""
-    guard(batch * 16 * 4 ** n, f"a batch of {batch} density matrices of {n} qubits")
+    guard_states(n, batch * density_states(), f"a density-matrix run of {batch} row(s)", density=True)
     # |0><0| vectorised is the 2n-qubit zero state
     return zero_states(2 * n, batch)
 

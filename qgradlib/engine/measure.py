@@ -15,7 +15,8 @@ import numpy as np
 from ..circuits.paulis import masks
 from .kernels import _views, apply_dense
 
-__all__ = ["pauli_expectation", "expectations", "probabilities"]
+__all__ = ["pauli_expectation", "expectations", "probabilities", "expectation_scratch",
+           "observable_scratch"]
 
 
 def _flipped(t, xq):
@@ -154,6 +155,33 @@ def probabilities(psi: np.ndarray, n: int, qubits=None) -> np.ndarray:
     kept = sorted(qubits)
     t = np.transpose(t, [0] + [1 + kept.index(q) for q in qubits])
     return t.reshape(B, -1)
+
+
+def _z_window_scratch(n, observables):
+    """States a row of the sign vectors `_z_windows` builds: a few float vectors of 2**w for
+    the widest window w (a Z word wider than ``_WINDOW`` qubits is a window of its own)."""
+    spans = [max(zq) - min(zq) + 1 for obs in observables for word in obs.terms
+             for xq, zq, _ in [masks(word)] if zq and not xq]
+    if not spans:
+        return 0.0
+    w = min(n, max(max(spans), _WINDOW))
+    return 2.0 * 2.0 ** (w - n)
+
+
+def expectation_scratch(n: int, observables) -> float:
+    """States a row that `expectations` allocates beyond the states it reads: ``|psi|**2`` or
+    a half-size product with its reshaped copy (1), the Z windows' sign vectors, and for a
+    dense part the conjugate and the einsum's product (2). The memory guard's estimate
+    (`qgradlib.engine.memory`): change it with `expectations`."""
+    dense = any(o.dense is not None for o in observables)
+    return 1.0 + _z_window_scratch(n, observables) + (2.0 if dense else 0.0)
+
+
+def observable_scratch(n: int, observables) -> float:
+    """States a row that `apply_observables` allocates beyond ``out`` and ``scratch``: the Z
+    windows' sign vectors and a dense part's product (1). The memory guard's estimate."""
+    dense = any(o.dense is not None for o in observables)
+    return _z_window_scratch(n, observables) + (1.0 if dense else 0.0)
 
 
 def _negate_where_set(t, zq):

@@ -41,7 +41,7 @@ from .density import _signs, apply_unitary, density_probabilities
 from .statevector import apply_matrix
 from ..circuits.observables import Observable
 
-__all__ = ["Setting", "MeasurementPlan", "measurement_settings", "n_settings", "plan_measurements",
+__all__ = ["measure_scratch", "probability_scratch", "Setting", "MeasurementPlan", "measurement_settings", "n_settings", "plan_measurements",
            "allocate", "apply_readout", "check_readout", "measure", "outcome_distribution", "make_rng",
            "PointSeeds", "point_generators", "ALLOCATIONS"]
 
@@ -288,6 +288,28 @@ def _draw(p, values, shots, rng):
     # sample variance (ddof=1) from the first two moments of the counts
     var = np.maximum(counts @ (values ** 2).T - shots * mean ** 2, 0.0) / (shots - 1)
     return mean, var / shots
+
+
+def probability_scratch(density: bool = False) -> float:
+    """States a row that `outcome_distribution` (computational basis), `apply_readout` and a
+    marginal allocate beyond the states: half-size float copies (``|psi|**2``, clipped,
+    normalised, flipped, marginalised), 3 states at most; for density matrices they are
+    vectors of 2**n, nothing next to a 4**n matrix. The memory guard's estimate."""
+    return 0.0 if density else 3.0
+
+
+def measure_scratch(n: int, plan: MeasurementPlan, density: bool = False) -> float:
+    """States (density matrices with ``density``) a row that `measure` allocates beyond its
+    input: where a setting rotates qubits, the rotated copy (and, for rho, `apply_unitary`'s
+    two products); the probabilities with the temporaries of their sign vectors (2.5), and
+    the sign table of the widest setting (a state a term: each vector sits in a list and in
+    its stack). For rho the vectors are 2**n long, nothing next to a 4**n matrix.
+    The memory guard's estimate (`qgradlib.engine.memory`): change it with `measure`."""
+    rotates = bool(plan.dense) or any(b in "XY" for s in plan.settings for b in s.basis)
+    terms = max((len(s.terms) for s in plan.settings), default=0) + len(plan.dense)
+    if density:
+        return (3.0 if rotates else 0.0) + (2.5 + terms) * 2.0 ** -n
+    return (1.0 if rotates else 0.0) + 2.5 + terms
 
 
 def measure(states, plan: MeasurementPlan, shots, rng, *, density=False, allocation="uniform",

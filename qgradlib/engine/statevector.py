@@ -21,10 +21,10 @@ import numpy as np
 
 from .threads import limited
 from . import kernels
-from .memory import guard
+from .memory import guard, guard_states
 from .program import program, step_matrix
 
-__all__ = ["zero_states", "apply_matrix", "apply_diagonal", "apply_gate", "run"]
+__all__ = ["zero_states", "apply_matrix", "apply_diagonal", "apply_gate", "run", "run_states"]
 
 
 def zero_states(n_qubits: int, batch: int = 1) -> np.ndarray:
@@ -170,6 +170,13 @@ def _external(step, cur, n):
     return np.ascontiguousarray(fn(cur, n, tuple(step.op.qubits)), dtype=complex)
 
 
+def run_states() -> int:
+    """States per row that `run` keeps alive at its peak: its two alternating buffers (the
+    result is one of them; initial states ``psi``, when given, are the caller's on top).
+    The memory guard's estimate (`qgradlib.engine.memory`): change it with `run`."""
+    return 2
+
+
 @limited
 def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=frozenset(),
         out=None) -> np.ndarray:
@@ -221,6 +228,8 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
     N = 2 ** n
     if out is not None and (out.shape != (B, N) or out.dtype != complex):
         raise ValueError(f"out must be a complex array of shape {(B, N)}; got {out.shape} {out.dtype}")
+    # both buffers are allocated here unless the caller gives one of them
+    guard_states(n, B * (run_states() - (out is not None)), f"a run of {B} row(s)")
     if psi is None:
         cur = out if out is not None else zero_states(n, B)
         if out is not None:
@@ -229,7 +238,6 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
     else:
         if np.shape(psi) != (B, N):
             raise ValueError(f"psi must have shape {(B, N)}; got {np.shape(psi)}")
-        guard(B * N * 16, f"a batch of {B} state(s) of {n} qubits")
         cur = np.array(psi, dtype=complex) if out is None else out
         if out is not None:
             cur[...] = psi

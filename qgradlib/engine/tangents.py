@@ -20,10 +20,11 @@ import numpy as np
 from .threads import limited
 from ..rules.shift_rules import warn_approximate
 from .adjoint import hamiltonian_derivative
-from .memory import guard
+from .memory import guard_states
 from .statevector import apply_gate, apply_matrix, zero_states
 
-__all__ = ["state_derivatives", "layer_covariances", "states_before", "effective_generator"]
+__all__ = ["state_derivatives", "derivative_states", "layer_covariances", "states_before",
+           "effective_generator"]
 
 
 def _derivative_matrix(gate, a):
@@ -33,6 +34,13 @@ def _derivative_matrix(gate, a):
     warn_approximate(gate)
     h = 1e-6
     return (gate._matrices(np.array([a + h]))[0] - gate._matrices(np.array([a - h]))[0]) / (2 * h)
+
+
+def derivative_states(columns: int) -> int:
+    """States alive at the peak of `state_derivatives` for ``columns`` derivatives: the
+    ``columns + 1`` rows, the new rows `apply_gate` returns, and one derivative in the making.
+    The memory guard's estimate: change it with `state_derivatives`."""
+    return 2 * (columns + 1) + 1
 
 
 @limited
@@ -50,8 +58,7 @@ def state_derivatives(circuit, phi, columns):
     ([1.0, 0.0], [[0.0, 0.5]])
     """
     n = circuit.n_qubits
-    guard(16 * (len(columns) + 1) * 2 ** n,
-                 f"{len(columns) + 1} states of {n} qubits for the state derivatives")
+    guard_states(n, derivative_states(len(columns)), f"the state and {len(columns)} state derivatives")
     row = {c: i + 1 for i, c in enumerate(columns)}
     psi = zero_states(n, len(columns) + 1)
     col = -1
@@ -153,7 +160,8 @@ def states_before(circuit, phi, columns):
     """
     n = circuit.n_qubits
     want = {c: i for i, c in enumerate(columns)}
-    guard(16 * (len(columns) + 1) * 2 ** n, f"{len(columns) + 1} states of {n} qubits")
+    # the states kept, the walking state and the new one apply_gate returns
+    guard_states(n, len(columns) + 2, f"the states before {len(columns)} column(s)")
     out = np.zeros((len(columns), 2 ** n), dtype=complex)
     psi = zero_states(n, 1)
     col = -1

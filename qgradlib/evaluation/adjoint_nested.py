@@ -32,7 +32,7 @@ from autograd.extend import defvjp, primitive
 from autograd.tracer import getval
 
 from ..engine.adjoint import adjoint_gradient
-from ..engine.measure import apply_observables
+from ..engine.measure import apply_observables, observable_scratch
 from ..engine.statevector import apply_diagonal
 from ..rules.plans import first_order_points
 
@@ -83,9 +83,10 @@ def adjoint_vjp(phi, spec, g):
     phi = np.asarray(phi, dtype=float)
     # the states go straight into the call (no local name), so the adjoint can free them
     # once copied into its stacked buffer
+    scratch = observable_scratch(spec.circuit.n_qubits, spec.observables) if spec.kind == "expect" else 0.0
     return adjoint_gradient(spec.circuit, phi, columns=spec.columns,
                             observable_into=_weighted_observable(spec, g),
-                            psi=_take_states(spec, phi), fuse=spec.fuse)
+                            psi=_take_states(spec, phi), fuse=spec.fuse, observable_scratch=scratch)
 
 
 def check_nested(spec):

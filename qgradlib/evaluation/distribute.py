@@ -18,6 +18,10 @@ Failures:
 
 - a task that raises: the error comes back wrapped in `ChunkError` (a RuntimeError) with
   the chunk's point indices and gate angles, and the other chunks are cancelled;
+- a chunk that comes back wrong: every task returns, beside its values, the position of its
+  first point and a checksum of each of its angle rows, and the caller compares them (and
+  the values' shape) with what it sent; a mismatch (a wrong shape, rows of another chunk or
+  in another order) is a `ChunkError` too;
 - a dask worker that dies: the scheduler reschedules its tasks on the remaining or restarted
   workers (up to ``distributed.scheduler.allowed-failures`` times, then dask raises
   ``KilledWorker``, which is wrapped); tasks sent to a ``Client`` also get ``retries=``
@@ -44,9 +48,11 @@ import math
 import os
 import pickle
 import sys
+import time
+from concurrent.futures import TimeoutError as FutureTimeout
 from concurrent.futures import Executor, ThreadPoolExecutor
 from dataclasses import replace
-from numbers import Integral
+from numbers import Integral, Real
 
 import numpy as np
 
@@ -54,7 +60,7 @@ from ..engine.measurement import PointSeeds
 from ..engine.threads import worker_threads
 from .rows import measure_rows_here
 
-__all__ = ["ChunkError", "measure_rows", "run_chunks", "workers", "check_executor", "chunk_size",
+__all__ = ["ChunkError", "measure_rows", "run_chunks", "row_checksums", "workers", "check_executor", "check_timeout", "chunk_size",
            "payload", "RETRIES", "CHUNKS_PER_WORKER"]
 
 RETRIES = 2             # dask retries of a task that raised (a dead worker is rescheduled anyway)
@@ -100,6 +106,17 @@ def _dask_client(executor):
     if cfx is not None and isinstance(executor, cfx.ClientExecutor):
         return executor._client
     return None
+
+
+def check_timeout(timeout, executor):
+    """Validate ``timeout=`` (seconds to wait for an executor's chunks, or None); returns it."""
+    if timeout is None:
+        return None
+    if isinstance(timeout, bool) or not isinstance(timeout, Real) or not 0 < timeout < math.inf:
+        raise ValueError(f"timeout must be a positive number of seconds or None; got {timeout!r}")
+    if executor is None:
+        raise ValueError("timeout= bounds the wait for the chunks sent to an executor: give executor= as well")
+    return float(timeout)
 
 
 def check_executor(executor, chunk):
@@ -236,10 +253,35 @@ def in_worker(task, *args):
         return task(*args)
 
 
-def run_chunks(executor, task, payload, jobs):
+def row_checksums(phi) -> np.ndarray:
+    """One 64-bit checksum per row of ``phi`` (R, G) from the exact bits of its angles: equal
+    rows give equal sums, a row moved to another place or another chunk gives another."""
+    bits = np.ascontiguousarray(phi, dtype=float).view(np.uint64).reshape(np.shape(phi))
+    mix = (np.arange(1, bits.shape[1] + 1, dtype=np.uint64) * np.uint64(0x9E3779B97F4A7C15)) | np.uint64(1)
+    with np.errstate(over="ignore"):
+        return np.bitwise_xor.reduce(bits * mix, axis=1, initial=np.uint64(0)) if bits.size else \
+            np.zeros(bits.shape[0], dtype=np.uint64)
+
+
+def _timed_out(futures, jobs, timeout, executor):
+    """ChunkError naming every point whose chunk did not finish within ``timeout``."""
+    late = [k for k, f in enumerate(futures) if not f.done()] or list(range(len(jobs)))
+    for k in late:
+        futures[k].cancel()
+    indices = np.concatenate([np.asarray(jobs[k][1]).reshape(-1) for k in late]).astype(int)
+    angles = np.concatenate([np.atleast_2d(jobs[k][2]) for k in late])
+    return ChunkError(f"{len(late)} of {len(jobs)} chunk(s) on {type(executor).__name__} did not "
+                      f"finish within timeout={timeout:g} s: {_describe(indices, angles)} (a hung "
+                      "or overloaded worker; the other chunks' results are dropped)", indices, angles)
+
+
+def run_chunks(executor, task, payload, jobs, check=None, timeout=None):
     """``task(payload, *args)`` for every job ``(args, indices, angles)``; results in job order.
 
-    A failure raises `ChunkError` for the first failing chunk in order and cancels the rest.
+    ``check(k, result)`` (optional) raises ValueError for a result that does not belong to
+    job ``k``. A failure raises `ChunkError` for the first failing chunk in order and cancels
+    the rest; with ``timeout`` (seconds for all chunks), chunks still running then are
+    cancelled and a `ChunkError` names their points.
 
     Examples
     --------
@@ -253,17 +295,29 @@ def run_chunks(executor, task, payload, jobs):
     # tasks in this process (threads) take the BLAS setting of this thread: OpenBLAS ignores
     # a change asked for in a thread that did not start it
     with worker_threads():
-        return _run_chunks(executor, task, payload, jobs)
+        return _run_chunks(executor, task, payload, jobs, check, timeout)
 
 
-def _run_chunks(executor, task, payload, jobs):
+def _run_chunks(executor, task, payload, jobs, check, timeout):
     futures, out = [], []
+    deadline = None if timeout is None else time.monotonic() + timeout
     try:
         for args, _, _ in jobs:
             futures.append(_submit(executor, in_worker, task, payload, *args))
-        for fut in futures:
-            out.append(fut.result())
+        for k, fut in enumerate(futures):
+            if deadline is None:
+                result = fut.result()
+            else:
+                try:
+                    result = fut.result(timeout=max(0.0, deadline - time.monotonic()))
+                except (FutureTimeout, TimeoutError):
+                    raise _timed_out(futures, jobs, timeout, executor) from None
+            if check is not None:
+                check(k, result)
+            out.append(result)
         return out
+    except ChunkError:
+        raise
     except Exception as err:
         # the chunk that failed: the one being submitted, or the first whose result raised
         k = len(out) if len(futures) == len(jobs) else len(futures)
@@ -275,11 +329,30 @@ def _run_chunks(executor, task, payload, jobs):
 
 
 def measure_chunk(spec, phi, inserts, start, base, errors):
-    """The task: `measure_rows_here` on one chunk (``spec`` may come pickled)."""
+    """The task: `measure_rows_here` on one chunk (``spec`` may come pickled); returns
+    ``(start, row checksums, values)`` so the caller can tell the chunk's rows."""
     spec = unpack(spec)
     if base is not None:
         spec = replace(spec, rng=PointSeeds(base, start))
-    return measure_rows_here(phi, spec, inserts, errors=errors)
+    return start, row_checksums(phi), measure_rows_here(phi, spec, inserts, errors=errors)
+
+
+def _check_measured(jobs, n_out, errors):
+    def check(k, result):
+        (phi, _, start, _, _), _, _ = jobs[k]
+        shape = (phi.shape[0], n_out)
+        if not (isinstance(result, tuple) and len(result) == 3):
+            raise ValueError(f"the task returned {type(result).__name__}, not (start, checksums, values)")
+        got_start, sums, vals = result
+        parts = vals if errors else (vals,)
+        if got_start != start or not np.array_equal(np.asarray(sums), row_checksums(phi)):
+            raise ValueError(f"the rows that came back are not the chunk's rows (first point {start} "
+                             f"sent, {got_start} returned, or rows in another order)")
+        for v in parts:
+            if np.shape(v) != shape:
+                raise ValueError(f"values of shape {np.shape(v)} came back for {shape[0]} point(s) "
+                                 f"of {shape[1]} value(s) each: expected {shape}")
+    return check
 
 
 def measure_rows(phi, spec, inserts=None, *, errors=False, index=None):
@@ -300,15 +373,17 @@ def measure_rows(phi, spec, inserts=None, *, errors=False, index=None):
     """
     phi = np.asarray(phi, dtype=float)
     base = None if spec.shots is None else int(spec.rng.integers(2 ** 63))
-    task_spec = replace(spec, executor=None, chunk=None, rng=None)
+    task_spec = replace(spec, executor=None, chunk=None, rng=None, timeout=None)
     R = phi.shape[0]
     if spec.executor is None or R == 0:
-        return measure_chunk(task_spec, phi, inserts, 0, base, errors)
+        return measure_chunk(task_spec, phi, inserts, 0, base, errors)[2]
     size = chunk_size(spec.executor, R, spec.chunk)
     index = np.arange(R) if index is None else np.asarray(index)
     jobs = [((phi[lo:lo + size], None if inserts is None else list(inserts[lo:lo + size]), lo,
               base, errors), index[lo:lo + size], phi[lo:lo + size]) for lo in range(0, R, size)]
-    parts = run_chunks(spec.executor, measure_chunk, payload(spec.executor, task_spec), jobs)
+    parts = run_chunks(spec.executor, measure_chunk, payload(spec.executor, task_spec), jobs,
+                       check=_check_measured(jobs, spec.n_out, errors), timeout=spec.timeout)
+    parts = [p[2] for p in parts]
     if errors:
         return np.concatenate([p[0] for p in parts]), np.concatenate([p[1] for p in parts])
     return np.concatenate(parts)

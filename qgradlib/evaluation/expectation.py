@@ -36,11 +36,11 @@ from . import distribute, ledger
 from ..circuits.circuit import Circuit, check_inputs, check_theta
 from ..engine import memory
 from .adjoint_nested import adjoint_jacobian, adjoint_vjp, check_nested, keep_states
-from ..engine.density import run_density
-from ..engine.statevector import run
+from ..engine.density import density_states, run_density
+from ..engine.statevector import run, run_states
 from ..engine.measurement import (ALLOCATIONS, apply_readout, check_readout, make_rng,
                                   outcome_distribution, plan_measurements)
-from .rows import measure_rows_here
+from .rows import guard_rows, measure_rows_here
 from ..circuits.observables import Observable
 from ..circuits.preparation import prepared
 from ..rules.plans import first_order_points
@@ -76,6 +76,7 @@ class Spec:
     fuse: bool = True              # gate fusion in the engine (never changes results beyond 1e-12)
     executor: object = None        # where the unique rows run (qgradlib.evaluation.distribute); None: here
     chunk: int | None = None       # rows per task on the executor
+    timeout: float | None = None   # seconds to wait for the executor's chunks of one batch
 
     @property
     def n_out(self):
@@ -420,7 +421,7 @@ def _check_qubits(qubits, n):
 
 def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, gradient="shift",
           shift=None, step=None, stencil="central", splits=1, memory_budget=None,
-          allocation="uniform", readout=None, fuse=True, executor=None, chunk=None):
+          allocation="uniform", readout=None, fuse=True, executor=None, chunk=None, timeout=None):
     if not isinstance(gradient, str):
         raise TypeError(f"gradient must be a string, one of {METHODS}; got {type(gradient).__name__}")
     if gradient not in METHODS:
@@ -457,6 +458,7 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
                                       or memory_budget < 1):
         raise ValueError(f"memory must be a positive number of bytes; got {memory_budget!r}")
     executor, chunk = distribute.check_executor(executor, chunk)
+    timeout = distribute.check_timeout(timeout, executor)
     # the evaluation and every derivative of it see this frozen copy, whatever happens to
     # the user's circuit afterwards
     circuit = circuit.snapshot()
@@ -464,20 +466,19 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
     columns = tuple(k for k, op in enumerate(pops) if op.param is not None and op.scale != 0.0)
     plan = plan_measurements(observables) if kind == "expect" else None
     settings = plan.n_settings if plan is not None else 1
-    # a guard at the call that asks for the state, not deep inside the engine
-    _guard(circuit)
-    return Spec(circuit, kind, observables, qubits, shots,
+    spec = Spec(circuit, kind, observables, qubits, shots,
                 rng if shots is not None else None, gradient, shift, step, stencil,
                 int(splits), memory_budget, columns, max(1, settings), allocation, readout, plan,
-                _check_fuse(fuse), executor=executor, chunk=chunk)
+                _check_fuse(fuse), executor=executor, chunk=chunk, timeout=timeout)
+    # a guard at the call that asks for the work, not deep inside the engine: one circuit
+    # must fit (batches are then cut into chunks that fit)
+    guard_rows(spec, 1, "evaluating")
+    return spec
 
 
 def _guard(circuit):
-    n = circuit.n_qubits
-    if circuit.has_noise:
-        memory.guard(16 * 4 ** n, f"a density matrix of {n} qubits (a circuit with noise)")
-    else:
-        memory.guard(16 * 2 ** n, f"a state of {n} qubits")
+    """Refuse a final state (`state`) that cannot be computed here."""
+    memory.guard_states(circuit.n_qubits, run_states(), "the final state")
 
 
 def _run(spec, theta, inputs=None):
@@ -504,7 +505,7 @@ def _traced(spec, theta, inputs):
 # -- public functions ---------------------------------------------------------------------------
 def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, gradient="shift",
            shift=None, step=None, stencil="central", splits=1, memory=None, allocation="uniform",
-           readout=None, fuse=True, executor=None, chunk=None, initial=None):
+           readout=None, fuse=True, executor=None, chunk=None, timeout=None, initial=None):
     """Expectation value(s) of ``observables`` after ``circuit`` at parameters ``theta``.
 
     Differentiable with autograd (`grad`, `jacobian`, `hessian`, ...); the derivative is
@@ -550,6 +551,9 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
         chunks (see `qgradlib.evaluation.distribute`); results equal the serial ones.
     chunk : int, optional
         Circuits per task on ``executor`` (default: about 4 tasks per worker).
+    timeout : float, optional
+        Seconds to wait for the chunks of one batch on ``executor`` (default: no limit);
+        past it a `qgradlib.ChunkError` names the points that did not finish.
     initial : str or array_like, optional
         The state the circuit starts from instead of ``|0...0>``: a bitstring such as ``"0110"``
         (qubit 0 leftmost) or a normalised state vector of shape (2**n,) (see
@@ -593,7 +597,7 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
         vals = expect(circuit, inner, theta, shots=shots, seed=seed, gradient=gradient,
                       shift=shift, step=step, stencil=stencil, splits=splits, memory=memory,
                       allocation=allocation, readout=readout, fuse=fuse, executor=executor,
-                      chunk=chunk, initial=initial, inputs=inputs)
+                      chunk=chunk, timeout=timeout, initial=initial, inputs=inputs)
         out = [sum(w * vals[..., j] for j, w in row) for row in weights]
         return out[0] if single else anp.stack(out, axis=-1)
     circuit = prepared(circuit, initial)
@@ -602,7 +606,8 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
     check_inputs(circuit, inputs, theta)
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
-                 allocation=allocation, readout=readout, fuse=fuse, executor=executor, chunk=chunk)
+                 allocation=allocation, readout=readout, fuse=fuse, executor=executor, chunk=chunk,
+                 timeout=timeout)
     vals, batched = _run(spec, theta, inputs)
     if single:
         vals = vals[:, 0]
@@ -611,7 +616,8 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
 
 def probabilities(circuit, theta, qubits=None, *, inputs=None, shots=None, seed=None,
                   gradient="shift", shift=None, step=None, stencil="central", splits=1,
-                  memory=None, readout=None, fuse=True, executor=None, chunk=None, initial=None):
+                  memory=None, readout=None, fuse=True, executor=None, chunk=None, timeout=None,
+                  initial=None):
     """Probabilities of the outcomes on ``qubits`` (first listed = most significant bit).
 
     Differentiable like `expect`. Returns shape (2**k,) or (B, 2**k) (or (N, 2**k) for a data
@@ -634,7 +640,7 @@ def probabilities(circuit, theta, qubits=None, *, inputs=None, shots=None, seed=
     check_inputs(circuit, inputs, theta)
     spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
-                 readout=readout, fuse=fuse, executor=executor, chunk=chunk)
+                 readout=readout, fuse=fuse, executor=executor, chunk=chunk, timeout=timeout)
     vals, batched = _run(spec, theta, inputs)
     return vals if batched else vals[0]
 
@@ -696,7 +702,7 @@ def density_matrix(circuit, theta, *, inputs=None, initial=None) -> np.ndarray:
     circuit = prepared(circuit, initial)
     phi = _plain_angles(circuit, theta, inputs)
     n = circuit.n_qubits
-    memory.guard(16 * 4 ** n, f"a density matrix of {n} qubits")
+    memory.guard_states(n, density_states(), "the final density matrix", density=True)
     if phi.ndim == 2 and phi.shape[0] == 0:
         return np.zeros((0, 2 ** n, 2 ** n), dtype=complex)
     rho = run_density(circuit, np.atleast_2d(phi)).reshape(-1, 2 ** n, 2 ** n)
@@ -731,8 +737,9 @@ def sample(circuit, theta, shots, seed=None, *, inputs=None, readout=None,
     else:
         states = np.atleast_2d(state(circuit, theta, inputs=inputs))
     p = apply_readout(outcome_distribution(states, n, density=circuit.has_noise), n, flips)
-    # the draw holds one float and one int per shot: refuse what cannot fit
-    memory.guard(16 * shots * p.shape[0], f"{shots:,} shots of {p.shape[0]} circuit(s)")
+    # a row's draw holds a float and an int a shot, the drawn rows and their stack an int a
+    # shot each: refuse what cannot fit
+    memory.guard(16 * shots * (p.shape[0] + 1), f"{shots:,} shots of {p.shape[0]} circuit(s)")
     ledger.record(p.shape[0], 1, shots, {"sample": p.shape[0]})
     out = np.stack([rng.choice(p.shape[1], size=shots, p=row / row.sum()) for row in p]) \
         if p.shape[0] else np.zeros((0, shots), dtype=int)

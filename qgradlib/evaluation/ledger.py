@@ -2,8 +2,11 @@
 
 Every evaluation of the engine reports the distinct circuits it ran, the measurement settings
 each needs and the shots per setting; each active `Ledger` adds them up. The active ledgers
-live in a context variable, so a ledger counts the work of its own thread (and of code that
-copies its context), nested ledgers all count, and counting is locked.
+live in a context variable, so a ledger counts the work of the threads that entered it (and of
+code that copies their context), nested ledgers all count, and counting is locked. One ledger
+may be entered from several threads at once (each counts its own work into it) and nested in
+itself (it counts once). A ledger pickles and deep-copies with its counts (the copy is not
+active anywhere).
 
 Examples
 --------
@@ -20,6 +23,7 @@ Examples
 from __future__ import annotations
 
 import contextvars
+import copy
 import threading
 from collections import Counter
 
@@ -63,15 +67,38 @@ class Ledger:
         self.shots = 0
         self.calls = 0
         self.by_purpose = Counter()
-        self._token = []
 
+    # No reset tokens: a token belongs to the context that made it, so one ledger entered from
+    # several threads cannot hold them. Each entry appends to this context's tuple and each
+    # exit removes this ledger's last entry from it.
     def __enter__(self):
-        self._token.append(_ACTIVE.set(_ACTIVE.get() + (self,)))
+        _ACTIVE.set(_ACTIVE.get() + (self,))
         return self
 
     def __exit__(self, *exc):
-        _ACTIVE.reset(self._token.pop())
+        active = _ACTIVE.get()
+        for k in range(len(active) - 1, -1, -1):
+            if active[k] is self:
+                _ACTIVE.set(active[:k] + active[k + 1:])
+                break
         return False
+
+    # -- copies: the lock is a property of the live object, not of its counts --------------
+    def __getstate__(self):
+        with self._lock:
+            state = dict(self.__dict__)
+        del state["_lock"]
+        state["by_purpose"] = Counter(state["by_purpose"])
+        return state
+
+    def __setstate__(self, state):
+        self.__dict__.update(state)
+        self._lock = threading.Lock()
+
+    def __deepcopy__(self, memo):
+        new = type(self).__new__(type(self))
+        new.__setstate__(copy.deepcopy(self.__getstate__(), memo))
+        return new
 
     def _add(self, circuits, settings, shots_per_setting, purposes):
         with self._lock:
@@ -118,5 +145,6 @@ def record(circuits: int, settings: int = 1, shots_per_setting: int = 0, purpose
     if not active:
         return
     purposes = Counter(purposes or {"value": circuits})
-    for book in active:
+    # a ledger nested in itself counts once
+    for book in dict.fromkeys(active):
         book._add(circuits, settings, shots_per_setting, purposes)

@@ -8,14 +8,52 @@ from __future__ import annotations
 import numpy as np
 
 from ..engine import memory
-from ..engine.branch import run_branched
-from ..engine.density import density_expectations, marginal, run_density
-from ..engine.measure import expectations
-from ..engine.measurement import apply_readout, measure, outcome_distribution, point_generators
-from ..engine.statevector import run
+from ..engine.branch import branched_states, run_branched
+from ..engine.density import density_expectations, density_states, marginal, run_density
+from ..engine.measure import expectation_scratch, expectations
+from ..engine.measurement import (apply_readout, measure, measure_scratch, outcome_distribution,
+                                  point_generators, probability_scratch)
+from ..engine.statevector import run, run_states
 from ..engine.threads import engine_threads
 
-__all__ = ["measure_rows_here"]
+__all__ = ["measure_rows_here", "peak_states", "guard_rows"]
+
+
+def peak_states(spec, rows: int) -> float:
+    """States (density matrices for a noisy circuit) that `measure_rows_here` holds at once
+    on a chunk of ``rows`` rows: the engine's run, or the final states with the readout's
+    scratch, whichever is larger. Each term is the estimate of the engine function that
+    allocates it."""
+    n = spec.circuit.n_qubits
+    noisy = spec.circuit.has_noise
+    if spec.kind != "expect":
+        scratch = probability_scratch(noisy)
+    elif spec.shots is not None or spec.readout is not None:
+        scratch = measure_scratch(n, spec.plan, density=noisy)
+    else:
+        scratch = 0.0 if noisy else expectation_scratch(n, spec.observables)
+    engine = rows * density_states() if noisy else (
+        branched_states(rows) if rows > 1 else run_states())
+    return max(engine, rows * (1.0 + scratch))
+
+
+def guard_rows(spec, rows: int, what: str = "evaluating") -> int:
+    """Refuse (`qgradlib.engine.memory.StateTooLarge`) a chunk of ``rows`` rows that cannot fit."""
+    c = spec.circuit
+    return memory.guard_states(c.n_qubits, peak_states(spec, rows), f"{what} {rows} circuit(s)",
+                               density=c.has_noise)
+
+
+def _chunk(spec, total):
+    """Rows per chunk: as many as fit in ``spec.memory`` (default a quarter of what is
+    available), at least one, and never more than fit in what is available."""
+    per_row = memory.state_bytes(spec.circuit.n_qubits, peak_states(spec, 2) / 2,
+                                 density=spec.circuit.has_noise) - memory.OVERHEAD
+    avail = memory.available_bytes()
+    budget = min(avail, spec.memory) if spec.memory is not None else avail // 4
+    chunk = max(1, min(total, (budget - memory.OVERHEAD) // max(per_row, 1)))
+    guard_rows(spec, chunk)
+    return chunk
 
 
 def measure_rows_here(phi, spec, inserts, errors=False, keep=False):
@@ -26,16 +64,15 @@ def measure_rows_here(phi, spec, inserts, errors=False, keep=False):
 
 
 def _measure_rows(phi, spec, inserts, errors, keep):
-    n = spec.circuit.n_qubits
     noisy = spec.circuit.has_noise
-    per_row = 3 * 16 * 2 ** (2 * n if noisy else n)
-    budget = spec.memory if spec.memory is not None else max(per_row, memory.available_bytes() // 4)
-    chunk = max(1, min(phi.shape[0], budget // per_row))
+    chunk = _chunk(spec, phi.shape[0])
     out = np.empty((phi.shape[0], spec.n_out))
     var = np.zeros_like(out)
+    states = None
     for lo in range(0, phi.shape[0], chunk):
         hi = min(lo + chunk, phi.shape[0])
         ins = None if inserts is None else inserts[lo:hi]
+        states = None           # the last chunk's states go before the next chunk's come
         if noisy:
             states = run_density(spec.circuit, phi[lo:hi], ins)
         else:

@@ -90,6 +90,8 @@ def column_terms(circuit, column: int, angles, *, shift=None, step=None, shots=N
     g = op.gate
     if g.kind == "generator":
         rule = g.rule_with_shift(shift)
+        if rule is None:       # a global phase: no expectation value depends on this angle
+            return []
         return [Term(column, float(s), None, float(c)) for s, c in zip(rule.shifts, rule.coefficients)]
     if g.kind == "hamiltonian":
         if shots is None:

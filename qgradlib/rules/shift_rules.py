@@ -13,11 +13,13 @@ from functools import lru_cache
 
 import numpy as np
 
-__all__ = ["ShiftRule", "frequencies_of", "rule_for_frequencies", "warn_approximate"]
+__all__ = ["ShiftRule", "frequencies_of", "rule_for_frequencies", "check_rule", "warn_approximate"]
 
-# Eigenvalue differences closer than this are one frequency: generators are given as
-# float64 matrices, whose eigenvalues carry rounding of about 1e-15 * norm.
+# Eigenvalue differences closer than this fraction of the spectrum's spread are one frequency;
+# below _ROUNDING times the largest eigenvalue they are rounding (float64 eigenvalues carry
+# about 1e-15 * norm), so a generator c * I (a global phase) has no frequency at all.
 _FREQ_TOL = 1e-8
+_ROUNDING = 64 * np.finfo(float).eps
 
 
 @dataclass(frozen=True, eq=False)
@@ -162,25 +164,63 @@ def _general_shifts(w: tuple):
 
 
 def frequencies_of(eigenvalues) -> np.ndarray:
-    """Distinct positive differences of ``eigenvalues`` (merged within 1e-8).
+    """Distinct positive differences of ``eigenvalues``.
+
+    Thresholds are relative to the spectrum: differences within 1e-8 of its spread are one
+    frequency, and differences at the rounding level of the largest eigenvalue are zero. So
+    ``1e-9 * Z/2`` has the frequency 1e-9, and a multiple of the identity has none.
 
     Examples
     --------
-    >>> import numpy as np
-    >>> from qgradlib.rules import frequencies_of
-    >>> frequencies_of(np.array([-0.5, 0.5])).tolist()          # RY's generator Y/2
-    [1.0]
-    >>> frequencies_of(np.array([0.0, 0.0, -0.5, 0.5])).tolist()   # CRX's: 0.5 and 1
-    [0.5, 1.0]
+    >>> frequencies_of([0.5e-9, -0.5e-9]).tolist()
+    [1e-09]
+    >>> frequencies_of([0.3, 0.3]).size
+    0
     """
     ev = np.asarray(eigenvalues, dtype=float).reshape(-1)
+    if ev.size == 0:
+        return np.zeros(0)
+    spread = float(ev.max() - ev.min())
+    zero = max(_FREQ_TOL * spread, _ROUNDING * float(np.abs(ev).max()))
     diffs = np.abs(ev[:, None] - ev[None, :]).reshape(-1)
-    diffs = np.sort(diffs[diffs > _FREQ_TOL])
+    diffs = np.sort(diffs[diffs > zero])
     out = []
     for d in diffs:
-        if not out or d - out[-1] > _FREQ_TOL * max(1.0, d):
+        if not out or d - out[-1] > _FREQ_TOL * d:
             out.append(d)
     return np.array(out)
+
+
+def check_rule(rule: ShiftRule, frequencies, name: str = "shift_rule") -> None:
+    """Refuse a rule that is not exact for every trigonometric polynomial of ``frequencies``.
+
+    Exact means ``sum_k c_k f(s_k) = f'(0)`` for ``f = 1``, ``cos(w x)`` and ``sin(w x)`` of
+    every frequency ``w``: ``sum c_k = 0``, ``sum c_k cos(w s_k) = 0`` and
+    ``sum c_k sin(w s_k) = w`` (an expectation value in the angle is such a polynomial).
+
+    Examples
+    --------
+    >>> check_rule(ShiftRule.two_term(1.0), [1.0])
+    >>> try:
+    ...     check_rule(ShiftRule.two_term(1.0), [1.0, 2.0])
+    ... except ValueError as err:
+    ...     print("for sin(2 x) it gives" in str(err))
+    True
+    """
+    w = np.asarray(frequencies, dtype=float).reshape(-1)
+    s, c = rule.shifts, rule.coefficients
+    size = float(np.sum(np.abs(c))) * max(1.0, float(np.max(np.abs(s) * w.max(initial=0.0), initial=0.0)))
+    tol = 1e-8 * max(size, float(w.max(initial=0.0)), 1e-300)
+    checks = [("1", float(np.sum(c)), 0.0)]
+    for wk in w:
+        checks.append((f"cos({wk:g} x)", float(c @ np.cos(wk * s)), 0.0))
+        checks.append((f"sin({wk:g} x)", float(c @ np.sin(wk * s)), float(wk)))
+    for what, got, want in checks:
+        if abs(got - want) > tol:
+            listed = ", ".join(f"{x:g}" for x in w)
+            raise ValueError(f"{name} is not exact for the gate's frequencies ({listed}): for {what} "
+                             f"it gives {got:.6g} instead of f'(0) = {want:g}; a rule must be exact "
+                             "for every frequency of the generator (rule_for_frequencies builds one)")
 
 
 def rule_for_frequencies(freqs, shift=None) -> ShiftRule:

@@ -101,7 +101,7 @@ def trig_stencil(frequencies, shifts, max_order: int) -> Stencil:
     K = _order(max_order)
     pts = [0.0]
     for s in np.asarray(shifts, dtype=float).reshape(-1):
-        if all(abs(s - p) > 1e-12 for p in pts):
+        if all(abs(s - p) > 1e-12 * max(abs(s), abs(p)) for p in pts):
             pts.append(float(s))
     n = 2 * w.size + 1
     extra = 1
@@ -148,6 +148,10 @@ def gate_stencil(gate, max_order: int, *, shift=None, step=None) -> Stencil:
     K = _order(max_order)
     if gate.kind == "generator":
         rule = gate.rule_with_shift(shift)
+        if rule is None:       # a global phase: every derivative is zero, no point is needed
+            W = np.zeros((K + 1, 1))
+            W[0, 0] = 1.0
+            return Stencil(np.zeros(1), _clean(W), True)
         # the interpolant needs the gate's true frequencies, whatever rule supplied the shifts
         return trig_stencil(gate.frequencies, rule.shifts, K)
     if gate.kind == "function":

@@ -214,7 +214,7 @@ def _shape(a, single, batched, axis=1):
 
 
 def estimate(circuit, observables, theta, *, shots, inputs=None, seed=None, allocation="uniform",
-             readout=None, memory=None, executor=None, chunk=None) -> Estimate:
+             readout=None, memory=None, executor=None, chunk=None, timeout=None) -> Estimate:
     """Finite-shot value(s) of ``observables`` after ``circuit``, with standard errors.
 
     Parameters
@@ -238,7 +238,9 @@ def estimate(circuit, observables, theta, *, shots, inputs=None, seed=None, allo
     executor : concurrent.futures.Executor or dask.distributed.Client, optional
         Where the circuits run, in chunks of ``chunk`` (see `qgradlib.evaluation.distribute`); the same
         seed gives the same numbers as a serial run.
-    chunk : int, optional
+    chunk, timeout : optional
+        Circuits per task on ``executor``, and seconds to wait for the tasks of one batch
+        (as in `qgradlib.expect`).
 
     Returns
     -------
@@ -260,7 +262,7 @@ def estimate(circuit, observables, theta, *, shots, inputs=None, seed=None, allo
     """
     spec, single, batched, phi = _prepare(circuit, observables, theta, shots, seed, allocation,
                                           readout, inputs, memory_budget=memory, executor=executor,
-                                          chunk=chunk)
+                                          chunk=chunk, timeout=timeout)
     P = phi.shape[0]
     ledger.record(P, spec.settings, spec.shots, {"value": P})
     mean, var = distribute.measure_rows(phi, spec, None, errors=True)
@@ -274,7 +276,7 @@ def estimate(circuit, observables, theta, *, shots, inputs=None, seed=None, allo
 
 def estimate_gradient(circuit, observables, theta, *, shots, inputs=None, seed=None,
                       allocation="uniform", readout=None, shift=None, splits=1, memory=None,
-                      executor=None, chunk=None) -> GradientEstimate:
+                      executor=None, chunk=None, timeout=None) -> GradientEstimate:
     """Finite-shot parameter-shift gradient of ``observables`` with standard errors.
 
     Every trainable gate angle is differentiated by its shift rule (two-term, equidistant,
@@ -284,7 +286,8 @@ def estimate_gradient(circuit, observables, theta, *, shots, inputs=None, seed=N
 
     Parameters
     ----------
-    circuit, observables, theta, shots, inputs, seed, allocation, readout, memory, executor, chunk
+    circuit, observables, theta, shots, inputs, seed, allocation, readout, memory, executor, chunk,
+    timeout
         As in `estimate`; ``shots`` is per setting of every shifted circuit. With a data set
         ``inputs`` the gradient over the weights is per data point, (N, n_params); the
         feature angles are never shifted.
@@ -309,7 +312,8 @@ def estimate_gradient(circuit, observables, theta, *, shots, inputs=None, seed=N
     """
     spec, single, batched, phi = _prepare(circuit, observables, theta, shots, seed, allocation,
                                           readout, inputs, shift=shift, splits=splits,
-                                          memory_budget=memory, executor=executor, chunk=chunk)
+                                          memory_budget=memory, executor=executor, chunk=chunk,
+                                          timeout=timeout)
     P, K, m = phi.shape[0], spec.n_out, circuit.n_params
     points, inserts, coeff, names = first_order_points(circuit, phi, None, spec.columns,
                                                        **spec.rule_options())

@@ -206,7 +206,7 @@ def minimize(cost, theta0, *, method="adam", steps=100, callback=None, progress=
 
 def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=None, seed=None,
                          steps=100, callback=None, progress=None, executor=None, chunk=None,
-                         **options):
+                         timeout=None, **options):
     """Minimise ``expect(circuit, observable, theta)`` over ``theta``.
 
     Parameters
@@ -225,9 +225,10 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
         Most updates; for "rotosolve" a step is one sweep through all parameters.
     callback, progress
         As in `minimize`.
-    executor, chunk
+    executor, chunk, timeout
         Where the circuits of every value, gradient, metric and Hessian run (see
         `qgradlib.evaluation.distribute`); the numbers and the ledger are those of a serial run.
+        ``timeout`` bounds the wait for each evaluation's tasks (a `qgradlib.ChunkError` past it).
     **options
         Those of `minimize`, plus ``gradient="shift"`` ("adjoint", "difference") for gd,
         adam and natural, and: natural ``rate=0.05, regulariser=1e-3,
@@ -298,7 +299,7 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
     if gradient not in _GRADIENTS:
         raise ValueError(f"gradient must be one of {_GRADIENTS}; got {gradient!r}")
 
-    where = {"executor": executor, "chunk": chunk}
+    where = {"executor": executor, "chunk": chunk, "timeout": timeout}
 
     def cost(t):
         return expect(circuit, observable, t, shots=shots, seed=rng, gradient=gradient, **where)
@@ -413,7 +414,7 @@ class _Problem:
         self.value_and_grad = value_and_grad
         self.values = values
         self.circuit_parts = circuit_parts
-        self.where = where or {}      # executor= and chunk= for the circuit evaluations
+        self.where = where or {}      # executor=, chunk=, timeout= for the circuit evaluations
 
 
 class _Trace:
