@@ -11,6 +11,7 @@ from autograd import grad
 
 import qgradlib as qg
 
+from . import data_sets
 from .circuits import angles, ising, ising_terms, layered
 from .plain_sim import layered_energy
 from .timing import paired, summary
@@ -21,10 +22,10 @@ __all__ = ["FIGURES", "SIZES"]
 SIZES = {
     "full": {"gate_n": 22, "gate_layers": 2, "adj_n": 16, "adj_layers": 4, "shift_n": 10,
              "shift_layers": 4, "fwd_mem_n": 26, "adj_mem_n": 24, "mem_layers": 1,
-             "overhead_layers": 300, "min_time": 0.05},
+             "overhead_layers": 300, "min_time": 0.05, "data_n": 8, "data_N": 256, "data_m": 48},
     "quick": {"gate_n": 12, "gate_layers": 2, "adj_n": 8, "adj_layers": 4, "shift_n": 6,
               "shift_layers": 4, "fwd_mem_n": 12, "adj_mem_n": 10, "mem_layers": 1,
-              "overhead_layers": 20, "min_time": 0.002},
+              "overhead_layers": 20, "min_time": 0.002, "data_n": 3, "data_N": 8, "data_m": 6},
 }
 
 
@@ -137,5 +138,17 @@ def overhead(sz, repeats):
                    per_gate_over_ufunc_call=float(np.median(t / G / b)))
 
 
+def batch_adjoint(sz, repeats):
+    return data_sets.batch_adjoint(sz, repeats, _result)
+
+
+def batch_shift(sz, repeats):
+    return data_sets.batch_shift(sz, repeats, _result)
+
+
+def kernel_gram(sz, repeats):
+    return data_sets.kernel_gram(sz, repeats, _result)
+
+
 FIGURES = [gate_pass, adjoint_forward, shift_forward, backprop_adjoint, forward_memory,
-           adjoint_memory, overhead]
+           adjoint_memory, overhead, batch_adjoint, batch_shift, kernel_gram]

@@ -7,7 +7,7 @@ import sys
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 KEYS = {"gate_pass", "adjoint_forward", "shift_forward", "backprop_adjoint", "forward_memory",
-        "adjoint_memory", "overhead_n4"}
+        "adjoint_memory", "overhead_n4", "batch_adjoint", "batch_shift", "kernel_gram"}
 
 
 def test_quick_suite_writes_every_figure(tmp_path):

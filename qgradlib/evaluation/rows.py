@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..engine import memory
-from ..engine.branch import run_branched
+from ..engine.branch import run_branched, run_prefix_tree
 from ..engine.density import density_expectations, marginal, run_density
 from ..engine.measure import expectations
 from ..engine.measurement import apply_readout, measure, outcome_distribution, point_generators
@@ -36,6 +36,9 @@ def measure_rows_here(phi, spec, inserts, errors=False, keep=False):
             # rows that share a prefix of angles (the points of a shift plan) run as branches
             # of one trunk; a device would still run each circuit (the ledger counted them)
             states = run_branched(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse)
+            if states is None and ins is None:
+                # rows of many data points: a tree of shared prefixes, one per point
+                states = run_prefix_tree(spec.circuit, phi[lo:hi], fuse=spec.fuse)
             if states is None:
                 states = run(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse)
         out[lo:hi], var[lo:hi] = _readout(states, spec, noisy)
