@@ -146,15 +146,7 @@ def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2):
         else:
             sub_table = [(v if v.shape[1] == 1 else v[:, :a], sh) for v, sh in table]
             m = step_matrix(s, sub_table, a)
-        if s.kind == "diag":
-            kernels.apply_diag(cur[:a], n, m, s.qubits)
-        elif s.kind == "mono":
-            kernels.apply_monomial(cur[:a], n, s.mono, m[np.arange(m.shape[-1]), s.mono],
-                                   s.qubits, other[:a])
-            cur, other = other, cur
-        else:
-            kernels.apply_dense(cur[:a], n, m, s.qubits, other[:a], real=s.real)
-            cur, other = other, cur
+        cur, other = _fused_step(s, m, cur, other, a, n)
     out = np.empty((P, 2 ** n), dtype=complex)
     out[order] = cur[1:active]
     out[is_ref] = cur[0]
@@ -262,13 +254,19 @@ def run_prefix_tree(circuit, phi, *, fuse=None, min_saving=0.2):
                 cur, other = other, cur
             continue
         m = s.matrix if s.matrix is not None else step_matrix(s, table, a)
-        if s.kind == "diag":
-            kernels.apply_diag(cur[:a], n, m, s.qubits)
-        elif s.kind == "mono":
-            kernels.apply_monomial(cur[:a], n, s.mono, m[np.arange(m.shape[-1]), s.mono],
-                                   s.qubits, other[:a])
-            cur, other = other, cur
-        else:
-            kernels.apply_dense(cur[:a], n, m, s.qubits, other[:a], real=s.real)
-            cur, other = other, cur
+        cur, other = _fused_step(s, m, cur, other, a, n)
     return cur[node]
+
+
+def _fused_step(s, m, cur, other, a, n):
+    """Apply step ``s`` with matrix (or diagonal) ``m`` to the first ``a`` rows of ``cur``;
+    returns ``(cur, other)``, swapped when the result landed in ``other``."""
+    if s.kind == "diag":
+        kernels.apply_diag(cur[:a], n, m, s.qubits)
+        return cur, other
+    if s.kind == "mono":
+        kernels.apply_monomial(cur[:a], n, s.mono, m[np.arange(m.shape[-1]), s.mono],
+                               s.qubits, other[:a])
+    else:
+        kernels.apply_dense(cur[:a], n, m, s.qubits, other[:a], real=s.real)
+    return other, cur
