@@ -12,7 +12,7 @@ from autograd import grad, hessian
 
 import qgradlib as qg
 
-from . import jax_sim
+from . import data_sets, jax_sim
 from .circuits import angles, ising, ising_terms, layered, ring
 from .plain_sim import layered_energy
 from .timing import paired, summary
@@ -28,11 +28,11 @@ SIZES = {
              "shift_layers": 4, "fwd_mem_n": 26, "adj_mem_n": 24, "mem_layers": 1,
              "overhead_layers": 300, "hess_n": 6, "hess_layers": 5, "min_time": 0.05, "roto_layers": 50,
              "jax_qubits": [4, 6, 8, 10, 12, 14, 16], "jax_layers": 3, "jax_shift": (6, 5),
-             "first": (10, 5)},
+             "first": (10, 5), "data_n": 8, "data_N": 256, "data_m": 48},
     "quick": {"gate_n": 12, "gate_layers": 2, "adj_n": 8, "adj_layers": 4, "shift_n": 6,
               "shift_layers": 4, "fwd_mem_n": 12, "adj_mem_n": 10, "mem_layers": 1,
               "overhead_layers": 20, "hess_n": 3, "hess_layers": 2, "min_time": 0.002, "roto_layers": 2,
-              "jax_qubits": [3], "jax_layers": 1, "jax_shift": (3, 1), "first": (4, 1)},
+              "jax_qubits": [3], "jax_layers": 1, "jax_shift": (3, 1), "first": (4, 1), "data_n": 3, "data_N": 8, "data_m": 6},
 }
 
 
@@ -308,6 +308,18 @@ def first_gradient(sz, repeats):
                    f"n = {n}, m = {n * L}", 3.0, "<=", ratios, **details)
 
 
+def batch_adjoint(sz, repeats):
+    return data_sets.batch_adjoint(sz, repeats, _result)
+
+
+def batch_shift(sz, repeats):
+    return data_sets.batch_shift(sz, repeats, _result)
+
+
+def kernel_gram(sz, repeats):
+    return data_sets.kernel_gram(sz, repeats, _result)
+
+
 FIGURES = [gate_pass, adjoint_forward, shift_forward, backprop_adjoint, hessian_adjoint, forward_memory,
            adjoint_memory, overhead, import_time, rotosolve_sweep, jax_adjoint, jax_shift,
-           first_gradient]
+           first_gradient, batch_adjoint, batch_shift, kernel_gram]

@@ -1,9 +1,13 @@
-"""The demo scenario: bench ring R6.
+"""The demo scenarios: bench ring R6, and the greenhouse G7 sensor readings.
 
 An invented lab bench, code R6, holds six coupled qubits on a ring. Neighbours
 couple through ZZ and every qubit is driven transversally; the lab wants the ring's ground
 state prepared by a shallow layered circuit before it books device time. The numbers are
 ours (J = 1.0, g = 0.7 in units of the coupling) and describe no real device.
+
+An invented greenhouse, hall G7, has humidity sensors that drift as they age; each reading is
+two numbers (a humidity and a temperature offset), labelled sound (0) or drifting (1). The
+readings are generated here: drifting sensors sit on a ring around the sound ones.
 
 Everything here is simulation: energies and gradients are exact statevector results (or
 simulated shot noise), not measurements on hardware.
@@ -18,7 +22,8 @@ from .circuits import channels
 from .circuits.circuit import Circuit
 from .circuits.observables import Observable
 
-__all__ = ["Scenario", "bench_ring"]
+__all__ = ["Scenario", "bench_ring", "DataScenario", "greenhouse", "sensor_readings",
+           "reuploading_classifier", "angle_feature_map"]
 
 
 @dataclass(frozen=True)
@@ -97,3 +102,73 @@ def bench_ring(n: int = 6, layers: int | None = None, seed: int = 7) -> Scenario
         noise=0.01,
         shots=1000,
     )
+
+
+@dataclass(frozen=True)
+class DataScenario:
+    """A two-class data set with a model circuit and a feature circuit for a kernel."""
+
+    name: str
+    story: str
+    X_train: np.ndarray
+    y_train: np.ndarray
+    X_test: np.ndarray
+    y_test: np.ndarray
+    model: Circuit
+    observable: Observable
+    feature: Circuit
+    theta0: np.ndarray
+
+
+def sensor_readings(n: int, rng) -> tuple:
+    """``n`` invented readings (n, 2) and labels (n,): 0 sound (near the origin), 1 drifting
+    (on a ring of radius 1.1 to 1.6), with a little measurement jitter."""
+    label = rng.integers(0, 2, size=n)
+    radius = np.where(label == 1, rng.uniform(1.1, 1.6, n), rng.uniform(0.0, 0.7, n))
+    angle = rng.uniform(0, 2 * np.pi, n)
+    X = np.stack([radius * np.cos(angle), radius * np.sin(angle)], axis=1)
+    return X + rng.normal(0, 0.05, X.shape), label
+
+
+def reuploading_classifier(layers: int = 3) -> Circuit:
+    """Two qubits; each layer uploads both features (RY), then four weights and a CZ."""
+    c = Circuit(2)
+    for _ in range(layers):
+        c.ry(0, input=0).ry(1, input=1)
+        c.rz(0).rz(1).ry(0).ry(1)
+        c.cz(0, 1)
+    return c
+
+
+def angle_feature_map(layers: int = 2) -> Circuit:
+    """A feature circuit for the fidelity kernel: H, RZ(x_k), RZZ(0.3 x_k), repeated."""
+    c = Circuit(2)
+    for _ in range(layers):
+        c.h(0).h(1)
+        c.rz(0, input=0).rz(1, input=1)
+        c.rzz(0, 1, input=0, scale=0.3).rzz(0, 1, input=1, scale=0.3)
+    return c
+
+
+def greenhouse(n_train: int = 60, n_test: int = 40, seed: int = 11) -> DataScenario:
+    """The greenhouse G7 scenario: sensor readings, a re-uploading classifier read out as
+    ``p(drifting) = (1 - <Z0>) / 2``, and a feature circuit for a kernel classifier.
+
+    Examples
+    --------
+    >>> sc = greenhouse(20, 10)
+    >>> sc.X_train.shape, sc.model.n_params, sc.model.n_inputs
+    ((20, 2), 12, 2)
+    """
+    rng = np.random.default_rng(seed)
+    X_train, y_train = sensor_readings(n_train, rng)
+    X_test, y_test = sensor_readings(n_test, rng)
+    model = reuploading_classifier()
+    return DataScenario(
+        name="greenhouse G7 sensor readings",
+        story=(f"{n_train} labelled readings for training, {n_test} for testing, from the "
+               "invented humidity sensors of greenhouse hall G7 (two features each; class 1: "
+               "drifting)"),
+        X_train=X_train, y_train=y_train, X_test=X_test, y_test=y_test,
+        model=model, observable=Observable({"ZI": 1.0}), feature=angle_feature_map(),
+        theta0=np.random.default_rng(seed + 1).normal(0, 0.5, model.n_params))

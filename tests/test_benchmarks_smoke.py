@@ -8,7 +8,8 @@ import sys
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 KEYS = {"gate_pass", "adjoint_forward", "shift_forward", "backprop_adjoint", "hessian_adjoint",
         "forward_memory",
-        "adjoint_memory", "overhead_n4", "import_time", "rotosolve_sweep", "first_gradient"}
+        "adjoint_memory", "overhead_n4", "import_time", "rotosolve_sweep", "first_gradient",
+        "batch_adjoint", "batch_shift", "kernel_gram"}
 # the JAX comparison rows: skipped here (--no-jax keeps the run short and JAX optional), with
 # the reason in place of the figures
 JAX_KEYS = {"jax_adjoint_n3", "jax_shift"}

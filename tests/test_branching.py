@@ -10,7 +10,7 @@ from autograd import grad
 from hypothesis import given, strategies as st
 
 import qgradlib as qg
-from qgradlib.engine.branch import divergence, run_branched
+from qgradlib.engine.branch import divergence, prefix_tree, run_branched, run_prefix_tree
 from qgradlib.engine.statevector import run
 from qgradlib.rules.plans import first_order_points
 
@@ -112,3 +112,69 @@ def test_fused_gate_moved_ahead_of_a_branch_point_is_not_shared():
     points = np.asarray(points)
     got = run_branched(c, points, ins, min_saving=0.0)
     assert np.max(np.abs(got - run(c, points, ins, fuse=False))) <= 1e-12
+
+
+# -- a tree of prefixes: shift plans over a data set ------------------------------------------
+def _data_plan(c, N, seed):
+    rng = np.random.default_rng(seed)
+    X = rng.normal(size=(N, c.n_inputs))
+    phi = np.atleast_2d(c.angles(rng.normal(size=c.n_params), inputs=X))
+    cols = [k for k, op in enumerate(c.parametric_operations) if op.param is not None]
+    return np.asarray(first_order_points(c, phi, None, cols)[0])
+
+
+def _uploading(n, layers):
+    c = qg.Circuit(n)
+    for _ in range(layers):
+        for q in range(n):
+            c.ry(q, input=q)
+        for q in range(n):
+            c.rz(q).rx(q)
+        for q in range(n - 1):
+            c.cnot(q, q + 1)
+    return c
+
+
+@given(st.integers(1, 4), st.integers(1, 3), st.integers(1, 6), st.booleans(), st.integers(0, 2 ** 31))
+def test_prefix_tree_rows_equal_separate_runs(n, layers, N, fuse, seed):
+    # reference: the unbranched run of each row (no sharing at all)
+    c = _uploading(n, layers)
+    points = _data_plan(c, N, seed)
+    got = run_prefix_tree(c, points, fuse=fuse, min_saving=0.0)
+    assert got is not None
+    assert np.max(np.abs(got - run(c, points, fuse=False))) <= 1e-12
+
+
+def test_prefix_tree_shares_each_data_points_prefix_and_skips_unrelated_rows():
+    c = _uploading(3, 2)
+    points = _data_plan(c, 5, seed=1)
+    # one reference row cannot serve rows of different data points; the tree can
+    assert run_branched(c, points) is None
+    assert run_prefix_tree(c, points) is not None
+    rows = np.random.default_rng(2).normal(size=(8, len(c.parametric_operations)))
+    assert run_prefix_tree(c, rows) is None         # no two rows share a first angle
+    tree = prefix_tree(np.array([[0.0, 1.0], [0.0, 2.0], [0.5, 1.0], [0.5, 1.0]]))
+    assert tree[2] == tree[3] and len(set(tree.tolist())) == 3
+
+
+def test_data_set_gradient_values_unchanged_by_the_tree(monkeypatch):
+    # the same gradient and ledger with the tree switched off (plain runs)
+    import qgradlib.evaluation.rows as rows
+    from autograd import numpy as anp
+
+    c = _uploading(3, 2)
+    X = np.random.default_rng(4).normal(size=(6, 3))
+    theta = np.random.default_rng(5).normal(size=c.n_params)
+    H = qg.Observable({"ZII": 1.0, "IXZ": 0.5})
+    f = lambda t: anp.sum(qg.expect(c, H, t, inputs=X))  # noqa: E731
+    calls = []
+    real = rows.run_prefix_tree
+    monkeypatch.setattr(rows, "run_prefix_tree", lambda *a, **k: calls.append(1) or real(*a, **k))
+    with qg.Ledger() as on:
+        g_on = grad(f)(theta)
+    assert calls
+    monkeypatch.setattr(rows, "run_prefix_tree", lambda *a, **k: None)
+    with qg.Ledger() as off:
+        g_off = grad(f)(theta)
+    np.testing.assert_allclose(g_on, g_off, atol=1e-12)
+    assert on.executions == off.executions

@@ -107,3 +107,14 @@ def test_demo_shows_the_number_of_measurement_settings_and_sensible_timings(demo
     for t in times:
         digits = t.replace(".", "").lstrip("0")
         assert len(digits) <= 3, t
+
+
+def test_greenhouse_demo_trains_a_classifier_and_prices_it(capsys):
+    assert main(["demo", "--scenario", "greenhouse", "--steps", "5"]) == 0
+    out = capsys.readouterr().out
+    assert "greenhouse G7" in out and "not device measurements" in out
+    # common practice: 2 m N shifted circuits + N values per mini-batch gradient (m = 12, N = 15)
+    assert f"{6 * (2 * 12 * 15 + 15):,} circuits" in out
+    # one compute-uncompute circuit per Gram entry above the diagonal, N M against the test set
+    assert f"{60 * 59 // 2 + 40 * 60:,} compute-uncompute circuits" in out
+    assert not RETIRED_NAMES.findall(out)

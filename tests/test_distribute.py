@@ -17,6 +17,7 @@ from scipy.linalg import expm
 
 import qgradlib as qg
 from qgradlib import curvature, gates
+from qgradlib.evaluation import distribute
 from qgradlib.evaluation.distribute import ChunkError
 from reference import curv_dense as ref
 
@@ -312,7 +313,8 @@ class Tampering(Executor):
             result = (start, sums[::-1], values[::-1])
         elif self.how == "swap" and self.calls == 1:
             args = list(args)
-            args[1] = args[1][::-1]              # the rows ran in another order
+            k = 2 if fn is distribute.in_worker else 1   # the angles follow the task and payload
+            args[k] = args[k][::-1]              # the rows ran in another order
             result = fn(*args, **kwargs)
         fut.set_result(result)
         return fut

@@ -8,6 +8,10 @@ branch off as copies of the reference state, and from there on every active row 
 by the same kernel calls, in one batch. The rows' states come out exactly as separate runs
 would give them (up to rounding): only the order of the work changes.
 
+Rows of many data points share no reference (their feature angles differ from the first
+gate on), but each data point's shifted rows still share its prefix: `run_prefix_tree` then
+follows every distinct prefix of angles, a tree instead of one trunk.
+
 A device would still run every circuit: the ledger counts them before this point.
 """
 from __future__ import annotations
@@ -21,7 +25,7 @@ from . import kernels
 from .program import program, step_matrix
 from .statevector import _external, _solo, _table, zero_states
 
-__all__ = ["divergence", "run_branched", "branched_states"]
+__all__ = ["divergence", "run_branched", "branched_states", "prefix_tree", "run_prefix_tree"]
 
 
 def _reference(phi, inserts):
@@ -164,16 +168,127 @@ def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2):
         else:
             sub_table = [(v if v.shape[1] == 1 else v[:, :a], sh) for v, sh in table]
             m = step_matrix(s, sub_table, a)
-        if s.kind == "diag":
-            kernels.apply_diag(cur[:a], n, m, s.qubits)
-        elif s.kind == "mono":
-            kernels.apply_monomial(cur[:a], n, s.mono, m[np.arange(m.shape[-1]), s.mono],
-                                   s.qubits, other[:a])
-            cur, other = other, cur
-        else:
-            kernels.apply_dense(cur[:a], n, m, s.qubits, other[:a], real=s.real)
-            cur, other = other, cur
+        cur, other = _fused_step(s, m, cur, other, a, n)
     out = np.empty((P, 2 ** n), dtype=complex)
     out[order] = cur[1:active]
     out[is_ref] = cur[0]
     return out
+
+
+def _split(node, values, count):
+    """Rows at prefix ``node`` (P,) split by their next angle ``values`` (P,).
+
+    A prefix's first child keeps its buffer row and the others are appended after ``count``,
+    so the trunk is copied only where rows diverge. Returns ``(parents of the appended
+    rows, a representative row for every buffer row, new count, new node of every row)``.
+    """
+    vals, code = np.unique(values, return_inverse=True)
+    key = node * vals.size + code.reshape(-1)
+    uniq, first, inv = np.unique(key, return_index=True, return_inverse=True)
+    parent = uniq // vals.size
+    stays = np.ones(uniq.size, dtype=bool)
+    stays[1:] = parent[1:] != parent[:-1]
+    where = np.empty(uniq.size, dtype=np.int64)
+    where[stays] = parent[stays]
+    extra = np.flatnonzero(~stays)
+    where[extra] = count + np.arange(extra.size)
+    reps = np.empty(count + extra.size, dtype=np.int64)
+    reps[where] = first
+    return parent[extra], reps, count + extra.size, where[inv.reshape(-1)]
+
+
+def prefix_tree(phi):
+    """Buffer row of every row of ``phi`` (P, G) in a tree of its distinct angle prefixes.
+
+    Rows with the same angles in columns 0..j share one buffer row up to column j.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> prefix_tree(np.array([[0.0, 1.0], [0.0, 2.0], [0.5, 1.0], [0.5, 1.0]])).tolist()
+    [0, 2, 1, 1]
+    """
+    node, count = np.zeros(phi.shape[0], dtype=np.int64), 1
+    for j in np.flatnonzero(np.any(phi != phi[:1], axis=0)):
+        _, _, count, node = _split(node, phi[:, j], count)
+    return node
+
+
+def run_prefix_tree(circuit, phi, *, fuse=None, min_saving=0.2):
+    """Final states (P, 2**n) of the rows of ``phi`` through a tree of shared angle prefixes;
+    None when it would save less than ``min_saving`` of the work.
+
+    Where `run_branched` follows one reference row, this follows every distinct prefix: the
+    rows of a shift plan over a data set share, data point by data point, every gate before
+    their shifted one, though no two data points share a first angle. All prefixes alive at a
+    gate are updated by one kernel call, as one batch; the states come out as separate runs
+    would give them (up to rounding). The plan is abandoned as soon as its work is sure to
+    exceed the limit (a batch of unrelated rows: at the first varying column).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.engine.statevector import run
+    >>> c = qg.Circuit(2).ry(0).ry(1).cz(0, 1).ry(0).ry(1)
+    >>> base = np.array([[0.1, 0.2, 0.3, 0.4], [0.5, 0.6, 0.7, 0.8]])
+    >>> shifts = np.vstack([np.eye(4)[2:], -np.eye(4)[2:]]) * np.pi / 2
+    >>> rows = (base[:, None, :] + shifts[None]).reshape(-1, 4)
+    >>> bool(np.allclose(run_prefix_tree(c, rows, min_saving=0.0), run(c, rows)))
+    True
+    """
+    phi = np.asarray(phi, dtype=float)
+    P, G = phi.shape
+    if P < 2 or G == 0:
+        return None
+    fuse = True if fuse is None else bool(fuse)
+    shared = np.all(phi == phi[:1], axis=0)
+    prog = program(circuit, fuse, frozenset(np.flatnonzero(~shared).tolist()),
+                   bake_fixed_angles=False)
+    steps = prog.steps
+    S = len(steps)
+    limit = (1.0 - min_saving) * P * S
+    # the tree, step by step; each step's work is the prefixes alive at it (they only grow)
+    splits, node, count, work = {}, np.zeros(P, dtype=np.int64), 1, 0
+    for i, s in enumerate(steps):
+        if s.kind == "solo" and s.column is not None and not shared[s.column]:
+            parents, reps, count, node = _split(node, phi[:, s.column], count)
+            splits[i] = (parents, reps, count)
+        work += count
+        if work + count * (S - 1 - i) > limit:
+            return None
+    n = circuit.n_qubits
+    cur = zero_states(n, count)
+    other = np.empty_like(cur)
+    table = _table(prog, phi[:1], np.ones(G, dtype=bool))
+    a, rows = 1, phi[:1]
+    for i, s in enumerate(steps):
+        if i in splits:
+            parents, reps, new = splits[i]
+            cur[a:new] = cur[parents]
+            a, rows = new, phi[reps]
+        if s.kind == "external":
+            cur[:a] = _external(s, cur[:a], n)
+            continue
+        if s.kind == "solo":
+            res, _ = _solo(s, cur[:a], other[:a], n, rows, None, shared)
+            if np.shares_memory(res, other):
+                cur, other = other, cur
+            continue
+        m = s.matrix if s.matrix is not None else step_matrix(s, table, a)
+        cur, other = _fused_step(s, m, cur, other, a, n)
+    return cur[node]
+
+
+def _fused_step(s, m, cur, other, a, n):
+    """Apply step ``s`` with matrix (or diagonal) ``m`` to the first ``a`` rows of ``cur``;
+    returns ``(cur, other)``, swapped when the result landed in ``other``."""
+    if s.kind == "diag":
+        kernels.apply_diag(cur[:a], n, m, s.qubits)
+        return cur, other
+    if s.kind == "mono":
+        kernels.apply_monomial(cur[:a], n, s.mono, m[np.arange(m.shape[-1]), s.mono],
+                               s.qubits, other[:a])
+    else:
+        kernels.apply_dense(cur[:a], n, m, s.qubits, other[:a], real=s.real)
+    return other, cur

@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..engine import memory
-from ..engine.branch import branched_states, run_branched
+from ..engine.branch import branched_states, run_branched, run_prefix_tree
 from ..engine.density import density_expectations, density_states, marginal, run_density
 from ..engine.measure import expectation_scratch, expectations
 from ..engine.measurement import (apply_readout, measure, measure_scratch, outcome_distribution,
@@ -79,6 +79,9 @@ def _measure_rows(phi, spec, inserts, errors, keep):
             # rows that share a prefix of angles (the points of a shift plan) run as branches
             # of one trunk; a device would still run each circuit (the ledger counted them)
             states = run_branched(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse)
+            if states is None and ins is None:
+                # rows of many data points: a tree of shared prefixes, one per point
+                states = run_prefix_tree(spec.circuit, phi[lo:hi], fuse=spec.fuse)
             if states is None:
                 states = run(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse)
         out[lo:hi], var[lo:hi] = _readout(states, spec, noisy)
