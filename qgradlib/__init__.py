@@ -1,5 +1,5 @@
 """qgradlib: parameter-shift gradients, curvature and shot accounting for quantum circuits."""
-from . import check, curvature, shots
+from . import check, curvature, landscape, shots
 from .circuits import Channel, Circuit, Gate, Observable, Operation, channels, gates
 from .evaluation import (ChunkError, Ledger, density_matrix, distribute, expect, probabilities,
                          sample, state)
@@ -13,7 +13,7 @@ __all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", 
            "probabilities", "state", "sample", "gates", "__version__",
            "Channel", "channels", "density_matrix", "estimate", "estimate_gradient", "Estimate",
            "GradientEstimate", "check", "curvature", "models", "optimize", "workflows", "plot",
-           "distribute", "ChunkError", "shots"]
+           "distribute", "ChunkError", "shots", "landscape"]
 
 
 def __getattr__(name):

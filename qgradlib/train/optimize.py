@@ -14,7 +14,8 @@ sinusoidal shape of the cost in each parameter.
 - ``"newton"`` (needs the circuit): ``x - rate * (H + mu I)^-1 g`` with the shift-rule
   Hessian H and Levenberg-Marquardt damping mu;
 - ``"rotosolve"`` (needs the circuit): the exact minimum in one parameter at a time from three
-  evaluations (Ostaszewski, Grant and Benedetti, Quantum 5, 391 (2021)).
+  evaluations (Ostaszewski, Grant and Benedetti, Quantum 5, 391 (2021)), or 2R + 1 for a
+  parameter with R frequencies (Wierichs, Izaac, Wang and Lin, Quantum 6, 677 (2022)).
 
 Every run is wrapped in a `qgradlib.Ledger`: the result carries the executions and shots a
 device would have needed, besides ``x, fun, jac, nit, success, status, message`` and a
@@ -198,13 +199,16 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
     multiplied by 10 after a refused one (Levenberg-Marquardt). Where H has a negative
     eigenvalue ``l``, ``mu - l`` is used so that the step is a descent direction.
 
-    "rotosolve" visits each parameter in turn and sets it to the exact minimum of
-    ``A + B cos(w t) + C sin(w t)`` found from the cost at ``t`` and ``t +- pi / (2 w)``.
-    It is refused (ValueError) when a parameter drives several gates or a gate with several
-    frequencies. Exact runs reuse the closed-form minimum as the next parameter's value at
-    ``t`` (two evaluations per parameter); with shots it is evaluated afresh (three).
-    Its "grad_norm" at step k is the norm of the slopes ``w C`` met during sweep k + 1 (the
-    point moves between parameters); the last entry is the gradient at ``x``.
+    "rotosolve" visits each parameter in turn and sets it to the exact minimum of the cost
+    in it. For a parameter driving one single-frequency gate that is ``A + B cos(w t) + C
+    sin(w t)``, found from the cost at ``t`` and ``t +- pi / (2 w)``; a parameter shared by
+    several gates, or driving a gate with several frequencies, has R frequencies and is
+    reconstructed from 2R + 1 values (`qgradlib.train.rotosolve.coordinate_minimum`;
+    Wierichs, Izaac, Wang and Lin, Quantum 6, 677 (2022)). Gates without a finite spectrum
+    (Hamiltonian gates) are refused (ValueError). Exact runs reuse the minimum as the next
+    parameter's value at ``t`` (2R evaluations per parameter); with shots it is evaluated
+    afresh (2R + 1). Its "grad_norm" at step k is the norm of the slopes met during sweep
+    k + 1 (the point moves between parameters); the last entry is the gradient at ``x``.
 
     Examples
     --------
@@ -510,6 +514,8 @@ def _newton(problem, x, steps, trace, o):
 
 
 def _rotosolve(problem, x, steps, trace, o):
+    from ..rules.shift_rules import rule_for_frequencies
+
     circuit = problem.circuit_parts[0]
     exact = problem.circuit_parts[2] is None
     freqs = _roto.frequencies_by_parameter(circuit)
@@ -522,10 +528,18 @@ def _rotosolve(problem, x, steps, trace, o):
         for p in active:
             if not exact and p != active[0]:
                 e = float(problem.values(x[None])[0])
-            h = np.zeros(x.size)
-            h[p] = np.pi / (2 * freqs[p])
-            ep, em = problem.values(np.stack([x + h, x - h]))
-            x[p], e, slopes[p] = _roto.sinusoid_minimum(e, ep, em, x[p], freqs[p])
+            w = freqs[p]
+            if w.size == 1:
+                h = np.zeros(x.size)
+                h[p] = np.pi / (2 * w[0])
+                ep, em = problem.values(np.stack([x + h, x - h]))
+                x[p], e, slopes[p] = _roto.sinusoid_minimum(e, ep, em, x[p], w[0])
+            else:
+                def along(t, p=p):
+                    X = np.repeat(x[None], np.size(t), axis=0)
+                    X[:, p] = t
+                    return problem.values(X)
+                x[p], e, slopes[p] = _roto.coordinate_minimum(along, x[p], w, e)
         gn = float(np.linalg.norm(slopes))
         trace.record(e_start, gn)
         k += 1
@@ -535,14 +549,19 @@ def _rotosolve(problem, x, steps, trace, o):
         if o["tol"] > 0 and gn <= o["tol"]:
             status = 0
             break
-    # the gradient at the final point by the two-term rule, batched with its value
-    shifts = np.zeros((2 * len(active), x.size))
-    for i, p in enumerate(active):
-        shifts[2 * i, p] = np.pi / (2 * freqs[p])
-        shifts[2 * i + 1, p] = -np.pi / (2 * freqs[p])
-    vals = problem.values(np.vstack([x[None], x + shifts]))
+    # the gradient at the final point by each parameter's shift rule, batched with its value
+    rules = {p: rule_for_frequencies(freqs[p]) for p in active}
+    rows = [x[None]]
+    for p in active:
+        shifted = np.repeat(x[None], rules[p].n_terms, axis=0)
+        shifted[:, p] += rules[p].shifts
+        rows.append(shifted)
+    vals = problem.values(np.vstack(rows))
     g = np.zeros(x.size)
-    for i, p in enumerate(active):
-        g[p] = freqs[p] * 0.5 * (vals[1 + 2 * i] - vals[2 + 2 * i])
+    at = 1
+    for p in active:
+        n = rules[p].n_terms
+        g[p] = float(rules[p].coefficients @ vals[at:at + n])
+        at += n
     trace.record(vals[0], np.linalg.norm(g))
     return x, float(vals[0]), g, k, status
