@@ -56,3 +56,27 @@ def test_the_package_has_docstring_examples():
     finder = doctest.DocTestFinder()
     examples = sum(len(t.examples) for m in MODULES for t in finder.find(importlib.import_module(m)))
     assert examples > 20
+
+
+def test_the_guide_states_what_each_extra_pulls_in():
+    # regression (issue 11, case 18): the guide named three of the four dependencies and
+    # nothing of the extras; its table must say what pyproject.toml says
+    tomllib = pytest.importorskip("tomllib")
+    project = tomllib.loads((DOCS.parent / "pyproject.toml").read_text())["project"]
+    wanted = {".": project["dependencies"], **{f'".[{k}]"': v for k, v in
+                                                 project["optional-dependencies"].items()}}
+    rows = {}
+    for line in (DOCS / "guide.md").read_text(encoding="utf-8").splitlines():
+        cells = [c.strip() for c in line.strip().strip("|").split("|")]
+        if len(cells) == 3 and cells[0].startswith("`") and cells[0].strip("`") in wanted:
+            listed = re.sub(r"\([^)]*\)", "", cells[1])
+            rows[cells[0].strip("`")] = sorted(r.replace(" ", "") for r in listed.split(",") if r.strip())
+    assert rows == {k: sorted(v) for k, v in wanted.items()}
+
+
+def test_the_readme_creates_a_virtual_environment_before_installing():
+    # regression (issue 11, case 18): a bare pip install fails on an externally managed Python
+    text = (DOCS.parent / "README.md").read_text(encoding="utf-8")
+    venv = text.index("python -m venv .venv && . .venv/bin/activate")
+    assert venv < text.index("python -m pip install . && qgradlib demo")
+    assert venv < text.index('python -m pip install ".[test]" && python -m pytest')

@@ -28,6 +28,7 @@ import numpy as np
 from autograd import make_vjp, value_and_grad
 from autograd.test_util import check_grads, make_numerical_jvp
 
+from ..evaluation.brief import brief, describe
 from ..evaluation.expectation import expect
 from ..evaluation.ledger import Ledger
 from ..engine.measurement import make_rng
@@ -70,6 +71,11 @@ class MethodAudit:
     seconds: float
     passed: bool | None = None
 
+    def __repr__(self):
+        return describe("MethodAudit", method=self.method, gradient=self.gradient,
+                        deviation=self.deviation, executions=self.executions, shots=self.shots,
+                        seconds=self.seconds, passed=self.passed)
+
 
 @dataclass(frozen=True)
 class GradientReport:
@@ -91,6 +97,12 @@ class GradientReport:
         if not isinstance(tol, (int, float)) or not tol >= 0:
             raise ValueError(f"tol must be a non-negative number; got {tol!r}")
         return self.max_deviation <= tol and all(m.passed is not False for m in self.methods)
+
+    def __repr__(self):
+        names = ", ".join(m.method for m in self.methods)
+        return (f"GradientReport({self.n_qubits} qubits, {self.n_params} parameters, methods "
+                f"{names}; largest deviation from the adjoint {self.max_deviation:.2e}; "
+                f"reference={brief(self.reference)}; print() it for the table)")
 
     def __getitem__(self, method: str) -> MethodAudit:
         for m in self.methods:
@@ -120,9 +132,15 @@ class GradientReport:
             ex = "sim only" if m.executions is None else str(m.executions)
             check = "" if m.passed is None else ("passed" if m.passed else "FAILED")
             lines.append(f"  {m.method:<16}{dev:>12}{ex:>12}{m.shots:>10}"
-                         f"{1e3 * m.seconds:>10.2f}  {check}")
+                         f"{_milliseconds(m.seconds):>10}  {check}")
         lines.append(f"  largest deviation from the adjoint gradient: {self.max_deviation:.2e}")
         return "\n".join(lines)
+
+
+def _milliseconds(seconds):
+    """Wall time in ms to about three significant digits (timings here jitter more than that)."""
+    ms = 1e3 * seconds
+    return f"{ms:.0f}" if ms >= 100 else f"{ms:.1f}" if ms >= 10 else f"{ms:.2f}"
 
 
 def _derivative(f, single):

@@ -14,7 +14,7 @@ import numpy as np
 from ..evaluation.expectation import _check_qubits, _spec
 from ..rules.higher_plans import build_plan, tensor
 from .execute import prepare, run_plan
-from .metric import metric_tensor
+from .metric import metric_tensor, refuse_noise
 
 __all__ = ["fisher_information"]
 
@@ -31,7 +31,9 @@ def fisher_information(circuit, theta, kind="classical", qubits=None, *, tol=1e-
         "classical": of the distribution of computational-basis outcomes on ``qubits``,
         ``F_ij = sum_x d_i p_x d_j p_x / p_x``, with the derivatives of the probabilities
         from one merged shift plan (recorded in the ledger). "quantum": ``4 g`` with ``g``
-        the exact `metric_tensor` (pure states; Meyer, Quantum 5, 539 (2021)).
+        the exact `metric_tensor` (pure states; Meyer, Quantum 5, 539 (2021)); refused for
+        a circuit with noise channels, whose classical kind is available (the density-matrix
+        path).
     qubits : sequence of int, optional
         Measured qubits for the classical kind (default: all).
     tol : float
@@ -55,6 +57,7 @@ def fisher_information(circuit, theta, kind="classical", qubits=None, *, tol=1e-
     if kind not in ("classical", "quantum"):
         raise ValueError(f"kind must be 'classical' or 'quantum'; got {kind!r}")
     if kind == "quantum":
+        refuse_noise(circuit, "fisher_information(kind='quantum')")
         if qubits is not None:
             raise ValueError("qubits applies to kind='classical'; the quantum Fisher information "
                              "here is that of the whole (pure) output state")

@@ -23,7 +23,7 @@ from ..engine.measurement import measurement_settings
 from ..circuits.observables import Observable
 from ..circuits.paulis import pauli_matrix
 
-__all__ = ["Layer", "layers", "metric_tensor", "STRUCTURES"]
+__all__ = ["Layer", "layers", "metric_tensor", "refuse_noise", "STRUCTURES"]
 
 STRUCTURES = ("full", "layerwise", "diagonal")
 
@@ -200,6 +200,20 @@ def _overlap_plan(circuit, phi, columns):
     return plan, origin
 
 
+def refuse_noise(circuit, what):
+    """Refuse a circuit with noise channels for a quantity of pure states, saying what is
+    available instead."""
+    if isinstance(circuit, Circuit) and circuit.has_noise:
+        raise ValueError(
+            f"{what} is not defined for this circuit: it has noise channels, so its output is a "
+            "mixed state, and the Fubini-Study metric (and the quantum Fisher information 4 g "
+            "built on it) is defined for pure states. For a noisy circuit use "
+            "curvature.fisher_information(circuit, theta, kind='classical'), the classical "
+            "Fisher information of its noisy outcome distribution (the density-matrix path), or "
+            "drop the channels for the metric of the "
+            "ideal circuit")
+
+
 def metric_tensor(circuit, theta, structure="full", *, executor=None, chunk=None) -> np.ndarray:
     """The Fubini-Study metric tensor of the circuit's output state, shape (m, m).
 
@@ -253,6 +267,7 @@ def metric_tensor(circuit, theta, structure="full", *, executor=None, chunk=None
     """
     if not isinstance(structure, str) or structure not in STRUCTURES:
         raise ValueError(f"structure must be one of {STRUCTURES}; got {structure!r}")
+    refuse_noise(circuit, "metric_tensor")
     theta, phi, A = prepare(circuit, theta)
     spec = _spec(circuit, "probs", executor=executor, chunk=chunk)
     columns = spec.columns

@@ -42,6 +42,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..evaluation.brief import brief
 from ..evaluation.expectation import _check_qubits, _observables, _spec
 from ..rules.higher_plans import build_plan, tensor
 from .execute import prepare, run_plan
@@ -70,6 +71,15 @@ class HessianResult:
     executions: int
     shots: int
 
+    def __repr__(self):
+        H = np.asarray(self.hessian)
+        sym = 0.5 * (H + np.swapaxes(H, -1, -2))
+        ev = np.linalg.eigvalsh(sym) if H.size else np.zeros(0)
+        spectrum = f"eigenvalues in [{ev.min():.4g}, {ev.max():.4g}]" if ev.size else "empty"
+        return (f"HessianResult(value={brief(self.value)}, gradient={brief(self.gradient)}, "
+                f"hessian: shape {H.shape}, {spectrum}, executions={self.executions}, "
+                f"shots={self.shots})")
+
 
 @dataclass(frozen=True, eq=False)
 class DerivativeTensors:
@@ -80,6 +90,11 @@ class DerivativeTensors:
     order: int
     executions: int
     shots: int
+
+    def __repr__(self):
+        shapes = ", ".join(str(np.shape(t)) for t in self.tensors[1:])
+        return (f"DerivativeTensors(order={self.order}, value={brief(self.value)}, "
+                f"tensors of shapes {shapes}, executions={self.executions}, shots={self.shots})")
 
     @property
     def value(self):

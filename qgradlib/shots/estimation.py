@@ -37,6 +37,7 @@ import numpy as np
 from autograd.tracer import getval
 
 from ..evaluation import distribute, ledger
+from ..evaluation.brief import describe
 from ..circuits.circuit import check_theta
 from ..evaluation.expectation import _check_circuit, _observables, _spec
 from ..rules.plans import first_order_points
@@ -68,6 +69,10 @@ class Estimate:
     shots: int
     settings: int
 
+    def __repr__(self):
+        return describe("Estimate", value=self.value, standard_error=self.standard_error,
+                        executions=self.executions, shots=self.shots, settings=self.settings)
+
 
 @dataclass(frozen=True)
 class GradientEstimate:
@@ -92,6 +97,11 @@ class GradientEstimate:
     executions: int
     shots: int
     circuits: int
+
+    def __repr__(self):
+        return describe("GradientEstimate", gradient=self.gradient,
+                        standard_error=self.standard_error, executions=self.executions,
+                        shots=self.shots, circuits=self.circuits)
 
 
 def _prepare(circuit, observables, theta, shots, seed, allocation, readout, **options):

@@ -50,13 +50,17 @@ from scipy.optimize import OptimizeResult
 from . import rotosolve as _roto
 from ..circuits.circuit import Circuit, check_theta
 from ..evaluation.expectation import METHODS as _GRADIENTS
-from ..evaluation.expectation import expect
+from ..evaluation.brief import brief
+from ..evaluation.expectation import density_matrix, expect, state
 from ..evaluation.ledger import Ledger
+from ..engine.density import density_expectations
+from ..engine.measure import expectations
 from ..engine.measurement import make_rng
+from ..shots.estimation import estimate
 from ..circuits.observables import Observable
 from .progress import progress_bar
 
-__all__ = ["minimize", "minimize_expectation", "METHODS"]
+__all__ = ["minimize", "minimize_expectation", "METHODS", "TrainingResult"]
 
 METHODS = ("gd", "adam", "spsa", "natural", "newton", "rotosolve")
 _NEEDS_CIRCUIT = ("natural", "newton", "rotosolve")
@@ -74,6 +78,35 @@ _DEFAULTS = {
     "rotosolve": {"tol": 1e-6},
 }
 _EXPECTATION_ONLY = {"gd": ("gradient",), "adam": ("gradient",), "natural": ("gradient",)}
+
+
+class TrainingResult(OptimizeResult):
+    """A `scipy.optimize.OptimizeResult` that prints compactly: numbers as they are, arrays
+    by shape and range, the history by its length (every entry stays one attribute away).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> r = TrainingResult(x=np.zeros(30), fun=-1.5, nit=3, history={"cost": np.zeros(4)})
+    >>> print(repr(r))
+    TrainingResult(fun=-1.5, x=array (30,) in [0, 0], nit=3, history: cost (4 entries))
+    """
+
+    _FIRST = ("message", "success", "fun", "fun_error", "fun_exact", "x", "nit", "executions",
+              "circuits", "shots")
+
+    def __repr__(self):
+        keys = [k for k in self._FIRST if k in self] + sorted(k for k in self if k not in
+                                                              self._FIRST and k != "history")
+        parts = [f"{k}={brief(self[k])}" for k in keys]
+        if "history" in self:
+            h = self["history"]
+            n = len(next(iter(h.values()))) if h else 0
+            parts.append(f"history: {', '.join(h)} ({n} entries)")
+        return "TrainingResult(" + ", ".join(parts) + ")"
+
+    def _repr_pretty_(self, printer, cycle):
+        printer.text(repr(self))
 
 
 # -- public functions ---------------------------------------------------------------------------
@@ -98,8 +131,10 @@ def minimize(cost, theta0, *, method="adam", steps=100, callback=None, progress=
         `OptimizeResult` holding ``x, fun, nit, grad_norm``. Raising StopIteration or
         returning True stops the run.
     progress : bool or None
-        A tqdm bar with the current cost on standard error. None: only when standard error is
-        an interactive terminal.
+        A tqdm bar with the current cost (a widget in a notebook, text on standard error in a
+        terminal). None: on in a Jupyter notebook or when standard error is an interactive
+        terminal, off when the environment variable ``CI`` is set and in logs and pipes (see
+        `qgradlib.train.progress`).
     seed : int or numpy.random.Generator, optional
         Randomness of the methods that draw random numbers ("spsa"); "gd" and "adam" are
         deterministic and draw none.
@@ -111,11 +146,12 @@ def minimize(cost, theta0, *, method="adam", steps=100, callback=None, progress=
 
     Returns
     -------
-    scipy.optimize.OptimizeResult
-        ``x, fun, jac, nit, success, status, message, method``; ``history`` (dict of arrays
-        "cost", "grad_norm", "executions", one entry per point visited, the start first);
-        ``executions``, ``circuits`` and ``shots`` from the run's ledger. ``success`` is True
-        when the tolerance was met. For spsa ``jac`` and "grad_norm" are the random estimates.
+    TrainingResult
+        A `scipy.optimize.OptimizeResult` (printed compactly): ``x, fun, jac, nit, success,
+        status, message, method``; ``history`` (dict of arrays "cost", "grad_norm",
+        "executions", one entry per point visited, the start first); ``executions``,
+        ``circuits`` and ``shots`` from the run's ledger. ``success`` is True when the
+        tolerance was met. For spsa ``jac`` and "grad_norm" are the random estimates.
 
     Examples
     --------
@@ -184,14 +220,20 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
 
     Returns
     -------
-    scipy.optimize.OptimizeResult
-        As in `minimize`.
+    TrainingResult
+        As in `minimize`, and ``fun_error``. Without shots ``fun`` is exact (``fun_error`` is
+        0.0). With shots ``fun`` is a fresh estimate at ``x``, independent of the estimates
+        the run steered by (the kept least of those is biased low), with its standard error
+        ``fun_error``; its executions and shots are in the ledger's counts. ``fun_exact`` is
+        then the exact value at ``x``: **simulator only**, a device has no such number (it is
+        not counted in the ledger).
 
     Notes
     -----
-    "natural" uses ``qgradlib.curvature.tensors.metric_tensor`` (the Fubini-Study metric, the real part
-    of the quantum geometric tensor) and solves ``(F + regulariser I) d = g``. The metric is
-    taken as that function computes it, without shots; ``shots`` applies to the gradient.
+    "natural" uses `qgradlib.curvature.metric_tensor` (the Fubini-Study metric, the real part
+    of the quantum geometric tensor) and solves ``(F + regulariser I) d = g``. With shots the
+    metric is estimated from sampled circuits as a device would (``shots`` per setting of
+    every circuit, see `metric_tensor`), and the ledger counts its shots.
 
     "newton" takes value, gradient and Hessian from one ``qgradlib.curvature.tensors.hessian`` call,
     solves ``(H + mu I) d = -g`` and keeps the step only if the cost falls (one more
@@ -207,7 +249,9 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
     Wierichs, Izaac, Wang and Lin, Quantum 6, 677 (2022)). Gates without a finite spectrum
     (Hamiltonian gates) are refused (ValueError). Exact runs reuse the minimum as the next
     parameter's value at ``t`` (2R evaluations per parameter); with shots it is evaluated
-    afresh (2R + 1). Its "grad_norm" at step k is the norm of the slopes met during sweep
+    afresh (2R + 1), and the cost shown after a sweep (progress bar, callback, history) is
+    the cost measured at the new point, not the fitted minimum (a fit to noisy values is
+    biased low). Its "grad_norm" at step k is the norm of the slopes met during sweep
     k + 1 (the point moves between parameters); the last entry is the gradient at ``x``.
 
     Examples
@@ -393,6 +437,7 @@ class _Trace:
 
 def _run(problem, method, x0, steps, opts, callback, progress, rng):
     bar = progress_bar(progress, total=steps, desc=method)
+    final = {}
     with Ledger() as book, bar:
         trace = _Trace(book, bar, callback)
         if method == "rotosolve":
@@ -403,14 +448,41 @@ def _run(problem, method, x0, steps, opts, callback, progress, rng):
             evaluate, update = _first_order_method(method, problem, x0.size, opts, rng)
             x, fun, jac, nit, status = _first_order(evaluate, update, x0, steps, trace,
                                                     opts.get("tol", 0.0))
+        if problem.circuit_parts is not None:
+            fun, final = _final_value(problem, x, fun)
     messages = {0: f"gradient norm fell to tol={opts.get('tol', 0.0):g}",
                 1: f"reached steps={steps}",
                 2: "stopped by the callback"}
     h = {"cost": np.array(trace.cost), "grad_norm": np.array(trace.grad_norm),
          "executions": np.array(trace.executions, dtype=int)}
-    return OptimizeResult(x=x, fun=fun, jac=jac, nit=nit, success=status == 0, status=status,
+    return TrainingResult(x=x, fun=fun, jac=jac, nit=nit, success=status == 0, status=status,
                           message=messages[status], method=method, history=h,
-                          executions=book.executions, circuits=book.circuits, shots=book.shots)
+                          executions=book.executions, circuits=book.circuits, shots=book.shots,
+                          **final)
+
+
+def _final_value(problem, x, fun):
+    """``fun`` at the returned point and its error fields.
+
+    Under shots the run's own estimate at ``x`` is the one it kept because it looked low
+    (Newton accepts a step when the noisy cost falls), so it is biased low: a fresh
+    independent estimate replaces it, with its standard error, and the exact value at ``x``
+    is added for the simulator's user (computed outside the ledger: no device can run it).
+    """
+    circuit, observable, shots, rng = problem.circuit_parts
+    if shots is None:
+        return fun, {"fun_error": 0.0}
+    r = estimate(circuit, observable, x, shots=shots, seed=rng, **problem.where)
+    return r.value, {"fun_error": r.standard_error, "fun_exact": _exact_value(circuit, observable, x)}
+
+
+def _exact_value(circuit, observable, x):
+    """The exact expectation at ``x``, from the state itself (no ledger records it)."""
+    n = circuit.n_qubits
+    if circuit.has_noise:
+        return float(density_expectations(density_matrix(circuit, x).reshape(1, -1), n,
+                                          (observable,))[0, 0])
+    return float(expectations(state(circuit, x)[None], n, (observable,))[0, 0])
 
 
 def _first_order(evaluate, update, x, steps, trace, tol):
@@ -540,6 +612,10 @@ def _rotosolve(problem, x, steps, trace, o):
                     X[:, p] = t
                     return problem.values(X)
                 x[p], e, slopes[p] = _roto.coordinate_minimum(along, x[p], w, e)
+        if not exact:
+            # the fitted minimum of noisy values is biased low: show (and start the next
+            # sweep from) the cost measured at the new point
+            e = float(problem.values(x[None])[0])
         gn = float(np.linalg.norm(slopes))
         trace.record(e_start, gn)
         k += 1

@@ -53,6 +53,12 @@ class Comparison:
     ground_energy: float | None
     start_energy: float
 
+    def __repr__(self):
+        runs = ", ".join(f"{m}: {self.energies[m]:.6g} in {self.executions[m]} executions"
+                         for m in self.results)
+        ground = "" if self.ground_energy is None else f"; ground energy {self.ground_energy:.6g}"
+        return f"Comparison({runs}{ground}; .summary() for the table)"
+
     def summary(self) -> str:
         """A plain table, one line per method."""
         lines = [f"{'method':<10} {'steps':>5} {'energy':>12} {'error':>10} {'executions':>11} "
