@@ -1,8 +1,10 @@
 """Circuit: a list of operations and the linear map from parameters to gate angles.
 
-Each parametric operation's angle is ``scale * theta[param] + offset`` or a fixed number.
-That map is the only place parameters are shared or scaled, so the chain rule of every
-derivative method is ``A.T @ dE/dphi`` with ``A`` its matrix.
+Each parametric operation's angle is ``scale * theta[param] + offset`` (a trainable weight),
+``scale * x[input] + offset`` (feature ``input`` of a data point ``x``, not trainable) or a
+fixed number. That map, ``phi = A theta + B x + b``, is the only place parameters are shared
+or scaled, so the chain rule of every derivative method is ``A.T @ dE/dphi`` (and
+``B.T @ dE/dphi`` for the features).
 
 Examples
 --------
@@ -13,6 +15,11 @@ Examples
 1
 >>> c.angles(np.array([0.5])).tolist()
 [0.5, 1.0, 0.25]
+>>> d = qg.Circuit(1).ry(0, input=0).rz(0).ry(0, input=0, scale=0.5)   # re-uploading x[0]
+>>> d.n_params, d.n_inputs
+(1, 1)
+>>> d.angles(np.array([0.3]), inputs=np.array([2.0])).tolist()
+[2.0, 0.3, 1.0]
 """
 from __future__ import annotations
 
@@ -39,6 +46,7 @@ class Operation:
     scale: float = 1.0
     offset: float = 0.0
     angle: float | None = None
+    input: int | None = None       # angle = scale * x[input] + offset for a data point x
 
     @property
     def trainable(self) -> bool:
@@ -50,8 +58,9 @@ class Circuit:
 
     Gate methods append one operation and return the circuit, so calls chain. A parametric
     method takes ``param=`` (an existing parameter index, or omitted for a new one),
-    ``scale=`` and ``offset=`` (angle = scale * theta[param] + offset), or ``angle=`` for a
-    fixed, untrainable angle.
+    ``scale=`` and ``offset=`` (angle = scale * theta[param] + offset), ``input=`` for
+    feature ``k`` of a data point (angle = scale * x[k] + offset; not trainable, the same
+    feature may be read by any number of gates), or ``angle=`` for a fixed, untrainable angle.
     """
 
     def __init__(self, n_qubits: int):
@@ -61,6 +70,7 @@ class Circuit:
         self._n = int(n_qubits)
         self._ops: list[Operation] = []
         self._n_params = 0
+        self._n_inputs = 0
         self._cache = None
 
     # -- read-only views ------------------------------------------------------------------
@@ -72,6 +82,11 @@ class Circuit:
     def n_params(self) -> int:
         """Length of the parameter vector theta."""
         return self._n_params
+
+    @property
+    def n_inputs(self) -> int:
+        """Length of a data point x (one more than the largest ``input=`` index; 0 if none)."""
+        return self._n_inputs
 
     @property
     def operations(self) -> tuple:
@@ -102,10 +117,12 @@ class Circuit:
         return len(self._ops)
 
     def __repr__(self):
-        return f"Circuit(n_qubits={self._n}, operations={len(self._ops)}, n_params={self._n_params})"
+        extra = f", n_inputs={self._n_inputs}" if self._n_inputs else ""
+        return (f"Circuit(n_qubits={self._n}, operations={len(self._ops)}, "
+                f"n_params={self._n_params}{extra})")
 
     # -- building -------------------------------------------------------------------------
-    def add(self, gate: Gate, qubits, param=None, *, scale=1.0, offset=0.0, angle=None):
+    def add(self, gate: Gate, qubits, param=None, *, scale=1.0, offset=0.0, angle=None, input=None):
         """Append ``gate`` (a `Gate` or a noise `Channel`) on ``qubits`` (an int or a sequence of ints).
 
         Examples
@@ -120,9 +137,22 @@ class Circuit:
             raise TypeError(f"gate must be a qgradlib Gate or Channel; got {type(gate).__name__}")
         qs = self._qubits(qubits, gate)
         if not gate.parametric:
-            if param is not None or angle is not None or scale != 1.0 or offset != 0.0:
-                raise ValueError(f"gate {gate.name!r} is fixed: it takes no param, angle, scale or offset")
+            if param is not None or angle is not None or input is not None or scale != 1.0 \
+                    or offset != 0.0:
+                raise ValueError(f"gate {gate.name!r} is fixed: it takes no param, angle, input, "
+                                 "scale or offset")
             return self._append(Operation(gate, qs))
+        if input is not None:
+            if param is not None or angle is not None:
+                raise ValueError("give one of param= (a trainable weight), input= (a data feature) "
+                                 "or angle= (fixed), not several")
+            if isinstance(input, (bool, np.bool_)) or not isinstance(input, (int, np.integer)) \
+                    or input < 0:
+                raise ValueError(f"input must be a non-negative int (a feature index); got {input!r}")
+            op = Operation(gate, qs, None, _finite(scale, "scale"), _finite(offset, "offset"),
+                           input=int(input))
+            self._n_inputs = max(self._n_inputs, int(input) + 1)
+            return self._append(op)
         if angle is not None:
             if param is not None:
                 raise ValueError("give either param= (trainable) or angle= (fixed), not both")
@@ -169,10 +199,12 @@ class Circuit:
         out = Circuit(self._n)
         out._ops = list(self._ops)
         out._n_params = self._n_params
+        out._n_inputs = self._n_inputs
         return out
 
     def __add__(self, other):
-        """Concatenate: ``other``'s parameters are renumbered to follow ``self``'s."""
+        """Concatenate: ``other``'s parameters are renumbered to follow ``self``'s; both read
+        the same data point (feature ``k`` stays feature ``k``)."""
         if not isinstance(other, Circuit):
             return NotImplemented
         if other._n != self._n:
@@ -184,39 +216,81 @@ class Circuit:
                 op = Operation(op.gate, op.qubits, op.param + shift, op.scale, op.offset)
             out._ops.append(op)
         out._n_params = self._n_params + other._n_params
+        out._n_inputs = max(self._n_inputs, other._n_inputs)
         return out
 
     # -- the angle map --------------------------------------------------------------------
     def angle_map(self):
-        """``(A, b)``: gate angles ``phi = theta @ A.T + b``; A has shape (G, n_params)."""
+        """``(A, b)``: gate angles ``phi = theta @ A.T + b``; A has shape (G, n_params).
+
+        For a circuit with data inputs the full map is ``phi = theta @ A.T + x @ B.T + b``,
+        with ``B = input_map()``; ``b`` holds the offsets of the input gates.
+        """
         if self._cache is None:
             pops = self.parametric_operations
             A = np.zeros((len(pops), self._n_params))
+            B = np.zeros((len(pops), self._n_inputs))
             b = np.zeros(len(pops))
             idx = np.zeros(len(pops), dtype=int)
             scale = np.zeros(len(pops))
             for k, op in enumerate(pops):
-                if op.param is None:
-                    b[k] = op.angle
-                else:
+                if op.param is not None:
                     A[k, op.param] = op.scale
                     b[k] = op.offset
                     idx[k] = op.param
                     scale[k] = op.scale
-            self._cache = (A, b, idx, scale)
+                elif getattr(op, "input", None) is not None:
+                    B[k, op.input] = op.scale
+                    b[k] = op.offset
+                else:
+                    b[k] = op.angle
+            xcols = np.array([k for k, op in enumerate(pops) if getattr(op, "input", None) is not None],
+                             dtype=int)
+            xidx = np.array([pops[k].input for k in xcols], dtype=int)
+            xscale = np.array([pops[k].scale for k in xcols], dtype=float)
+            self._cache = (A, b, idx, scale, B, xcols, xidx, xscale)
         return self._cache[0], self._cache[1]
 
-    def angles(self, theta):
+    def input_map(self):
+        """``B`` of shape (G, n_inputs): the data-feature part of ``phi = A theta + B x + b``.
+
+        Examples
+        --------
+        >>> import qgradlib as qg
+        >>> qg.Circuit(1).ry(0, input=1, scale=2.0).rz(0).input_map().tolist()
+        [[0.0, 2.0], [0.0, 0.0]]
+        """
+        self.angle_map()
+        return self._cache[4]
+
+    @property
+    def input_columns(self) -> tuple:
+        """Columns of `angles` (indices into `parametric_operations`) that read a data feature."""
+        self.angle_map()
+        return tuple(int(k) for k in self._cache[5])
+
+    def angles(self, theta, inputs=None):
         """Gate angles for parameters ``theta`` of shape (n_params,) or (B, n_params).
 
-        Differentiable with autograd; returns shape (G,) or (B, G).
+        A circuit with data inputs also needs ``inputs``, one data point (n_inputs,) or a data
+        set (N, n_inputs); a batch of theta and a data set pair up row by row, so B and N must
+        agree (or one of them be unbatched). Differentiable with autograd in both; returns
+        shape (G,) or (rows, G).
         """
         theta = check_theta(self, theta)
+        inputs = check_inputs(self, inputs, theta)
         self.angle_map()
-        _, b, idx, scale = self._cache
+        _, b, idx, scale, _, xcols, xidx, xscale = self._cache
         if self._n_params == 0:
-            return anp.zeros(theta.shape[:-1] + (b.size,)) + b
-        return theta[..., idx] * scale + b
+            phi = anp.zeros(theta.shape[:-1] + (b.size,)) + b
+        else:
+            phi = theta[..., idx] * scale + b
+        if inputs is None:
+            return phi
+        # the input gates' columns, added as a (rows, G) array built from x by one product
+        place = np.zeros((xcols.size, b.size))
+        place[np.arange(xcols.size), xcols] = xscale
+        return phi + anp.dot(inputs[..., xidx], place)
 
     # -- standard gates -------------------------------------------------------------------
     def h(self, q): return self.add(_g.H, q)  # noqa: E704
@@ -230,49 +304,60 @@ class Circuit:
     def cz(self, a, b): return self.add(_g.CZ, (a, b))  # noqa: E704
     def swap(self, a, b): return self.add(_g.SWAP, (a, b))  # noqa: E704
 
-    def rx(self, q, param=None, *, scale=1.0, offset=0.0, angle=None):
+    def rx(self, q, param=None, *, scale=1.0, offset=0.0, angle=None, input=None):
         """RX(a) = expm(-1j * a * X / 2)."""
-        return self.add(_g.RX, q, param, scale=scale, offset=offset, angle=angle)
+        return self.add(_g.RX, q, param, scale=scale, offset=offset, angle=angle,
+                        input=input)
 
-    def ry(self, q, param=None, *, scale=1.0, offset=0.0, angle=None):
+    def ry(self, q, param=None, *, scale=1.0, offset=0.0, angle=None, input=None):
         """RY(a) = expm(-1j * a * Y / 2)."""
-        return self.add(_g.RY, q, param, scale=scale, offset=offset, angle=angle)
+        return self.add(_g.RY, q, param, scale=scale, offset=offset, angle=angle,
+                        input=input)
 
-    def rz(self, q, param=None, *, scale=1.0, offset=0.0, angle=None):
+    def rz(self, q, param=None, *, scale=1.0, offset=0.0, angle=None, input=None):
         """RZ(a) = expm(-1j * a * Z / 2)."""
-        return self.add(_g.RZ, q, param, scale=scale, offset=offset, angle=angle)
+        return self.add(_g.RZ, q, param, scale=scale, offset=offset, angle=angle,
+                        input=input)
 
-    def phase(self, q, param=None, *, scale=1.0, offset=0.0, angle=None):
+    def phase(self, q, param=None, *, scale=1.0, offset=0.0, angle=None, input=None):
         """PHASE(a) = diag(1, exp(1j * a))."""
-        return self.add(_g.PHASE, q, param, scale=scale, offset=offset, angle=angle)
+        return self.add(_g.PHASE, q, param, scale=scale, offset=offset, angle=angle,
+                        input=input)
 
-    def crx(self, control, target, param=None, *, scale=1.0, offset=0.0, angle=None):
+    def crx(self, control, target, param=None, *, scale=1.0, offset=0.0, angle=None, input=None):
         """RX on ``target`` controlled by ``control``."""
-        return self.add(_g.CRX, (control, target), param, scale=scale, offset=offset, angle=angle)
+        return self.add(_g.CRX, (control, target), param, scale=scale, offset=offset, angle=angle,
+                        input=input)
 
-    def cry(self, control, target, param=None, *, scale=1.0, offset=0.0, angle=None):
+    def cry(self, control, target, param=None, *, scale=1.0, offset=0.0, angle=None, input=None):
         """RY on ``target`` controlled by ``control``."""
-        return self.add(_g.CRY, (control, target), param, scale=scale, offset=offset, angle=angle)
+        return self.add(_g.CRY, (control, target), param, scale=scale, offset=offset, angle=angle,
+                        input=input)
 
-    def crz(self, control, target, param=None, *, scale=1.0, offset=0.0, angle=None):
+    def crz(self, control, target, param=None, *, scale=1.0, offset=0.0, angle=None, input=None):
         """RZ on ``target`` controlled by ``control``."""
-        return self.add(_g.CRZ, (control, target), param, scale=scale, offset=offset, angle=angle)
+        return self.add(_g.CRZ, (control, target), param, scale=scale, offset=offset, angle=angle,
+                        input=input)
 
-    def cphase(self, a, b, param=None, *, scale=1.0, offset=0.0, angle=None):
+    def cphase(self, a, b, param=None, *, scale=1.0, offset=0.0, angle=None, input=None):
         """diag(1, 1, 1, exp(1j * a))."""
-        return self.add(_g.CPHASE, (a, b), param, scale=scale, offset=offset, angle=angle)
+        return self.add(_g.CPHASE, (a, b), param, scale=scale, offset=offset, angle=angle,
+                        input=input)
 
-    def rxx(self, a, b, param=None, *, scale=1.0, offset=0.0, angle=None):
+    def rxx(self, a, b, param=None, *, scale=1.0, offset=0.0, angle=None, input=None):
         """expm(-1j * a * XX / 2)."""
-        return self.add(_g.RXX, (a, b), param, scale=scale, offset=offset, angle=angle)
+        return self.add(_g.RXX, (a, b), param, scale=scale, offset=offset, angle=angle,
+                        input=input)
 
-    def ryy(self, a, b, param=None, *, scale=1.0, offset=0.0, angle=None):
+    def ryy(self, a, b, param=None, *, scale=1.0, offset=0.0, angle=None, input=None):
         """expm(-1j * a * YY / 2)."""
-        return self.add(_g.RYY, (a, b), param, scale=scale, offset=offset, angle=angle)
+        return self.add(_g.RYY, (a, b), param, scale=scale, offset=offset, angle=angle,
+                        input=input)
 
-    def rzz(self, a, b, param=None, *, scale=1.0, offset=0.0, angle=None):
+    def rzz(self, a, b, param=None, *, scale=1.0, offset=0.0, angle=None, input=None):
         """expm(-1j * a * ZZ / 2)."""
-        return self.add(_g.RZZ, (a, b), param, scale=scale, offset=offset, angle=angle)
+        return self.add(_g.RZZ, (a, b), param, scale=scale, offset=offset, angle=angle,
+                        input=input)
 
     def euler(self, q, axes="zyz"):
         """Three rotations of qubit ``q`` about the named axes: three new parameters.
@@ -322,6 +407,49 @@ def _finite(v, name):
     if not np.isfinite(v):
         raise ValueError(f"{name} must be finite; got {v!r}")
     return v
+
+
+def check_inputs(circuit: Circuit, inputs, theta=None):
+    """Validate a data point (n_inputs,) or data set (N, n_inputs) against ``circuit``.
+
+    ``None`` is right exactly when the circuit reads no data feature. With ``theta`` given,
+    a batch of theta (B, m) and a data set (N, n) must pair up: B == N. Keeps autograd boxes.
+    """
+    from autograd.tracer import getval
+
+    d = circuit.n_inputs
+    if inputs is None:
+        if d:
+            raise ValueError(f"this circuit reads {d} data feature(s) (gates with input=): give "
+                             f"inputs= of shape ({d},) or (N, {d}); functions without inputs= take "
+                             "circuits without data inputs only")
+        return None
+    if not d:
+        raise ValueError("inputs= was given but this circuit reads no data feature (add gates "
+                         "with input=k to read feature k)")
+    raw = getval(inputs)
+    if isinstance(raw, (list, tuple)):
+        try:
+            raw = inputs = np.asarray(raw)
+        except ValueError:
+            raise ValueError(f"inputs must have shape ({d},) or (N, {d}); got a ragged sequence") from None
+    if not isinstance(raw, (np.ndarray, np.generic)) or np.asarray(raw).dtype.kind not in "fiu":
+        raise TypeError(f"inputs must be a real array of shape ({d},) or (N, {d}); "
+                        f"got {type(raw).__name__}")
+    arr = np.asarray(raw)
+    if arr.ndim == 0 or arr.ndim > 2 or arr.shape[-1] != d or (arr.ndim == 2 and arr.shape[0] == 0):
+        raise ValueError(f"inputs must have shape ({d},) or (N, {d}) with N >= 1; got {arr.shape}")
+    if not np.all(np.isfinite(arr)):
+        raise ValueError("inputs must be finite (found NaN or inf)")
+    if theta is not None:
+        t = np.shape(getval(theta))
+        if len(t) == 2 and arr.ndim == 2 and t[0] != arr.shape[0]:
+            raise ValueError(f"a batch of theta {t} and a data set {arr.shape} pair up row by "
+                             "row, so their lengths must agree; give theta of shape "
+                             f"({circuit.n_params},) to evaluate one model over the data set")
+    if inputs is raw and arr.dtype != float:
+        return arr.astype(float)
+    return inputs
 
 
 def check_theta(circuit: Circuit, theta):

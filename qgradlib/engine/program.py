@@ -141,7 +141,7 @@ def compile_program(circuit, fuse: bool, solo_columns=frozenset(), bake_fixed_an
             for q in op.qubits:
                 last[q] = len(steps) - 1
             continue
-        const = column is None or (bake_fixed_angles and op.param is None)
+        const = column is None or (bake_fixed_angles and op.param is None and op.input is None)
         if column is not None and const:
             const_cols.append(column)
             const_angles.append(op.angle)

@@ -6,7 +6,8 @@ that spread its rows; and the ledger that counts what a device would run.
 """
 from .distribute import ChunkError
 from .expectation import density_matrix, evaluate, expect, probabilities, sample, state
+from .fidelity import kernel_matrix
 from .ledger import Ledger
 
 __all__ = ["expect", "probabilities", "state", "sample", "density_matrix", "evaluate", "Ledger",
-           "ChunkError"]
+           "ChunkError", "kernel_matrix"]

@@ -24,16 +24,16 @@ from __future__ import annotations
 
 import weakref
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from numbers import Real
 
 import autograd.numpy as anp
 import numpy as np
-from autograd.extend import defvjp, primitive
+from autograd.extend import defjvp, defvjp, primitive
 from autograd.tracer import Box, getval
 
 from . import distribute, ledger
-from ..circuits.circuit import Circuit, check_theta
+from ..circuits.circuit import Circuit, check_inputs, check_theta
 from ..engine import memory
 from .adjoint_nested import adjoint_jacobian, adjoint_vjp, check_nested, keep_states
 from ..engine.density import run_density
@@ -221,6 +221,27 @@ def _evaluate_vjp(ans, phi, spec, inserts=None, purposes="value"):
 defvjp(evaluate, _evaluate_vjp)
 
 
+def _evaluate_jvp(g, ans, phi, spec, inserts=None, purposes="value"):
+    """Forward mode: the Jacobian over the columns the tangent ``g`` (P, G) moves, times g."""
+    moving = np.any(np.asarray(getval(g)) != 0, axis=0)
+    cols = tuple(j for j in spec.columns if moving[j])
+    if not cols:
+        return anp.zeros(np.shape(ans))
+    sub = replace(spec, columns=cols)
+    if spec.gradient == "adjoint":
+        if isinstance(phi, Box) or isinstance(g, Box):
+            check_nested(sub)
+        J = adjoint_jacobian(phi, sub)
+    elif spec.gradient == "difference":
+        J = _fd_jacobian(ans, phi, sub, inserts)
+    else:
+        J = _shift_jacobian(phi, sub, inserts)
+    return anp.einsum("pkg,pg->pk", J, g)
+
+
+defjvp(evaluate, _evaluate_jvp)
+
+
 # -- argument checks ----------------------------------------------------------------------------
 def _check_circuit(circuit):
     if not isinstance(circuit, Circuit):
@@ -330,17 +351,31 @@ def _guard(circuit):
         memory.guard(16 * 2 ** n, f"a state of {n} qubits")
 
 
-def _run(spec, theta):
-    phi = spec.circuit.angles(theta)
+def _run(spec, theta, inputs=None):
+    phi = spec.circuit.angles(theta, inputs)
     batched = np.ndim(getval(phi)) == 2
     phi2 = phi if batched else anp.reshape(phi, (1, -1))
-    return evaluate(phi2, spec), batched
+    return evaluate(phi2, _traced(spec, theta, inputs)), batched
+
+
+def _traced(spec, theta, inputs):
+    """The spec whose derivative columns are those autograd traces: the weight columns when
+    theta is traced, the data-feature columns when the inputs are (a classical layer in
+    front); for a circuit without inputs, the weight columns as always."""
+    circuit = spec.circuit
+    if not circuit.n_inputs:
+        return spec
+    cols = set(spec.columns) if isinstance(theta, Box) else set()
+    if isinstance(inputs, Box):
+        pops = circuit.parametric_operations
+        cols.update(j for j in circuit.input_columns if pops[j].scale != 0.0)
+    return replace(spec, columns=tuple(sorted(cols)))
 
 
 # -- public functions ---------------------------------------------------------------------------
-def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shift", shift=None,
-           step=None, stencil="central", splits=1, memory=None, allocation="uniform", readout=None,
-           fuse=True, executor=None, chunk=None):
+def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, gradient="shift",
+           shift=None, step=None, stencil="central", splits=1, memory=None, allocation="uniform",
+           readout=None, fuse=True, executor=None, chunk=None):
     """Expectation value(s) of ``observables`` after ``circuit`` at parameters ``theta``.
 
     Differentiable with autograd (`grad`, `jacobian`, `hessian`, ...); the derivative is
@@ -351,6 +386,12 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     circuit : Circuit
     observables : Observable or list of Observable
     theta : array_like, shape (n_params,) or (B, n_params)
+    inputs : array_like, shape (n_inputs,) or (N, n_inputs), optional
+        The data point, or data set, that the circuit's ``input=`` gates read (required
+        exactly when the circuit has such gates). A data set gives a leading axis (N,); a
+        batch of theta (B, m) pairs with it row by row (B == N). Autograd differentiates
+        the weights when theta is traced and the inputs when they are (both when both are),
+        and shifts no column nobody asked for. See docs/data.md.
     shots : int, optional
         Finite-shot estimate: on average ``shots`` readouts per measurement setting, per
         circuit, so each circuit takes ``shots * n_settings`` in total (the ledger's count).
@@ -385,7 +426,7 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     -------
     float or ndarray
         A float for one observable and 1-D theta; shape (K,) for K observables; a leading
-        batch axis (B,) when theta is (B, n_params).
+        batch axis (B,) when theta is (B, n_params), or (N,) for a data set of N points.
 
     Notes
     -----
@@ -405,27 +446,31 @@ def expect(circuit, observables, theta, *, shots=None, seed=None, gradient="shif
     True
     >>> bool(np.isclose(grad(lambda t: qg.expect(c, Z, t))(np.array([0.4]))[0], -np.sin(0.4)))
     True
+    >>> d = qg.Circuit(1).ry(0, input=0).ry(0)        # a data feature, then a weight
+    >>> vals = qg.expect(d, Z, np.array([0.4]), inputs=np.array([[0.0], [0.6]]))
+    >>> vals.shape, bool(np.allclose(vals, np.cos([0.4, 1.0])))     # <Z> = cos(x + theta)
+    ((2,), True)
     """
     _check_circuit(circuit)
     obs, single = _observables(observables, circuit.n_qubits)
-    check_theta(circuit, theta)
+    check_inputs(circuit, inputs, check_theta(circuit, theta))
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
                  allocation=allocation, readout=readout, fuse=fuse, executor=executor, chunk=chunk)
-    vals, batched = _run(spec, theta)
+    vals, batched = _run(spec, theta, inputs)
     if single:
         vals = vals[:, 0]
     return vals if batched else vals[0]
 
 
-def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradient="shift",
-                  shift=None, step=None, stencil="central", splits=1, memory=None, readout=None,
-                  fuse=True, executor=None, chunk=None):
+def probabilities(circuit, theta, qubits=None, *, inputs=None, shots=None, seed=None,
+                  gradient="shift", shift=None, step=None, stencil="central", splits=1,
+                  memory=None, readout=None, fuse=True, executor=None, chunk=None):
     """Probabilities of the outcomes on ``qubits`` (first listed = most significant bit).
 
-    Differentiable like `expect`. Returns shape (2**k,) or (B, 2**k). ``readout`` (per-qubit
-    flip probabilities) is applied to the outcome distribution before any sampling; the other
-    options are those of `expect`.
+    Differentiable like `expect`. Returns shape (2**k,) or (B, 2**k) (or (N, 2**k) for a data
+    set ``inputs``). ``readout`` (per-qubit flip probabilities) is applied to the outcome
+    distribution before any sampling; the other options are those of `expect`.
 
     Examples
     --------
@@ -437,16 +482,19 @@ def probabilities(circuit, theta, qubits=None, *, shots=None, seed=None, gradien
     """
     _check_circuit(circuit)
     qs = _check_qubits(qubits, circuit.n_qubits)
-    check_theta(circuit, theta)
+    check_inputs(circuit, inputs, check_theta(circuit, theta))
     spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
                  readout=readout, fuse=fuse, executor=executor, chunk=chunk)
-    vals, batched = _run(spec, theta)
+    vals, batched = _run(spec, theta, inputs)
     return vals if batched else vals[0]
 
 
-def state(circuit, theta, *, fuse=True) -> np.ndarray:
+def state(circuit, theta, *, inputs=None, fuse=True) -> np.ndarray:
     """The final statevector, complex128 of shape (2**n,) or (B, 2**n). Not differentiable.
+
+    ``inputs`` (n_inputs,) or (N, n_inputs) is the data point or set the circuit reads, as in
+    `expect`; a data set gives shape (N, 2**n).
 
     A circuit with noise channels has no pure state: use `density_matrix`. ``fuse`` switches
     gate fusion in the engine (results agree to rounding).
@@ -462,17 +510,25 @@ def state(circuit, theta, *, fuse=True) -> np.ndarray:
     if circuit.has_noise:
         raise ValueError("circuit has noise channels, so its final state is mixed: use "
                          "qgradlib.density_matrix(circuit, theta) instead of state()")
-    theta = np.asarray(getval(check_theta(circuit, theta)), dtype=float)
+    phi = _plain_angles(circuit, theta, inputs)
     _guard(circuit)
-    phi = np.atleast_2d(circuit.angles(theta))
-    psi = run(circuit, phi, fuse=_check_fuse(fuse))
-    return psi if theta.ndim == 2 else psi[0]
+    psi = run(circuit, np.atleast_2d(phi), fuse=_check_fuse(fuse))
+    return psi if phi.ndim == 2 else psi[0]
 
 
-def density_matrix(circuit, theta) -> np.ndarray:
+def _plain_angles(circuit, theta, inputs):
+    """Gate angles as a plain array (no autograd), theta and inputs checked."""
+    theta = np.asarray(getval(check_theta(circuit, theta)), dtype=float)
+    inputs = check_inputs(circuit, inputs, theta)
+    return np.asarray(circuit.angles(theta, None if inputs is None else np.asarray(getval(inputs))),
+                      dtype=float)
+
+
+def density_matrix(circuit, theta, *, inputs=None) -> np.ndarray:
     """The final density matrix, complex128 of shape (2**n, 2**n) or (B, 2**n, 2**n).
 
     Runs the density-matrix path (also for a circuit without noise). Not differentiable.
+    ``inputs`` as in `state`.
 
     Examples
     --------
@@ -483,16 +539,16 @@ def density_matrix(circuit, theta) -> np.ndarray:
     [[0.5, 0.25], [0.25, 0.5]]
     """
     _check_circuit(circuit)
-    theta = np.asarray(getval(check_theta(circuit, theta)), dtype=float)
+    phi = _plain_angles(circuit, theta, inputs)
     n = circuit.n_qubits
     memory.guard(16 * 4 ** n, f"a density matrix of {n} qubits")
-    rho = run_density(circuit, np.atleast_2d(circuit.angles(theta))).reshape(-1, 2 ** n, 2 ** n)
-    return rho if theta.ndim == 2 else rho[0]
+    rho = run_density(circuit, np.atleast_2d(phi)).reshape(-1, 2 ** n, 2 ** n)
+    return rho if phi.ndim == 2 else rho[0]
 
 
-def sample(circuit, theta, shots, seed=None, *, readout=None) -> np.ndarray:
+def sample(circuit, theta, shots, seed=None, *, inputs=None, readout=None) -> np.ndarray:
     """Basis-state indices of ``shots`` readouts of all qubits (big-endian), shape (shots,)
-    or (B, shots).
+    or (B, shots) (or (N, shots) for a data set ``inputs``, as in `expect`).
 
     Noisy circuits are sampled from the diagonal of their density matrix. ``readout``
     (per-qubit flip probabilities in [0, 0.5]) flips the read bits with those probabilities.
@@ -512,12 +568,12 @@ def sample(circuit, theta, shots, seed=None, *, readout=None) -> np.ndarray:
     flips = check_readout(readout, circuit.n_qubits)
     n = circuit.n_qubits
     if circuit.has_noise:
-        states = density_matrix(circuit, theta).reshape(-1, 4 ** n)
+        states = density_matrix(circuit, theta, inputs=inputs).reshape(-1, 4 ** n)
     else:
-        states = np.atleast_2d(state(circuit, theta))
+        states = np.atleast_2d(state(circuit, theta, inputs=inputs))
     p = apply_readout(outcome_distribution(states, n, density=circuit.has_noise), n, flips)
     # the draw holds one float and one int per shot: refuse what cannot fit
     memory.guard(16 * shots * p.shape[0], f"{shots:,} shots of {p.shape[0]} circuit(s)")
     ledger.record(p.shape[0], 1, shots, {"sample": p.shape[0]})
     out = np.stack([rng.choice(p.shape[1], size=shots, p=row / row.sum()) for row in p])
-    return out if np.ndim(getval(theta)) == 2 else out[0]
+    return out if np.ndim(getval(theta)) == 2 or np.ndim(getval(inputs)) == 2 else out[0]

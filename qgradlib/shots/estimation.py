@@ -38,7 +38,7 @@ from autograd.tracer import getval
 
 from ..evaluation import distribute, ledger
 from ..evaluation.brief import describe
-from ..circuits.circuit import check_theta
+from ..circuits.circuit import check_inputs, check_theta
 from ..evaluation.expectation import _check_circuit, _observables, _spec
 from ..rules.plans import first_order_points
 from ..rules.variance import SPLITS, split_shots
@@ -105,17 +105,20 @@ class GradientEstimate:
                         shots=self.shots, circuits=self.circuits)
 
 
-def _prepare(circuit, observables, theta, shots, seed, allocation, readout, **options):
+def _prepare(circuit, observables, theta, shots, seed, allocation, readout, inputs=None, **options):
     _check_circuit(circuit)
     obs, single = _observables(observables, circuit.n_qubits)
     if shots is None or isinstance(shots, (bool, np.bool_)) or not isinstance(shots, (int, np.integer)) \
             or shots < 2:
         raise ValueError(f"shots must be an int >= 2 (a standard error needs a sample variance); got {shots!r}")
     theta = np.asarray(getval(check_theta(circuit, theta)), dtype=float)
+    inputs = check_inputs(circuit, inputs, theta)
+    if inputs is not None:
+        inputs = np.asarray(getval(inputs), dtype=float)
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed,
                  allocation=allocation, readout=readout, **options)
-    phi = np.atleast_2d(circuit.angles(theta))
-    return spec, single, theta.ndim == 2, phi
+    phi = circuit.angles(theta, inputs)
+    return spec, single, phi.ndim == 2, np.atleast_2d(phi)
 
 
 def _shape(a, single, batched, axis=1):
@@ -124,8 +127,8 @@ def _shape(a, single, batched, axis=1):
     return a if batched else a[0]
 
 
-def estimate(circuit, observables, theta, *, shots, seed=None, allocation="uniform", readout=None,
-             memory=None, executor=None, chunk=None) -> Estimate:
+def estimate(circuit, observables, theta, *, shots, inputs=None, seed=None, allocation="uniform",
+             readout=None, memory=None, executor=None, chunk=None) -> Estimate:
     """Finite-shot value(s) of ``observables`` after ``circuit``, with standard errors.
 
     Parameters
@@ -134,6 +137,9 @@ def estimate(circuit, observables, theta, *, shots, seed=None, allocation="unifo
     observables : Observable or list of Observable
         Several observables share measurement settings and shots.
     theta : array_like, shape (n_params,) or (B, n_params)
+    inputs : array_like, shape (n_inputs,) or (N, n_inputs), optional
+        The data point or data set the circuit's ``input=`` gates read (as in `expect`);
+        a data set gives a leading axis (N,), each point its own run with its own shots.
     shots : int >= 2
         Mean shots per measurement setting per circuit (total per circuit:
         ``shots * settings``); with ``allocation="uniform"``, exactly ``shots`` each.
@@ -167,7 +173,7 @@ def estimate(circuit, observables, theta, *, shots, seed=None, allocation="unifo
     (2, 2, 1000)
     """
     spec, single, batched, phi = _prepare(circuit, observables, theta, shots, seed, allocation,
-                                          readout, memory_budget=memory, executor=executor,
+                                          readout, inputs, memory_budget=memory, executor=executor,
                                           chunk=chunk)
     P = phi.shape[0]
     ledger.record(P, spec.settings, spec.shots, {"value": P})
@@ -180,9 +186,10 @@ def estimate(circuit, observables, theta, *, shots, seed=None, allocation="unifo
     return Estimate(value, se, executions, executions * spec.shots, spec.settings)
 
 
-def estimate_gradient(circuit, observables, theta, *, shots, seed=None, allocation="uniform",
-                      readout=None, shift=None, splits=1, memory=None, executor=None,
-                      chunk=None, rule="default", term_shots="even") -> GradientEstimate:
+def estimate_gradient(circuit, observables, theta, *, shots, inputs=None, seed=None,
+                      allocation="uniform", readout=None, shift=None, splits=1, memory=None,
+                      executor=None, chunk=None, rule="default",
+                      term_shots="even") -> GradientEstimate:
     """Finite-shot parameter-shift gradient of ``observables`` with standard errors.
 
     Every trainable gate angle is differentiated by its shift rule (two-term, equidistant,
@@ -192,8 +199,9 @@ def estimate_gradient(circuit, observables, theta, *, shots, seed=None, allocati
 
     Parameters
     ----------
-    circuit, observables, theta, seed, allocation, readout, memory, executor, chunk
-        As in `estimate`.
+    circuit, observables, theta, inputs, seed, allocation, readout, memory, executor, chunk
+        As in `estimate`. With a data set ``inputs`` the gradient over the weights is per
+        data point, (N, n_params); the feature angles are never shifted.
     shots : int >= 2, or array of int >= 2 with shape (n_params,)
         Shots per setting of every shifted circuit; or, per parameter, the shots of the
         shifted circuits of its gates (as an adaptive optimiser asks for).
@@ -248,8 +256,8 @@ def estimate_gradient(circuit, observables, theta, *, shots, seed=None, allocati
         per_param = _per_parameter_shots(shots, circuit.n_params)
         shots = int(per_param.max())
     spec, single, batched, phi = _prepare(circuit, observables, theta, shots, seed, allocation,
-                                          readout, shift=shift, splits=splits, memory_budget=memory,
-                                          executor=executor, chunk=chunk)
+                                          readout, inputs, shift=shift, splits=splits,
+                                          memory_budget=memory, executor=executor, chunk=chunk)
     P, K, m = phi.shape[0], spec.n_out, circuit.n_params
     choose = term_shots if rule == "least-variance" else None
     points, inserts, coeff, names = first_order_points(circuit, phi, None, spec.columns,

@@ -201,12 +201,31 @@ def reference_angle_map(circuit):
     A = np.zeros((len(pops), circuit.n_params))
     b = np.zeros(len(pops))
     for k, op in enumerate(pops):
-        if op.param is None:
+        if getattr(op, "input", None) is not None:
+            b[k] = op.offset            # the data part is read by reference_data_angles
+        elif op.param is None:
             b[k] = op.angle
         else:
             A[k, op.param] = op.scale
             b[k] = op.offset
     return A, b
+
+
+def reference_data_angles(circuit, theta, x):
+    """Gate angles phi (G,) for weights theta (m,) and one data point x, read op by op."""
+    theta = np.asarray(theta, dtype=float)
+    x = np.asarray(x, dtype=float)
+    out = []
+    for op in circuit.operations:
+        if not _parametric(op):
+            continue
+        if getattr(op, "input", None) is not None:
+            out.append(op.scale * x[op.input] + op.offset)
+        elif op.param is None:
+            out.append(op.angle)
+        else:
+            out.append(op.scale * theta[op.param] + op.offset)
+    return np.array(out)
 
 
 def reference_angles(circuit, theta):
