@@ -32,7 +32,7 @@ from functools import lru_cache
 
 import numpy as np
 
-from .shift_rules import ShiftRule, _general_coefficients, rule_for_frequencies
+from .shift_rules import ShiftRule, _general_shifts, rule_for_frequencies
 
 __all__ = ["SPLITS", "candidate_rules", "rule_variance", "least_variance_rule", "split_shots"]
 
@@ -84,7 +84,6 @@ def candidate_rules(frequencies) -> dict:
     return out
 
 
-@lru_cache(maxsize=256)
 def _even_split_rule(w: tuple) -> ShiftRule:
     """The general rule on ``w`` with shifts chosen for the least even-split variance.
 
@@ -92,29 +91,7 @@ def _even_split_rule(w: tuple) -> ShiftRule:
     ``sum |c_k|``: with equal shots per term, flatter coefficients are worth more than a
     small 1-norm.
     """
-    from scipy.optimize import minimize
-
-    w = np.asarray(w)
-    R = w.size
-
-    def cost(x):
-        try:
-            c = _general_coefficients(x, w)
-        except np.linalg.LinAlgError:
-            return 1e300
-        # the 2R terms are +-c/2 at shifts +-x: T sum_k c_k**2 = 2R * 2 sum (c/2)**2
-        v = 2 * R * 2 * np.sum((c / 2) ** 2)
-        return v if np.isfinite(v) else 1e300
-
-    best = None
-    for scale in (w[-1], w[0], w[-1] / 2):
-        x0 = (2 * np.arange(1, R + 1) - 1) * np.pi / (2 * R * scale)
-        res = minimize(cost, x0, method="Nelder-Mead",
-                       options={"xatol": 1e-10, "fatol": 1e-12, "maxiter": 4000 * R})
-        if best is None or res.fun < best.fun:
-            best = res
-    x = np.abs(best.x)
-    c = _general_coefficients(x, w)
+    x, c = _general_shifts(w, "even")
     return ShiftRule(np.concatenate([x, -x]), np.concatenate([c, -c]) / 2, tuple(w))
 
 
