@@ -4,7 +4,7 @@ from .circuits import Channel, Circuit, Gate, Observable, Operation, channels, g
 from .evaluation import (ChunkError, Ledger, density_matrix, distribute, expect, kernel_matrix,
                          probabilities, sample, state)
 from .rules import ShiftRule
-from .shots import Estimate, GradientEstimate, estimate, estimate_gradient
+from .shots import Estimate, GradientEstimate, TensorEstimate, estimate, estimate_gradient
 from .train import models, optimize, workflows
 
 __version__ = "0.1.0"
@@ -12,8 +12,8 @@ __version__ = "0.1.0"
 __all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", "expect",
            "probabilities", "state", "sample", "gates", "__version__",
            "Channel", "channels", "density_matrix", "estimate", "estimate_gradient", "Estimate",
-           "GradientEstimate", "check", "curvature", "models", "optimize", "workflows", "plot",
-           "distribute", "ChunkError", "shots", "kernel_matrix", "landscape"]
+           "GradientEstimate", "TensorEstimate", "check", "curvature", "models", "optimize",
+           "workflows", "plot", "distribute", "ChunkError", "shots", "kernel_matrix", "landscape"]
 
 
 def __getattr__(name):

@@ -1,9 +1,11 @@
 """The Fubini-Study metric tensor: full, layerwise and diagonal, and its layers.
 
-Exact: from the state derivatives (generator insertion on the simulator); a device would run
-the overlap circuits of the fidelity Hessian, which the ledger records. Block-diagonal and
-diagonal: generator covariances layer by layer (Stokes, Izaac, Killoran and Carleo,
-Quantum 4, 269 (2020)); a device runs one circuit per layer in a few measurement bases.
+Full: from the state derivatives (generator insertion on the simulator); a device runs the
+overlap circuits of the fidelity Hessian, which the ledger records. Layerwise and diagonal:
+generator covariances layer by layer (Stokes, Izaac, Killoran and Carleo, Quantum 4, 269
+(2020)); a device runs one circuit per layer in a few measurement bases. With ``shots=`` the
+same circuits are sampled and the metric estimated from the samples
+(`qgradlib.curvature.sampled_metric`).
 """
 from __future__ import annotations
 
@@ -15,11 +17,14 @@ import numpy as np
 from ..evaluation import distribute
 from ..evaluation import ledger as _ledger
 from ..circuits.circuit import Circuit
-from ..engine import apply_matrix, layer_covariances, state_derivatives
+from ..engine import (apply_gate, apply_matrix, effective_generator, layer_covariances,
+                      state_derivatives, states_before)
 from ..evaluation.expectation import _spec, evaluate
 from ..rules.higher_plans import build_plan, tensor
+from ..shots.estimation import TensorEstimate, check_shots
 from .execute import prepare
-from ..engine.measurement import measurement_settings
+from .sampled_metric import effective_estimate, layer_estimate, overlap_estimate
+from ..engine.measurement import make_rng, measurement_settings
 from ..circuits.observables import Observable
 from ..circuits.paulis import pauli_matrix
 
@@ -80,41 +85,83 @@ def _commute(a, b):
 _LETTERS = "IXYZ"
 
 
-def _pauli_words(op, n):
-    """Pauli words (n letters) with nonzero weight in the generator of ``op``."""
+def _generator_terms(op, n):
+    """The traceless part of the generator of ``op`` as Pauli words on n qubits,
+    ``{word: coefficient}`` (the identity part shifts no covariance)."""
     k = op.gate.n_qubits
     G = np.asarray(op.gate.generator)
-    words = []
+    terms = {}
     for letters in product(_LETTERS, repeat=k):
         word = "".join(letters)
         if word == "I" * k:
             continue
-        if abs(np.trace(pauli_matrix(word) @ G)) / 2 ** k > 1e-12:
+        c = np.trace(pauli_matrix(word) @ G) / 2 ** k
+        if abs(c) > 1e-12:
             full = ["I"] * n
             for q, ch in zip(op.qubits, word):
                 full[q] = ch
-            words.append("".join(full))
-    return words
+            terms["".join(full)] = float(np.real(c))
+    return terms
+
+
+_PHASES = {("X", "Y"): 1j, ("Y", "Z"): 1j, ("Z", "X"): 1j,
+           ("Y", "X"): -1j, ("Z", "Y"): -1j, ("X", "Z"): -1j}
 
 
 def _word_product(u, v):
-    """The Pauli word of ``u @ v``, phase dropped."""
-    out = []
+    """``(phase, word)`` with ``u @ v = phase * word`` for Pauli words ``u`` and ``v``."""
+    phase, out = 1, []
     for a, b in zip(u, v):
-        if a == "I" or a == b:
-            out.append(b if a == "I" else "I")
-        elif b == "I":
-            out.append(a)
+        if a == "I" or b == "I":
+            out.append(b if a == "I" else a)
+        elif a == b:
+            out.append("I")
         else:
+            phase *= _PHASES[(a, b)]
             out.append(({"X", "Y", "Z"} - {a, b}).pop())
-    return "".join(out)
+    return phase, "".join(out)
+
+
+def _layer_words(terms):
+    """The words a layer's estimates read: those of every ``K_a`` and of the products
+    ``K_a K_b`` (covariances), and those of ``K_a`` and ``K_a K_a`` (variances alone)."""
+    cov = [w for t in terms for w in t]
+    var = list(cov)
+    for i, ti in enumerate(terms):
+        var += [_word_product(a, b)[1] for a in ti for b in ti]
+        for tj in terms[i:]:
+            cov += [_word_product(a, b)[1] for a in ti for b in tj]
+    return cov, var
+
+
+def _products(terms, diagonal):
+    """``(a, b) -> {word: c}``: the Hermitian part of ``K_a K_b`` (``a <= b``; ``a == b`` only
+    when ``diagonal``), the real part of the metric's second moment."""
+    out = {}
+    for a, ta in enumerate(terms):
+        for b in range(a, len(terms)):
+            if diagonal and a != b:
+                continue
+            acc = {}
+            for w, cw in ta.items():
+                for v, cv in terms[b].items():
+                    phase, u = _word_product(w, v)
+                    acc[u] = acc.get(u, 0.0) + cw * cv * phase
+            out[(a, b)] = {u: float(np.real(c)) for u, c in acc.items() if abs(np.real(c)) > 1e-14}
+    return out
+
+
+def _settings(words, n):
+    """Qubit-wise commuting settings of ``words`` (sorted first: the same words give the same
+    settings in every process, whatever the hash seed)."""
+    words = sorted({w for w in words if w != "I" * n})
+    if not words:
+        return []
+    return measurement_settings(Observable({w: 1.0 for w in words}))
 
 
 def _bases(words, n):
-    words = {w for w in words if w != "I" * n}
-    if not words:
-        return ()
-    return tuple(s.basis for s in measurement_settings(Observable({w: 1.0 for w in words})))
+    return tuple(s.basis for s in _settings(words, n))
 
 
 def layers(circuit) -> tuple:
@@ -142,14 +189,7 @@ def layers(circuit) -> tuple:
 
     def close():
         if current:
-            words = {c: _pauli_words(op, n) for c, op in current}
-            ks = list(words.values())
-            cov = [w for ws in ks for w in ws]
-            var = list(cov)
-            for i, wi in enumerate(ks):
-                var += [_word_product(a, b) for a in wi for b in wi]
-                for wj in ks[i:]:
-                    cov += [_word_product(a, b) for a in wi for b in wj]
+            cov, var = _layer_words([_generator_terms(op, n) for _, op in current])
             out.append(Layer(tuple(c for c, _ in current), _bases(cov, n), _bases(var, n)))
             current.clear()
 
@@ -214,7 +254,8 @@ def refuse_noise(circuit, what):
             "ideal circuit")
 
 
-def metric_tensor(circuit, theta, structure="full", *, executor=None, chunk=None) -> np.ndarray:
+def metric_tensor(circuit, theta, structure="full", *, shots=None, seed=None, executor=None,
+                  chunk=None):
     """The Fubini-Study metric tensor of the circuit's output state, shape (m, m).
 
     ``g_ij = Re(<d_i psi|d_j psi> - <d_i psi|psi><psi|d_j psi>)`` in the parameters theta.
@@ -222,35 +263,47 @@ def metric_tensor(circuit, theta, structure="full", *, executor=None, chunk=None
     Parameters
     ----------
     circuit : Circuit
+        Without noise channels: the metric is defined for pure states (a noisy circuit is
+        refused; its classical `fisher_information` is available).
     theta : array_like, shape (n_params,)
     structure : {"full", "layerwise", "diagonal"}
-        "full": every entry, exact, from the state derivatives (generator insertion on the
-        simulator). "layerwise": the blocks of the `layers`, as covariances of the layer's
-        generators in the state before the layer, ``<K_i K_j> - <K_i><K_j>``; entries between
-        layers are zero (Stokes, Izaac, Killoran and Carleo, Quantum 4, 269 (2020)).
+        "full": every entry. "layerwise": the blocks of the `layers`, as covariances of the
+        layer's generators in the state before the layer, ``<K_i K_j> - <K_i><K_j>``; entries
+        between layers are zero (Stokes, Izaac, Killoran and Carleo, Quantum 4, 269 (2020)).
         "diagonal": the generator variances only.
+    shots : int >= 2, optional
+        Estimate the metric from sampled circuits as a device would (see Notes and
+        `qgradlib.curvature.sampled_metric`): ``shots`` per measurement setting of every
+        circuit. None: exact values (simulation).
+    seed : int or numpy.random.Generator, optional
+        Randomness of the shots.
     executor : concurrent.futures.Executor or dask.distributed.Client, optional
-        For the full metric: the state derivatives are computed in chunks of columns on it
-        (see `qgradlib.evaluation.distribute`). The layerwise and diagonal structures are one
-        pass over one state, with nothing to split: they run here.
+        For the exact full metric: the state derivatives are computed in chunks of columns on
+        it (see `qgradlib.evaluation.distribute`). The layerwise and diagonal structures are
+        one pass over one state, and sampled metrics are drawn here: they run here.
     chunk : int, optional
         Columns per task on ``executor`` (default: about 4 tasks per worker).
 
     Returns
     -------
-    ndarray (m, m)
-        The metric in gate-angle space mapped by the chain rule, ``A.T g_phi A``. With an
-        layerwise or diagonal structure, a parameter shared by gates of different layers collects their
-        blocks through ``A`` (its diagonal entry sums the gates' variances, scaled).
+    ndarray (m, m), or TensorEstimate with ``shots``
+        The metric in gate-angle space mapped by the chain rule, ``A.T g_phi A``. With a
+        layerwise or diagonal structure, a parameter shared by gates of different layers
+        collects their blocks through ``A`` (its diagonal entry sums the gates' variances,
+        scaled). With shots: a `qgradlib.shots.TensorEstimate` (``value``,
+        ``standard_error``, ``executions``, ``shots``, ``circuits``); every entry of
+        ``value`` is an unbiased estimate.
 
     Notes
     -----
-    What a device would run is recorded in the active `qgradlib.Ledger` (no shots are taken
-    here: the values are exact simulations):
+    What a device runs is recorded in the active `qgradlib.Ledger`, with ``shots`` per
+    execution when given (without, the values are exact simulations and no shots are taken):
 
-    - "full": the overlap circuits ``U(phi)^dagger U(phi + x)`` of the fidelity Hessian,
-      each measured once in the computational basis (the probability of all zeros): for
-      two-term columns ``2 G**2`` circuits for G columns (purpose ``"overlap"``);
+    - "full": the overlap circuits ``U(phi)^dagger U(phi + x)`` of the fidelity Hessian
+      (Mari, Bromley and Killoran, Phys. Rev. A 103, 012405 (2021)), each measured in the
+      computational basis for the probability of all zeros: ``2 G**2`` circuits for G
+      two-term columns (purpose ``"overlap"``). Exact values come from the state
+      derivatives (generator insertion on the simulator);
     - "layerwise": one circuit per layer (the circuit up to the layer), measured in every
       basis of ``Layer.settings`` (the qubit-wise commuting groups of the words of ``K_i``
       and ``K_i K_j``) (purpose ``"metric"``);
@@ -264,6 +317,11 @@ def metric_tensor(circuit, theta, structure="full", *, executor=None, chunk=None
     >>> metric_tensor(c, np.array([0.7, 0.1])).round(6).tolist() == \\
     ...     [[0.25, 0.0], [0.0, round(np.sin(0.7) ** 2 / 4, 6)]]
     True
+    >>> est = metric_tensor(c, np.array([0.7, 0.1]), "diagonal", shots=1000, seed=1)
+    >>> est.executions, est.shots                   # two layers, one setting each
+    (2, 2000)
+    >>> bool(abs(est.value[1, 1] - np.sin(0.7) ** 2 / 4) < 5 * est.standard_error[1, 1])
+    True
     """
     if not isinstance(structure, str) or structure not in STRUCTURES:
         raise ValueError(f"structure must be one of {STRUCTURES}; got {structure!r}")
@@ -271,6 +329,9 @@ def metric_tensor(circuit, theta, structure="full", *, executor=None, chunk=None
     theta, phi, A = prepare(circuit, theta)
     spec = _spec(circuit, "probs", executor=executor, chunk=chunk)
     columns = spec.columns
+    if shots is not None:
+        return _sampled_metric(circuit, phi, A, columns, structure, check_shots(shots),
+                               make_rng(seed))
     Ac = A[list(columns)] if columns else np.zeros((0, A.shape[1]))
     if structure == "full":
         g = _exact_metric_phi(circuit, phi, columns, spec.executor, spec.chunk)
@@ -285,6 +346,51 @@ def metric_tensor(circuit, theta, structure="full", *, executor=None, chunk=None
             s = lay.n_settings if structure == "layerwise" else lay.n_variance_settings
             _ledger.record(1, s, 0, {"metric": 1})
     return Ac.T @ g @ Ac
+
+
+def _sampled_metric(circuit, phi, A, columns, structure, shots, rng):
+    """The metric estimated from sampled circuits, recorded in the ledger with its shots."""
+    m = A.shape[1]
+    if structure == "full":
+        plan, origin = _overlap_plan(circuit, phi, columns)
+        count = plan.n_points - len(origin)
+        if count:
+            value, var = overlap_estimate(circuit, phi, plan, origin, columns, A, shots, rng)
+            _ledger.record(count, 1, shots, {"overlap": count})
+        else:
+            value, var = np.zeros((m, m)), np.zeros((m, m))
+        return TensorEstimate(value, np.sqrt(var), count, count * shots, count)
+    n = circuit.n_qubits
+    diagonal = structure == "diagonal"
+    pops = circuit.parametric_operations
+    lays = layers(circuit)
+    value, var = np.zeros((m, m)), np.zeros((m, m))
+    executions = 0
+    for lay, psi in zip(lays, states_before(circuit, phi, [lay.columns[0] for lay in lays])):
+        rows = A[list(lay.columns)]
+        if lay.effective:
+            c = lay.columns[0]
+            op = pops[c]
+            after = apply_gate(psi[None], n, op.gate, op.qubits, np.array([phi[c]]))[0]
+            s2, v = effective_estimate(after, n, effective_generator(op.gate, phi[c]), op.qubits,
+                                       shots, rng)
+            outer = np.outer(rows[0], rows[0])
+            value += s2 * outer
+            var += v * outer ** 2
+            count = 1
+        else:
+            terms = [_generator_terms(pops[c], n) for c in lay.columns]
+            cov, var_words = _layer_words(terms)
+            settings = _settings(var_words if diagonal else cov, n)
+            if settings:
+                block, v = layer_estimate(psi, n, terms, _products(terms, diagonal), settings,
+                                          rows, shots, rng)
+                value += block
+                var += v
+            count = max(1, len(settings))
+        _ledger.record(1, count, shots, {"metric": 1})
+        executions += count
+    return TensorEstimate(value, np.sqrt(var), executions, executions * shots, len(lays))
 
 
 def _overlap_metric(circuit, theta):

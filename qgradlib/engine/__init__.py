@@ -8,8 +8,9 @@ work that would not fit before allocating it.
 from .measure import expectations, pauli_expectation, probabilities
 from .memory import StateTooLarge, available_bytes, guard
 from .statevector import apply_diagonal, apply_gate, apply_matrix, run, zero_states
-from .tangents import layer_covariances, state_derivatives
+from .tangents import effective_generator, layer_covariances, state_derivatives, states_before
 
 __all__ = ["StateTooLarge", "available_bytes", "guard", "apply_gate", "apply_matrix",
            "apply_diagonal", "run", "zero_states", "expectations", "probabilities",
-           "pauli_expectation", "state_derivatives", "layer_covariances"]
+           "pauli_expectation", "state_derivatives", "layer_covariances", "states_before",
+           "effective_generator"]

@@ -22,7 +22,7 @@ from .adjoint import hamiltonian_derivative
 from .memory import guard
 from .statevector import apply_gate, apply_matrix, zero_states
 
-__all__ = ["state_derivatives", "layer_covariances"]
+__all__ = ["state_derivatives", "layer_covariances", "states_before", "effective_generator"]
 
 
 def _derivative_matrix(gate, a):
@@ -69,29 +69,52 @@ def layer_covariances(circuit, phi, columns, lays, diagonal=False):
     """
     n = circuit.n_qubits
     pos = {c: i for i, c in enumerate(columns)}
-    start = {lay.columns[0]: lay for lay in lays}
     pops = circuit.parametric_operations
     g = np.zeros((len(columns), len(columns)))
+    before = states_before(circuit, phi, [lay.columns[0] for lay in lays])
+    for lay, psi in zip(lays, before):
+        psi = psi[None]
+        if lay.effective:
+            c = lay.columns[0]
+            op = pops[c]
+            after = apply_gate(psi, n, op.gate, op.qubits, np.array([phi[c]]))
+            k = apply_matrix(after, n, effective_generator(op.gate, phi[c]), op.qubits)
+            g[pos[c], pos[c]] = np.real(np.vdot(k, k)) - np.real(np.vdot(after, k)) ** 2
+            continue
+        K = [apply_matrix(psi, n, np.asarray(pops[c].gate.generator), pops[c].qubits)[0]
+             for c in lay.columns]
+        mean = [np.real(np.vdot(psi[0], k)) for k in K]
+        for a, ca in enumerate(lay.columns):
+            for b, cb in enumerate(lay.columns):
+                if diagonal and a != b:
+                    continue
+                g[pos[ca], pos[cb]] = np.real(np.vdot(K[a], K[b])) - mean[a] * mean[b]
+    return g
+
+
+def effective_generator(gate, a):
+    """``K = i (dU/da) U^dagger`` of a Hamiltonian or function gate at angle ``a``: the
+    Hermitian operator whose variance in the state after the gate is the gate's metric entry."""
+    U = gate._matrices(np.array([a]))[0]
+    K = 1j * _derivative_matrix(gate, a) @ U.conj().T
+    return 0.5 * (K + K.conj().T)     # Hermitian exactly (a function gate's dU is a difference)
+
+
+def states_before(circuit, phi, columns):
+    """The state just before each parametric column in ``columns``: (len(columns), 2**n), one
+    walk over the circuit."""
+    n = circuit.n_qubits
+    want = {c: i for i, c in enumerate(columns)}
+    guard(16 * (len(columns) + 1) * 2 ** n, f"{len(columns) + 1} states of {n} qubits")
+    out = np.zeros((len(columns), 2 ** n), dtype=complex)
     psi = zero_states(n, 1)
     col = -1
     for op in circuit.operations:
-        if op.gate.parametric:
-            col += 1
-            lay = start.get(col)
-            if lay is not None and lay.effective:
-                d = apply_matrix(psi, n, _derivative_matrix(op.gate, phi[col])[None], op.qubits)
-                after = apply_gate(psi, n, op.gate, op.qubits, np.array([phi[col]]))
-                g[pos[col], pos[col]] = np.real(np.vdot(d, d)) - abs(np.vdot(after, d)) ** 2
-            elif lay is not None:
-                K = [apply_matrix(psi, n, np.asarray(pops[c].gate.generator), pops[c].qubits)[0]
-                     for c in lay.columns]
-                mean = [np.real(np.vdot(psi[0], k)) for k in K]
-                for a, ca in enumerate(lay.columns):
-                    for b, cb in enumerate(lay.columns):
-                        if diagonal and a != b:
-                            continue
-                        g[pos[ca], pos[cb]] = np.real(np.vdot(K[a], K[b])) - mean[a] * mean[b]
-            psi = apply_gate(psi, n, op.gate, op.qubits, np.array([phi[col]]))
-        else:
+        if not op.gate.parametric:
             psi = apply_gate(psi, n, op.gate, op.qubits)
-    return g
+            continue
+        col += 1
+        if col in want:
+            out[want[col]] = psi[0]
+        psi = apply_gate(psi, n, op.gate, op.qubits, np.array([phi[col]]))
+    return out

@@ -5,7 +5,7 @@ statistics would produce (simulated), priced in the ledger. Measurement settings
 allocation are re-exported from the engine, where sampling happens.
 """
 from ..engine.measurement import allocate, measurement_settings, n_settings
-from .estimation import Estimate, GradientEstimate, estimate, estimate_gradient
+from .estimation import Estimate, GradientEstimate, TensorEstimate, estimate, estimate_gradient
 
-__all__ = ["Estimate", "GradientEstimate", "estimate", "estimate_gradient", "allocate",
+__all__ = ["Estimate", "GradientEstimate", "TensorEstimate", "estimate", "estimate_gradient", "allocate",
            "measurement_settings", "n_settings"]

@@ -43,7 +43,8 @@ from ..evaluation.expectation import _check_circuit, _observables, _spec
 from ..rules.plans import first_order_points
 from ..rules.variance import SPLITS, split_shots
 
-__all__ = ["Estimate", "GradientEstimate", "estimate", "estimate_gradient"]
+__all__ = ["Estimate", "GradientEstimate", "TensorEstimate", "estimate", "estimate_gradient",
+           "check_shots"]
 
 
 @dataclass(frozen=True)
@@ -105,12 +106,48 @@ class GradientEstimate:
                         shots=self.shots, circuits=self.circuits)
 
 
-def _prepare(circuit, observables, theta, shots, seed, allocation, readout, inputs=None, **options):
-    _check_circuit(circuit)
-    obs, single = _observables(observables, circuit.n_qubits)
+@dataclass(frozen=True)
+class TensorEstimate:
+    """A finite-shot estimate of a tensor (a metric, a Fisher information), with standard
+    errors entry by entry.
+
+    Attributes
+    ----------
+    value : ndarray
+        The estimate, shaped like the exact result.
+    standard_error : ndarray
+        Same shape: the estimated standard deviation of each entry.
+    executions : int
+        Circuits times measurement settings.
+    shots : int
+        Total shots taken.
+    circuits : int
+        Distinct circuits run.
+    """
+
+    value: np.ndarray
+    standard_error: np.ndarray
+    executions: int
+    shots: int
+    circuits: int
+
+    def __repr__(self):
+        return describe("TensorEstimate", value=self.value, standard_error=self.standard_error,
+                        executions=self.executions, shots=self.shots, circuits=self.circuits)
+
+
+def check_shots(shots):
+    """``shots`` as an int >= 2 (a standard error needs a sample variance), or ValueError."""
     if shots is None or isinstance(shots, (bool, np.bool_)) or not isinstance(shots, (int, np.integer)) \
             or shots < 2:
         raise ValueError(f"shots must be an int >= 2 (a standard error needs a sample variance); got {shots!r}")
+    return int(shots)
+
+
+def _prepare(circuit, observables, theta, shots, seed, allocation, readout, inputs=None, **options):
+    _check_circuit(circuit)
+    obs, single = _observables(observables, circuit.n_qubits)
+    check_shots(shots)
     theta = np.asarray(getval(check_theta(circuit, theta)), dtype=float)
     inputs = check_inputs(circuit, inputs, theta)
     if inputs is not None:

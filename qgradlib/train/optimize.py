@@ -552,11 +552,16 @@ def _first_order_method(method, problem, m, o, rng):
     if method == "natural":
         from .. import curvature
 
-        circuit = problem.circuit_parts[0]
+        circuit, _, shots, gen = problem.circuit_parts
 
         def natural(x, v, g, k):
-            F = np.asarray(curvature.metric_tensor(circuit, x, o["metric"], **problem.where),
-                           dtype=float)
+            if shots is None:
+                F = curvature.metric_tensor(circuit, x, o["metric"], **problem.where)
+            else:
+                # measured as a device would, with the run's shots (and in its ledger)
+                F = curvature.metric_tensor(circuit, x, o["metric"], shots=shots, seed=gen,
+                                            **problem.where).value
+            F = np.asarray(F, dtype=float)
             A = F + o["regulariser"] * np.eye(m)
             return o["rate"] * np.linalg.lstsq(A, g, rcond=None)[0]
         return evaluate, natural
