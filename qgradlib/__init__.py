@@ -1,8 +1,8 @@
 """qgradlib: parameter-shift gradients, curvature and shot accounting for quantum circuits."""
 from . import check, curvature, landscape, shots
-from .circuits import Channel, Circuit, Gate, Observable, Operation, channels, gates
-from .evaluation import (ChunkError, Ledger, density_matrix, distribute, expect, kernel_matrix,
-                         probabilities, sample, state)
+from .circuits import Channel, Circuit, Gate, Observable, Operation, channels, commutator, gates
+from .evaluation import (ChunkError, Ledger, counts, density_matrix, distribute, expect,
+                         kernel_matrix, probabilities, sample, state, variance)
 from .rules import ShiftRule
 from .shots import Estimate, GradientEstimate, TensorEstimate, estimate, estimate_gradient
 from .train import models, optimize, workflows
@@ -13,7 +13,8 @@ __all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", 
            "probabilities", "state", "sample", "gates", "__version__",
            "Channel", "channels", "density_matrix", "estimate", "estimate_gradient", "Estimate",
            "GradientEstimate", "TensorEstimate", "check", "curvature", "models", "optimize",
-           "workflows", "plot", "distribute", "ChunkError", "shots", "kernel_matrix", "landscape"]
+           "workflows", "plot", "distribute", "ChunkError", "shots", "kernel_matrix", "counts",
+           "variance", "commutator", "landscape"]
 
 
 def __getattr__(name):

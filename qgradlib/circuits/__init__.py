@@ -7,7 +7,7 @@ from . import channels, gates
 from .channels import Channel
 from .circuit import Circuit, Operation, check_theta
 from .gates import Gate
-from .observables import Observable
+from .observables import Observable, commutator
 
 __all__ = ["Circuit", "Operation", "Gate", "Channel", "Observable", "channels", "gates",
-           "check_theta"]
+           "check_theta", "commutator"]

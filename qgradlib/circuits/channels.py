@@ -59,6 +59,23 @@ class Channel:
     parametric = False
     diagonal = False
 
+    def _key(self):
+        return (self.name, self.n_qubits, tuple((k.shape, k.tobytes()) for k in self.kraus))
+
+    def __eq__(self, other):
+        """Same name, size and exactly the same Kraus operators, in the same order."""
+        if self is other:
+            return True
+        if not isinstance(other, Channel):
+            return NotImplemented
+        return self._key() == other._key()
+
+    def __hash__(self):
+        return hash(self._key())
+
+    def __repr__(self):
+        return f"Channel({self.name!r}, n_qubits={self.n_qubits}, kraus={len(self.kraus)})"
+
     def __reduce__(self):
         # rebuilt through _make, so the Kraus matrices come back read-only
         return _make, (self.name, [np.array(k) for k in self.kraus])

@@ -27,11 +27,15 @@ from dataclasses import dataclass
 from numbers import Real
 
 import autograd.numpy as anp
+from autograd.tracer import getval
 import numpy as np
 
 from . import gates as _g
+from . import files, transform
 from .channels import Channel
+from .drawing import angle_text, draw, number
 from .gates import Gate
+from .resources import resources
 
 __all__ = ["Circuit", "Operation"]
 
@@ -51,6 +55,15 @@ class Operation:
     @property
     def trainable(self) -> bool:
         return self.param is not None
+
+    def __repr__(self):
+        # short: the gate by name, never its matrices
+        parts = [repr(self.gate.name), f"qubits={self.qubits}"]
+        if self.param is not None or getattr(self, "input", None) is not None:
+            parts.append(f"angle={angle_text(self)}")
+        elif self.angle is not None:
+            parts.append(f"angle={number(self.angle)}")
+        return f"Operation({', '.join(parts)})"
 
 
 class Circuit:
@@ -120,6 +133,70 @@ class Circuit:
         extra = f", n_inputs={self._n_inputs}" if self._n_inputs else ""
         return (f"Circuit(n_qubits={self._n}, operations={len(self._ops)}, "
                 f"n_params={self._n_params}{extra})")
+
+    def __str__(self):
+        return draw(self)
+
+    def draw(self, theta=None, width=100) -> str:
+        """The circuit as text: one line per qubit, operations in layers (`qgradlib.circuits.drawing`).
+
+        ``theta`` binds the parameters (angles shown as numbers); lines wrap at ``width``.
+
+        Examples
+        --------
+        >>> import qgradlib as qg
+        >>> print(qg.Circuit(3).h(0).cnot(0, 2).noise(1, qg.channels.dephasing(0.1)).draw())
+        0 -H-CNOT:1-------------
+             |
+        1 ---|------~dephasing~-
+             |
+        2 ---CNOT:2-------------
+        """
+        if theta is not None:
+            theta = np.asarray(getval(check_theta(self, theta)), dtype=float)
+            if theta.ndim != 1:
+                raise ValueError(f"theta must have shape ({self.n_params},) to draw; got {theta.shape}")
+        return draw(self, theta, width)
+
+    def resources(self, theta=None):
+        """Qubits, depth, gate counts, parameters, channels and the shifted circuits one
+        gradient and one Hessian need, as a frozen `Resources` record."""
+        theta = np.zeros(self._n_params) if theta is None else \
+            np.asarray(getval(check_theta(self, theta)), dtype=float)
+        return resources(self, theta)
+
+    # -- files ----------------------------------------------------------------------------
+    def to_json(self, indent=None) -> str:
+        """The circuit as JSON text in qgradlib's own versioned schema (`qgradlib.circuits.files`).
+
+        Examples
+        --------
+        >>> import qgradlib as qg
+        >>> text = qg.Circuit(1).ry(0, scale=2.0).to_json()
+        >>> text[:52]
+        '{"format": "qgradlib.circuit", "version": 1, "n_qubi'
+        """
+        return files.circuit_to_json(self, indent)
+
+    @classmethod
+    def from_json(cls, text) -> "Circuit":
+        """A circuit from `to_json` text; every field is checked, errors name the field."""
+        return files.circuit_from_json(cls, Operation, text)
+
+    # -- comparing ------------------------------------------------------------------------
+    def __eq__(self, other):
+        """Same qubits, parameters and operations (gates, qubits, angle maps), exactly."""
+        if not isinstance(other, Circuit):
+            return NotImplemented
+        return (self._n == other._n and self._n_params == other._n_params
+                and self._n_inputs == other._n_inputs and self._ops == other._ops)
+
+    # a circuit grows by appending, so it cannot keep a hash that agrees with ==
+    __hash__ = None
+
+    def __getstate__(self):
+        # memos (compiled programs, periods) are rebuilt where the circuit lands
+        return {k: v for k, v in self.__dict__.items() if not k.startswith("_memo")}
 
     # -- building -------------------------------------------------------------------------
     def add(self, gate: Gate, qubits, param=None, *, scale=1.0, offset=0.0, angle=None, input=None):
@@ -196,6 +273,7 @@ class Circuit:
         return qs
 
     def copy(self) -> "Circuit":
+        """An independent copy (appending to it leaves this circuit alone)."""
         out = Circuit(self._n)
         out._ops = list(self._ops)
         out._n_params = self._n_params
@@ -209,15 +287,38 @@ class Circuit:
             return NotImplemented
         if other._n != self._n:
             raise ValueError(f"cannot concatenate circuits on {self._n} and {other._n} qubits")
-        out = self.copy()
-        shift = self._n_params
-        for op in other._ops:
-            if op.param is not None:
-                op = Operation(op.gate, op.qubits, op.param + shift, op.scale, op.offset)
-            out._ops.append(op)
-        out._n_params = self._n_params + other._n_params
-        out._n_inputs = max(self._n_inputs, other._n_inputs)
-        return out
+        return transform.compose(self, other)
+
+    def compose(self, other, qubits=None) -> "Circuit":
+        """This circuit followed by ``other``, other's qubit i placed on ``qubits[i]``.
+
+        ``qubits`` defaults to ``0 .. other.n_qubits - 1``. Other's parameters are renumbered
+        to follow this circuit's, as with ``+``; this circuit is not changed.
+
+        Examples
+        --------
+        >>> import qgradlib as qg
+        >>> pair = qg.Circuit(2).ry(0).cnot(0, 1)
+        >>> c = qg.Circuit(3).h(0).compose(pair, qubits=[2, 1])
+        >>> [(op.gate.name, op.qubits, op.param) for op in c.operations]
+        [('H', (0,), None), ('RY', (2,), 0), ('CNOT', (2, 1), None)]
+        """
+        return transform.compose(self, other, qubits)
+
+    def inverse(self) -> "Circuit":
+        """The adjoint circuit (`qgradlib.circuits.transform`): operations reversed, each gate
+        inverted, the same parameters with their angle maps negated. Refused for noise.
+
+        Examples
+        --------
+        >>> import numpy as np
+        >>> import qgradlib as qg
+        >>> c = qg.Circuit(2).ry(0).cnot(0, 1).rz(1)
+        >>> u = c + c.inverse()        # theta[0:2], then the inverse's own copy as theta[2:4]
+        >>> bool(np.allclose(qg.state(u, np.array([0.3, 0.7, 0.3, 0.7])), [1, 0, 0, 0]))
+        True
+        """
+        return transform.inverse(self)
 
     # -- the angle map --------------------------------------------------------------------
     def angle_map(self):

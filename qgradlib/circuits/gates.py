@@ -174,6 +174,37 @@ class Gate:
             raise ValueError(f"fn(0.0) must be {2**k}x{2**k} for n_qubits={k}; got {u.shape}")
         return cls(_name(name), k, "function", function=fn)
 
+    # -- comparing ------------------------------------------------------------------------
+    def _key(self):
+        # what a gate is: its name, kind, size and defining data (exact bytes, not a tolerance);
+        # the private closed forms are derived from that data and take no part
+        data = tuple(None if a is None else (a.shape, a.tobytes())
+                     for a in (self.unitary, self.generator, self.drift))
+        # a function gate is its function: the same callable object, nothing weaker
+        fn = self.function
+        if fn is not None:
+            try:
+                hash(fn)
+            except TypeError:
+                fn = id(fn)
+        rule = None if self.rule is None else (self.rule.shifts.tobytes(), self.rule.coefficients.tobytes())
+        return (self.name, self.kind, self.n_qubits, data, self.drive, fn, rule)
+
+    def __eq__(self, other):
+        """Same name, kind, qubit count and exactly the same defining data (and custom rule)."""
+        if self is other:
+            return True
+        if not isinstance(other, Gate):
+            return NotImplemented
+        return self._key() == other._key()
+
+    def __hash__(self):
+        return hash(self._key())
+
+    def __repr__(self):
+        # short on purpose: matrices are shown by Gate.matrix(), never in a repr
+        return f"Gate({self.name!r}, kind={self.kind!r}, n_qubits={self.n_qubits})"
+
     # -- pickling -------------------------------------------------------------------------
     def __reduce__(self):
         # the closed forms in _dense/_diag are closures, which pickle cannot carry: a standard

@@ -20,7 +20,6 @@ nothing else, so the cache is not state a caller can observe except through spee
 """
 from __future__ import annotations
 
-import weakref
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -294,17 +293,13 @@ def step_matrix(step, table, B):
     return out
 
 
-_CACHE: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
-
-
 def program(circuit, fuse: bool, solo_columns=frozenset(), bake_fixed_angles=True) -> Program:
     """The memoised `compile_program` of ``circuit`` (recompiled when its operations change)."""
     ops = circuit.operations
     key = (bool(fuse), frozenset(solo_columns), bool(bake_fixed_angles))
-    try:
-        per = _CACHE.setdefault(circuit, {})
-    except TypeError:
-        per = {}
+    # held by the circuit itself (circuits compare by content and are unhashable, so they
+    # cannot key a dict); Circuit drops `_memo_*` attributes when copied or pickled
+    per = circuit.__dict__.setdefault("_memo_programs", {})
     hit = per.get(key)
     if hit is not None and hit[0] == ops:
         return hit[1]

@@ -8,6 +8,7 @@ from .distribute import ChunkError
 from .expectation import density_matrix, evaluate, expect, probabilities, sample, state
 from .fidelity import kernel_matrix
 from .ledger import Ledger
+from .statistics import counts, variance
 
 __all__ = ["expect", "probabilities", "state", "sample", "density_matrix", "evaluate", "Ledger",
-           "ChunkError", "kernel_matrix"]
+           "ChunkError", "kernel_matrix", "counts", "variance"]

@@ -22,7 +22,6 @@ is forgotten; see `qgradlib.evaluation.adjoint_nested`).
 """
 from __future__ import annotations
 
-import weakref
 from collections import Counter
 from dataclasses import dataclass, replace
 from numbers import Real
@@ -42,6 +41,7 @@ from ..engine.measurement import (ALLOCATIONS, apply_readout, check_readout, mak
                                   outcome_distribution, plan_measurements)
 from .rows import measure_rows_here
 from ..circuits.observables import Observable
+from ..circuits.preparation import prepared
 from ..rules.plans import first_order_points
 
 __all__ = ["expect", "probabilities", "state", "density_matrix", "sample", "evaluate", "METHODS"]
@@ -137,17 +137,14 @@ def _angle_ticks(phi, circuit):
     return t + 0.0          # -0.0 and 0.0 must give one key
 
 
-_PERIODS: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
-
-
 def _periods(circuit):
     """Each column's gate period (NaN where none), memoised per circuit (columns only grow)."""
     pops = circuit.parametric_operations
-    hit = _PERIODS.get(circuit)
+    hit = circuit.__dict__.get("_memo_periods")
     if hit is None or hit[0] != len(pops):
         per = np.array([np.nan if op.gate.period is None else op.gate.period for op in pops], dtype=float)
         hit = (len(pops), per)
-        _PERIODS[circuit] = hit
+        circuit.__dict__["_memo_periods"] = hit
     return hit[1]
 
 
@@ -271,10 +268,44 @@ def _observables(observables, n):
     for o in obs:
         if not isinstance(o, Observable):
             raise TypeError(f"observables must be Observable instances; got {type(o).__name__}")
+        if o.traced:
+            raise TypeError("this function cannot differentiate observable coefficients (only "
+                            "expect and variance can): build the observable from plain floats")
         if o.n_qubits != n:
             raise ValueError(f"observable on {o.n_qubits} qubits does not fit a circuit of {n} qubits "
                              "(Pauli strings need one letter per qubit)")
     return tuple(obs), single
+
+
+def _traced_split(observables):
+    """``(terms, weights, single)`` when some coefficient is traced by autograd, else None.
+
+    Every traced observable becomes its Pauli words (unit coefficients) and, weighted by
+    the traced coefficients, the sum of their values; other observables pass as they are.
+    """
+    single = isinstance(observables, Observable)
+    obs = [observables] if single else observables
+    if not isinstance(obs, (list, tuple)) or not any(isinstance(o, Observable) and o.traced for o in obs):
+        return None
+    inner, index, weights = [], {}, []
+
+    def slot(o, key):
+        if key not in index:
+            index[key] = len(inner)
+            inner.append(o)
+        return index[key]
+
+    for k, o in enumerate(obs):
+        if not isinstance(o, Observable):
+            raise TypeError(f"observables must be Observable instances; got {type(o).__name__}")
+        if not o.traced:
+            weights.append([(slot(o, ("whole", k)), 1.0)])
+            continue
+        row = [(slot(Observable({w: 1.0}), ("word", w)), c) for w, c in o.terms.items()]
+        if o.dense is not None:
+            row.append((slot(Observable.from_matrix(o.dense), ("dense", k)), 1.0))
+        weights.append(row)
+    return inner, weights, single
 
 
 def _check_qubits(qubits, n):
@@ -375,7 +406,7 @@ def _traced(spec, theta, inputs):
 # -- public functions ---------------------------------------------------------------------------
 def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, gradient="shift",
            shift=None, step=None, stencil="central", splits=1, memory=None, allocation="uniform",
-           readout=None, fuse=True, executor=None, chunk=None):
+           readout=None, fuse=True, executor=None, chunk=None, initial=None):
     """Expectation value(s) of ``observables`` after ``circuit`` at parameters ``theta``.
 
     Differentiable with autograd (`grad`, `jacobian`, `hessian`, ...); the derivative is
@@ -421,6 +452,10 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
         chunks (see `qgradlib.evaluation.distribute`); results equal the serial ones.
     chunk : int, optional
         Circuits per task on ``executor`` (default: about 4 tasks per worker).
+    initial : str or array_like, optional
+        The state the circuit starts from instead of |0...0>: a bitstring such as ``"0110"``
+        (qubit 0 leftmost) or a normalised state vector of shape (2**n,) (see
+        `qgradlib.circuits.preparation`). Derivatives start from it too.
 
     Returns
     -------
@@ -452,6 +487,18 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
     ((2,), True)
     """
     _check_circuit(circuit)
+    traced = _traced_split(observables)
+    if traced is not None:
+        # coefficients being differentiated stay in autograd as weights of the term values;
+        # only the terms (plain observables) go through the primitive
+        inner, weights, single = traced
+        vals = expect(circuit, inner, theta, shots=shots, seed=seed, gradient=gradient,
+                      shift=shift, step=step, stencil=stencil, splits=splits, memory=memory,
+                      allocation=allocation, readout=readout, fuse=fuse, executor=executor,
+                      chunk=chunk, initial=initial, inputs=inputs)
+        out = [sum(w * vals[..., j] for j, w in row) for row in weights]
+        return out[0] if single else anp.stack(out, axis=-1)
+    circuit = prepared(circuit, initial)
     obs, single = _observables(observables, circuit.n_qubits)
     check_inputs(circuit, inputs, check_theta(circuit, theta))
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
@@ -465,12 +512,13 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
 
 def probabilities(circuit, theta, qubits=None, *, inputs=None, shots=None, seed=None,
                   gradient="shift", shift=None, step=None, stencil="central", splits=1,
-                  memory=None, readout=None, fuse=True, executor=None, chunk=None):
+                  memory=None, readout=None, fuse=True, executor=None, chunk=None, initial=None):
     """Probabilities of the outcomes on ``qubits`` (first listed = most significant bit).
 
     Differentiable like `expect`. Returns shape (2**k,) or (B, 2**k) (or (N, 2**k) for a data
     set ``inputs``). ``readout`` (per-qubit flip probabilities) is applied to the outcome
-    distribution before any sampling; the other options are those of `expect`.
+    distribution before any sampling; the other options (``initial=`` included) are those
+    of `expect`.
 
     Examples
     --------
@@ -481,6 +529,7 @@ def probabilities(circuit, theta, qubits=None, *, inputs=None, shots=None, seed=
     [0.0, 0.0, 1.0, 0.0]
     """
     _check_circuit(circuit)
+    circuit = prepared(circuit, initial)
     qs = _check_qubits(qubits, circuit.n_qubits)
     check_inputs(circuit, inputs, check_theta(circuit, theta))
     spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
@@ -490,14 +539,15 @@ def probabilities(circuit, theta, qubits=None, *, inputs=None, shots=None, seed=
     return vals if batched else vals[0]
 
 
-def state(circuit, theta, *, inputs=None, fuse=True) -> np.ndarray:
+def state(circuit, theta, *, inputs=None, fuse=True, initial=None) -> np.ndarray:
     """The final statevector, complex128 of shape (2**n,) or (B, 2**n). Not differentiable.
 
     ``inputs`` (n_inputs,) or (N, n_inputs) is the data point or set the circuit reads, as in
     `expect`; a data set gives shape (N, 2**n).
 
     A circuit with noise channels has no pure state: use `density_matrix`. ``fuse`` switches
-    gate fusion in the engine (results agree to rounding).
+    gate fusion in the engine (results agree to rounding); ``initial`` is the starting state,
+    as in `expect`.
 
     Examples
     --------
@@ -507,6 +557,7 @@ def state(circuit, theta, *, inputs=None, fuse=True) -> np.ndarray:
     [(0.7071+0j), (0.7071+0j)]
     """
     _check_circuit(circuit)
+    circuit = prepared(circuit, initial)
     if circuit.has_noise:
         raise ValueError("circuit has noise channels, so its final state is mixed: use "
                          "qgradlib.density_matrix(circuit, theta) instead of state()")
@@ -524,7 +575,7 @@ def _plain_angles(circuit, theta, inputs):
                       dtype=float)
 
 
-def density_matrix(circuit, theta, *, inputs=None) -> np.ndarray:
+def density_matrix(circuit, theta, *, inputs=None, initial=None) -> np.ndarray:
     """The final density matrix, complex128 of shape (2**n, 2**n) or (B, 2**n, 2**n).
 
     Runs the density-matrix path (also for a circuit without noise). Not differentiable.
@@ -539,6 +590,7 @@ def density_matrix(circuit, theta, *, inputs=None) -> np.ndarray:
     [[0.5, 0.25], [0.25, 0.5]]
     """
     _check_circuit(circuit)
+    circuit = prepared(circuit, initial)
     phi = _plain_angles(circuit, theta, inputs)
     n = circuit.n_qubits
     memory.guard(16 * 4 ** n, f"a density matrix of {n} qubits")
@@ -546,7 +598,8 @@ def density_matrix(circuit, theta, *, inputs=None) -> np.ndarray:
     return rho if phi.ndim == 2 else rho[0]
 
 
-def sample(circuit, theta, shots, seed=None, *, inputs=None, readout=None) -> np.ndarray:
+def sample(circuit, theta, shots, seed=None, *, inputs=None, readout=None,
+           initial=None) -> np.ndarray:
     """Basis-state indices of ``shots`` readouts of all qubits (big-endian), shape (shots,)
     or (B, shots) (or (N, shots) for a data set ``inputs``, as in `expect`).
 
@@ -561,6 +614,7 @@ def sample(circuit, theta, shots, seed=None, *, inputs=None, readout=None) -> np
     [2, 2, 2]
     """
     _check_circuit(circuit)
+    circuit = prepared(circuit, initial)
     shots = _check_shots(shots)
     if shots is None:
         raise ValueError("shots must be a positive int; got None")
