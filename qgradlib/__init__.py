@@ -10,7 +10,7 @@ Examples
 >>> round(float(qg.expect(c, qg.Observable({"Z": 1.0}), np.array([np.pi / 3]))), 12)
 0.5
 """
-from . import check, curvature, shots
+from . import check, curvature, landscape, shots
 from .circuits import Channel, Circuit, Gate, Observable, Operation, channels, commutator, gates
 from .evaluation import (ChunkError, Ledger, NestedPlanWarning, counts, density_matrix, distribute,
                          expect, kernel_matrix, probabilities, sample, state, variance)
@@ -24,7 +24,8 @@ __all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", 
            "Channel", "channels", "density_matrix", "estimate", "estimate_gradient", "Estimate",
            "GradientEstimate", "TensorEstimate", "check", "curvature", "models", "optimize",
            "workflows", "plot", "distribute", "ChunkError", "shots", "kernel_matrix", "counts",
-           "variance", "commutator", "NestedPlanWarning"]
+           "variance", "commutator", "NestedPlanWarning",
+           "landscape"]
 
 
 _LAZY = {"plot": ".plot", "models": ".train.models", "optimize": ".train.optimize",

@@ -19,7 +19,7 @@ from numbers import Real
 
 import numpy as np
 
-__all__ = ["training", "landscape"]
+__all__ = ["training", "landscape", "gradient_variance"]
 
 
 def _figure(**kwargs):
@@ -108,14 +108,19 @@ def training(result, path=None, *, title=None):
     return _save(fig, path)
 
 
-def landscape(cost, theta, i, j, path=None, *, span=np.pi, points=31, batched=False, title=None):
+def landscape(cost, theta=None, i=None, j=None, path=None, *, span=np.pi, points=31,
+              batched=False, title=None):
     """The cost on a 2-D slice through ``theta``, varying parameters ``i`` and ``j``.
 
     Parameters
     ----------
-    cost : callable
+    cost : callable or qgradlib.landscape.Reconstruction2D
         ``cost(theta) -> float``; with ``batched=True``, ``cost(thetas)`` for thetas of shape
-        (B, m) returning shape (B,) (as `qgradlib.expect` does), which is much faster.
+        (B, m) returning shape (B,) (as `qgradlib.expect` does), which is much faster. Or a
+        reconstruction of two parameters (`qgradlib.landscape.reconstruct` with ``k=(i, j)``):
+        then ``theta``, ``i`` and ``j`` come from it, the surface is drawn from its
+        trigonometric polynomial without running any circuit, and the grid it was fixed by is
+        marked with dots.
     theta : array_like, shape (m,)
         The centre of the slice; the other parameters stay at their values.
     i, j : int
@@ -142,8 +147,17 @@ def landscape(cost, theta, i, j, path=None, *, span=np.pi, points=31, batched=Fa
     >>> fig.axes[0].get_xlabel()
     'theta[0]'
     """
-    if not callable(cost):
-        raise TypeError(f"cost must be callable; got {type(cost).__name__}")
+    from .landscape import Reconstruction2D
+
+    slice_ = cost if isinstance(cost, Reconstruction2D) else None
+    if slice_ is not None:
+        if theta is not None or i is not None or j is not None:
+            raise ValueError("a Reconstruction2D carries theta, i and j: pass none of them")
+        theta, (i, j) = slice_.theta, slice_.params
+    elif not callable(cost):
+        raise TypeError(f"cost must be callable or a Reconstruction2D; got {type(cost).__name__}")
+    if theta is None or i is None or j is None:
+        raise ValueError("theta, i and j are needed with a cost function")
     theta = np.asarray(theta, dtype=float)
     if theta.ndim != 1 or not np.all(np.isfinite(theta)):
         raise ValueError(f"theta must be a finite 1-D array; got shape {theta.shape}")
@@ -160,24 +174,96 @@ def landscape(cost, theta, i, j, path=None, *, span=np.pi, points=31, batched=Fa
     a = theta[i] + np.linspace(-span, span, points)
     b = theta[j] + np.linspace(-span, span, points)
     A, B = np.meshgrid(a, b, indexing="xy")
-    grid = np.repeat(theta[None], A.size, axis=0)
-    grid[:, i] = A.ravel()
-    grid[:, j] = B.ravel()
-    if batched:
-        vals = np.asarray(cost(grid), dtype=float).reshape(-1)
-        if vals.size != A.size:
-            raise ValueError(f"batched cost must return one value per row ({A.size}); got {vals.size}")
+    if slice_ is not None:
+        vals = np.asarray(slice_(A, B), dtype=float).reshape(-1)
     else:
-        vals = np.array([float(cost(row)) for row in grid])
+        grid = np.repeat(theta[None], A.size, axis=0)
+        grid[:, i] = A.ravel()
+        grid[:, j] = B.ravel()
+        if batched:
+            vals = np.asarray(cost(grid), dtype=float).reshape(-1)
+            if vals.size != A.size:
+                raise ValueError(f"batched cost must return one value per row ({A.size}); got {vals.size}")
+        else:
+            vals = np.array([float(cost(row)) for row in grid])
     if not np.all(np.isfinite(vals)):
         raise ValueError("cost returned NaN or inf on the slice")
     ax = fig.subplots()
     filled = ax.contourf(A, B, vals.reshape(A.shape), levels=25, cmap="viridis")
     fig.colorbar(filled, ax=ax, label="cost")
+    if slice_ is not None:
+        # the evaluated grid, folded into the window by the polynomial's periods
+        pi, pj = slice_.points
+        gx, gy = np.meshgrid(_fold(pi, theta[i], span, slice_.frequencies[0]),
+                             _fold(pj, theta[j], span, slice_.frequencies[1]))
+        ax.plot(gx.ravel(), gy.ravel(), linestyle="none", marker=".", color="white", alpha=0.7,
+                label=f"{slice_.circuits} evaluated circuits")
+        ax.legend(loc="upper right", fontsize=8)
     ax.plot([theta[i]], [theta[j]], marker="x", color="white", markersize=9)
     ax.set_xlabel(f"theta[{i}]")
     ax.set_ylabel(f"theta[{j}]")
     if title:
         ax.set_title(title)
+    fig.tight_layout()
+    return _save(fig, path)
+
+
+def _fold(p, centre, span, freqs):
+    from .rules.fourier import equidistant_base
+
+    base = equidistant_base(freqs)
+    if base is None:
+        return p
+    period = 2 * np.pi / base
+    return centre - span + np.mod(p - (centre - span), period) if period <= 2 * span else p
+
+
+def gradient_variance(result, path=None, *, title=None):
+    """Gradient variance against size on a log scale, with the fitted exponential and its band.
+
+    Parameters
+    ----------
+    result : qgradlib.landscape.GradientVariance or dict of {str: GradientVariance}
+        One study, or several drawn together (labelled by the keys; for instance a global and
+        a local cost).
+    path : str or path-like, optional
+    title : str, optional
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Per study: the mean variance per size (dots and line), each parameter's variance
+        (faint dots), the fit ``C exp(-rate size)`` (dashed) and the band of rates in the
+        confidence interval; the legend gives the rate and its interval.
+    """
+    from .landscape import GradientVariance
+
+    studies = {"cost": result} if isinstance(result, GradientVariance) else result
+    if not isinstance(studies, dict) or not studies or not all(
+            isinstance(r, GradientVariance) for r in studies.values()):
+        raise TypeError("result must be a GradientVariance from qgradlib.landscape.gradient_variance, "
+                        "or a non-empty dict of them")
+    fig = _figure(figsize=(6.5, 4.5))
+    ax = fig.subplots()
+    for k, (name, r) in enumerate(studies.items()):
+        colour = f"C{k % 10}"
+        x = np.asarray(r.sizes, dtype=float)
+        lo, hi = r.rate_interval
+        ax.semilogy(x, r.variance, color=colour, marker="o",
+                    label=f"{name}: rate {r.rate:.3g} [{lo:.3g}, {hi:.3g}]")
+        for s, v in zip(x, r.per_parameter):
+            ax.plot(np.full(v.size, s), v, linestyle="none", marker=".", color=colour, alpha=0.2)
+        fine = np.linspace(x.min(), x.max(), 100)
+        centre = x.mean()
+        anchor = r.prefactor * np.exp(-r.rate * centre)
+        ax.plot(fine, r.prefactor * np.exp(-r.rate * fine), color=colour, linestyle="--")
+        # rates across the interval, pivoting about the mean size where the fit is tightest
+        ax.fill_between(fine, anchor * np.exp(-lo * (fine - centre)),
+                        anchor * np.exp(-hi * (fine - centre)), color=colour, alpha=0.12)
+    ax.set_xlabel("size")
+    ax.set_ylabel("variance of a partial derivative")
+    ax.grid(alpha=0.3, which="both")
+    ax.legend(loc="lower left", fontsize=8)
+    ax.set_title(title or f"gradient variance over {next(iter(studies.values())).samples} random points")
     fig.tight_layout()
     return _save(fig, path)

@@ -9,7 +9,7 @@ import scipy.sparse.linalg as sla
 import qgradlib as qg
 from qgradlib import models
 from qgradlib.train.optimize import minimize, minimize_expectation, spsa_estimate
-from qgradlib.train.rotosolve import sinusoid_minimum
+from qgradlib.train.rotosolve import frequencies_by_parameter, sinusoid_minimum
 
 
 @pytest.fixture
@@ -141,17 +141,38 @@ def test_rotosolve_with_shots_is_reproducible_and_counts_shots():
     assert r1.shots == 500 * r1.executions
 
 
-def test_rotosolve_refuses_shared_parameters():
-    circ = models.qaoa(models.ring(4), p=1)
-    with pytest.raises(ValueError, match="shared by 4 gates"):
-        minimize_expectation(circ, models.maxcut(models.ring(4)), np.zeros(2), method="rotosolve")
+def test_rotosolve_minimises_a_shared_parameter_exactly():
+    # QAOA on a ring of 4: gamma drives 4 RZZ gates and beta 4 RX gates (4 frequencies each,
+    # multiples of one base), so one coordinate step takes 2R = 8 new circuits (Wierichs, Izaac, Wang and Lin, Quantum
+    # 6, 677 (2022): 2R + 1 values fix the cost, the one at the current point is known)
+    g = models.ring(4)
+    circ, H = models.qaoa(g, p=1), models.maxcut(g)
+    freqs = frequencies_by_parameter(circ)
+    assert [w.size for w in freqs] == [4, 4]
+    r = minimize_expectation(circ, H, np.array([0.1, 0.2]), method="rotosolve", steps=1, tol=0.0)
+    # the last coordinate visited is at its exact minimum: dense evaluation over its period
+    grid = np.linspace(-2 * np.pi, 2 * np.pi, 8001)
+    X = np.repeat(r.x[None], grid.size, axis=0)
+    X[:, 1] = grid
+    assert r.fun <= qg.expect(circ, H, X).min() + 1e-12
+    assert r.history["executions"][0] == 1 + 2 * 8       # the start, then 8 per coordinate (Z only)
 
 
-def test_rotosolve_refuses_multi_frequency_gates():
-    # a controlled rotation's generator |1><1| (x) X/2 has eigenvalues 0, 0, +-1/2: frequencies 1/2 and 1
-    circ = qg.Circuit(2).h(0).crx(0, 1)
-    with pytest.raises(ValueError, match=r"frequencies \(0.5, 1\)"):
-        minimize_expectation(circ, qg.Observable({"ZZ": 1.0}), np.zeros(1), method="rotosolve")
+def test_rotosolve_minimises_a_controlled_rotation_exactly():
+    # one CRX parameter: frequencies 1/2 and 1, period 4 pi; the minimum against dense
+    # evaluation refined by scipy's bounded scalar minimiser (reference library)
+    from scipy.optimize import minimize_scalar
+    circ = qg.Circuit(2).h(0).ry(1, angle=0.3).crx(0, 1)
+    H = qg.Observable({"ZZ": 1.0, "IY": 0.6, "XX": -0.4})
+    r = minimize_expectation(circ, H, np.array([0.2]), method="rotosolve", steps=1)
+    f = lambda t: float(qg.expect(circ, H, np.array([t])))   # noqa: E731
+    grid = np.linspace(0, 4 * np.pi, 4001)
+    t0 = grid[np.argmin(qg.expect(circ, H, grid[:, None]))]
+    ref = minimize_scalar(f, bounds=(t0 - 0.01, t0 + 0.01), method="bounded", options={"xatol": 1e-12})
+    assert r.fun == pytest.approx(ref.fun, abs=1e-10)
+    assert np.allclose(r.jac, 0.0, atol=1e-7)
+    # one step: the value, then 2R = 4 points of the reconstruction, each in 3 settings
+    assert r.history["executions"][0] == (1 + 4) * 3
 
 
 def test_rotosolve_refuses_hamiltonian_gates():

@@ -77,6 +77,6 @@ def test_training_result_prints_compactly():
     r = qg.optimize.minimize_expectation(c, H, np.full(4, 0.4), method="adam", steps=40)
     text = repr(r)
     assert text.startswith("TrainingResult(") and len(text) < 500
-    assert "history: cost, grad_norm, executions (41 entries)" in text
+    assert "history: cost, grad_norm, executions, shots (41 entries)" in text
     assert isinstance(r, __import__("scipy").optimize.OptimizeResult)
     assert r.history["cost"].shape == (41,)

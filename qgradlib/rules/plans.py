@@ -23,6 +23,7 @@ from math import factorial
 import numpy as np
 
 from .shift_rules import warn_approximate
+from .variance import least_variance_rule, rule_variance
 
 __all__ = ["Term", "column_terms", "first_order_points", "quadrature_nodes"]
 
@@ -80,11 +81,14 @@ def piecewise_quadrature(spread, breaks):
 
 
 def column_terms(circuit, column: int, angles, *, shift=None, step=None, shots=None,
-                 splits=1, rng=None, breaks=()) -> list:
+                 splits=1, rng=None, breaks=(), least_variance=None) -> list:
     """The terms of d/dphi[column] (angles: that column's values over the rows).
 
     ``breaks`` are split fractions already inserted into this column's evolution in some
-    row; the quadrature of the stochastic rule is cut there.
+    row; the quadrature of the stochastic rule is cut there. ``least_variance`` (a shot split,
+    "even" or "proportional") replaces a generator gate's rule by the candidate with the
+    least variance bound for that split, where one is strictly better
+    (`qgradlib.rules.variance`).
     """
     op = circuit.parametric_operations[column]
     g = op.gate
@@ -92,6 +96,10 @@ def column_terms(circuit, column: int, angles, *, shift=None, step=None, shots=N
         rule = g.rule_with_shift(shift)
         if rule is None:       # a global phase: no expectation value depends on this angle
             return []
+        if least_variance is not None and g.frequencies.size:
+            _, best = least_variance_rule(g.frequencies, least_variance)
+            if rule_variance(best, least_variance) < rule_variance(rule, least_variance) * (1 - 1e-9):
+                rule = best
         return [Term(column, float(s), None, float(c)) for s, c in zip(rule.shifts, rule.coefficients)]
     if g.kind == "hamiltonian":
         if shots is None:

@@ -138,7 +138,10 @@ def _general_coefficients(x, w):
 
 
 @lru_cache(maxsize=256)
-def _general_shifts(w: tuple):
+def _general_shifts(w: tuple, norm: str = "one"):
+    """Positive shifts and half-coefficients of the general rule on ``w`` that minimise a
+    norm of the coefficients: "one" (``sum |c|``) or "even" (``T sum c**2``, the variance of
+    an even shot split; see `qgradlib.rules.variance`)."""
     from scipy.optimize import minimize
 
     w = np.asarray(w)
@@ -149,7 +152,8 @@ def _general_shifts(w: tuple):
             c = _general_coefficients(x, w)
         except np.linalg.LinAlgError:
             return 1e300
-        n = np.sum(np.abs(c))
+        # the 2R terms are +-c/2: T sum_k c_k**2 = 2R * 2 sum (c/2)**2
+        n = np.sum(np.abs(c)) if norm == "one" else 2 * R * 2 * np.sum((c / 2) ** 2)
         return n if np.isfinite(n) else 1e300
 
     best = None

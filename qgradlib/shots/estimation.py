@@ -31,7 +31,7 @@ True
 from __future__ import annotations
 
 from collections import Counter
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from autograd.tracer import getval
@@ -42,6 +42,7 @@ from ..evaluation.brief import describe
 from ..circuits.circuit import check_inputs, check_theta
 from ..evaluation.expectation import _check_circuit, _observables, _spec
 from ..rules.plans import first_order_points
+from ..rules.variance import SPLITS, split_shots
 
 __all__ = ["Estimate", "GradientEstimate", "TensorEstimate", "estimate", "estimate_gradient",
            "check_shots"]
@@ -276,7 +277,8 @@ def estimate(circuit, observables, theta, *, shots, inputs=None, seed=None, allo
 
 def estimate_gradient(circuit, observables, theta, *, shots, inputs=None, seed=None,
                       allocation="uniform", readout=None, shift=None, splits=1, memory=None,
-                      executor=None, chunk=None, timeout=None) -> GradientEstimate:
+                      executor=None, chunk=None, timeout=None, rule="default",
+                      term_shots="even") -> GradientEstimate:
     """Finite-shot parameter-shift gradient of ``observables`` with standard errors.
 
     Every trainable gate angle is differentiated by its shift rule (two-term, equidistant,
@@ -286,15 +288,31 @@ def estimate_gradient(circuit, observables, theta, *, shots, inputs=None, seed=N
 
     Parameters
     ----------
-    circuit, observables, theta, shots, inputs, seed, allocation, readout, memory, executor, chunk,
+    circuit, observables, theta, inputs, seed, allocation, readout, memory, executor, chunk,
     timeout
-        As in `estimate`; ``shots`` is per setting of every shifted circuit. With a data set
+        As in `estimate`. With a data set
         ``inputs`` the gradient over the weights is per data point, (N, n_params); the
         feature angles are never shifted.
+    shots : int >= 2, or array of int >= 2 with shape (n_params,)
+        Shots per setting of every shifted circuit; or, per parameter, the shots of the
+        shifted circuits of its gates (as an adaptive optimiser asks for).
     shift : float in (0, pi), optional
         Shift of the two-term rule (default pi/2).
     splits : int
         Split points sampled per Hamiltonian gate.
+    rule : {"default", "least-variance"}
+        "least-variance": each generator gate's shift rule is the exact rule with the least
+        estimator-variance bound for the ``term_shots`` split among those available for its
+        frequencies (`qgradlib.rules.variance`; Wierichs, Izaac, Wang and Lin, Quantum 6, 677
+        (2022)); for one frequency that is the two-term rule at pi/2.
+    term_shots : {"even", "proportional"}
+        How the shots are split over the shifted circuits. "even": ``shots`` per setting of
+        each. "proportional": each gate angle's rule keeps the total it would have had
+        (``shots`` times its number of terms) and splits it over its terms in proportion to
+        ``|coefficient|``, at least 2 each: the split that minimises the rule's variance when
+        every term's single-shot variance is the same (the bound ``||O||**2``). The ledger
+        counts the same shots as with "even"; two-term rules, whose coefficients are equal
+        in size, are unchanged.
 
     Returns
     -------
@@ -309,25 +327,97 @@ def estimate_gradient(circuit, observables, theta, *, shots, inputs=None, seed=N
     ...                          shots=400, seed=0)
     >>> r.gradient.shape, r.circuits, r.shots
     ((2,), 4, 1600)
+
+    A controlled rotation's four-term rule has unequal coefficients: shots in proportion to
+    them lower the variance at the same total.
+
+    >>> c = qg.Circuit(2).h(0).crx(0, 1)
+    >>> even = qg.estimate_gradient(c, qg.Observable({"IY": 1.0}), np.array([0.8]), shots=500, seed=1)
+    >>> frugal = qg.estimate_gradient(c, qg.Observable({"IY": 1.0}), np.array([0.8]), shots=500,
+    ...                               seed=1, rule="least-variance", term_shots="proportional")
+    >>> even.shots == frugal.shots, bool(frugal.standard_error[0] < even.standard_error[0])
+    (True, True)
     """
+    if rule not in ("default", "least-variance"):
+        raise ValueError(f"rule must be 'default' or 'least-variance'; got {rule!r}")
+    if term_shots not in SPLITS:
+        raise ValueError(f"term_shots must be one of {SPLITS}; got {term_shots!r}")
+    per_param = None
+    if np.ndim(shots) == 1:
+        per_param = _per_parameter_shots(shots, circuit.n_params)
+        shots = int(per_param.max())
     spec, single, batched, phi = _prepare(circuit, observables, theta, shots, seed, allocation,
                                           readout, inputs, shift=shift, splits=splits,
                                           memory_budget=memory, executor=executor, chunk=chunk,
                                           timeout=timeout)
     P, K, m = phi.shape[0], spec.n_out, circuit.n_params
+    choose = term_shots if rule == "least-variance" else None
     points, inserts, coeff, names = first_order_points(circuit, phi, None, spec.columns,
-                                                       **spec.rule_options())
+                                                       least_variance=choose, **spec.rule_options())
     T = coeff.shape[1]
     grad = np.zeros((P, K, m))
     se = np.zeros((P, K, m))
+    taken = 0
     if T:
-        ledger.record(P * T, spec.settings, spec.shots, Counter(names))
-        mean, var = distribute.measure_rows(np.asarray(points), spec, inserts, errors=True)
         A, _ = circuit.angle_map()
         weights = A.T @ coeff                      # (m, T): shift coefficients through the chain rule
+        if term_shots == "even" and per_param is None:
+            ledger.record(P * T, spec.settings, spec.shots, Counter(names))
+            mean, var = distribute.measure_rows(np.asarray(points), spec, inserts, errors=True)
+            taken = P * T * spec.shots
+        else:
+            per_term = _per_term(coeff, A, spec.shots if per_param is None else per_param,
+                                 term_shots)
+            mean, var = _measure_split(np.asarray(points), inserts, names, spec, per_term, P)
+            taken = P * int(per_term.sum())
         mean, var = mean.reshape(P, T, K), var.reshape(P, T, K)
         grad = np.einsum("it,ptk->pki", weights, mean)
         se = np.sqrt(np.einsum("it,ptk->pki", weights ** 2, var))
     executions = P * T * spec.settings
     return GradientEstimate(_shape(grad, single, batched), _shape(se, single, batched),
-                            executions, executions * spec.shots, P * T)
+                            executions, taken * spec.settings, P * T)
+
+
+def _per_parameter_shots(shots, m):
+    try:
+        n = np.asarray(shots)
+        ok = n.shape == (m,) and n.dtype.kind in "iu" and np.all(n >= 2)
+    except (TypeError, ValueError):
+        ok = False
+    if not ok:
+        raise ValueError(f"shots must be an int >= 2 or one int >= 2 per parameter (shape ({m},)); "
+                         f"got {shots!r}")
+    return n.astype(int)
+
+
+def _per_term(coeff, A, shots, split):
+    """Shots per term. Each term shifts one gate angle, driven by one parameter whose shots
+    (``shots``: an int, or one per parameter) it takes; with ``split="proportional"`` each
+    gate angle's terms share their total in proportion to ``|coefficient|``."""
+    column = np.argmax(np.abs(coeff), axis=0)
+    param = np.argmax(np.abs(A), axis=1)              # the parameter of each gate angle
+    base = np.broadcast_to(np.asarray(shots, dtype=int), (A.shape[1],))
+    out = np.zeros(coeff.shape[1], dtype=int)
+    for j in np.unique(column):
+        terms = np.flatnonzero(column == j)
+        n = int(base[param[j]])
+        out[terms] = n if split == "even" else split_shots(coeff[j, terms], n * terms.size)
+    return out
+
+
+def _measure_split(points, inserts, names, spec, per_term, P):
+    """Means and variances of the rows of ``points`` (P*T, row-major) with ``per_term[t]``
+    shots per setting on term t: one sampled batch per distinct shot count."""
+    T = per_term.size
+    mean = var = None
+    for n in np.unique(per_term):
+        terms = np.flatnonzero(per_term == n)
+        rows = (np.arange(P)[:, None] * T + terms[None, :]).reshape(-1)
+        ledger.record(rows.size, spec.settings, int(n), Counter(names[r] for r in rows))
+        sub = None if inserts is None else [inserts[r] for r in rows]
+        mu, v = distribute.measure_rows(points[rows], replace(spec, shots=int(n)), sub,
+                                        errors=True)
+        if mean is None:
+            mean, var = np.zeros((P * T,) + mu.shape[1:]), np.zeros((P * T,) + v.shape[1:])
+        mean[rows], var[rows] = mu, v
+    return mean, var

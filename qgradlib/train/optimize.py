@@ -13,8 +13,12 @@ sinusoidal shape of the cost in each parameter.
   metric tensor (Stokes, Izaac, Killoran and Carleo, Quantum 4, 269 (2020));
 - ``"newton"`` (needs the circuit): ``x - rate * (H + mu I)^-1 g`` with the shift-rule
   Hessian H and Levenberg-Marquardt damping mu;
+- ``"icans"`` (needs the circuit and shots): gradient descent whose shots per gradient
+  component follow the estimated signal-to-noise (Kübler, Arrasmith, Cincio and Coles,
+  Quantum 4, 263 (2020); `qgradlib.train.icans`);
 - ``"rotosolve"`` (needs the circuit): the exact minimum in one parameter at a time from three
-  evaluations (Ostaszewski, Grant and Benedetti, Quantum 5, 391 (2021)).
+  evaluations (Ostaszewski, Grant and Benedetti, Quantum 5, 391 (2021)), or 2R + 1 for a
+  parameter with R frequencies (Wierichs, Izaac, Wang and Lin, Quantum 6, 677 (2022)).
 
 ``METHODS`` lists these names in this order.
 
@@ -50,6 +54,7 @@ from scipy.optimize import OptimizeResult
 
 from . import rotosolve as _roto
 from ..circuits import display
+from .icans import run as _icans_run
 from ..circuits.circuit import Circuit, check_theta
 from ..evaluation.expectation import METHODS as _GRADIENTS
 from ..evaluation.brief import brief
@@ -64,8 +69,8 @@ from .progress import progress_bar
 
 __all__ = ["minimize", "minimize_expectation", "METHODS", "TrainingResult"]
 
-METHODS = ("gd", "adam", "spsa", "natural", "newton", "rotosolve")
-_NEEDS_CIRCUIT = ("natural", "newton", "rotosolve")
+METHODS = ("gd", "adam", "spsa", "natural", "newton", "rotosolve", "icans")
+_NEEDS_CIRCUIT = ("natural", "newton", "rotosolve", "icans")
 # the structures of curvature.metric_tensor (named here: train may not import curvature at load)
 _STRUCTURES = ("full", "layerwise", "diagonal")
 
@@ -78,6 +83,8 @@ _DEFAULTS = {
     "natural": {"rate": 0.05, "regulariser": 1e-3, "metric": "full", "tol": 1e-6},
     "newton": {"rate": 1.0, "damping": 1e-2, "tol": 1e-6},
     "rotosolve": {"tol": 1e-6},
+    # rate None: 1 / lipschitz; lipschitz None: the sum of |coefficients| of the observable
+    "icans": {"rate": None, "lipschitz": None, "mu": 0.99, "bias": 1e-6, "budget": None},
 }
 _EXPECTATION_ONLY = {"gd": ("gradient",), "adam": ("gradient",), "natural": ("gradient",)}
 
@@ -214,10 +221,11 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
     circuit : Circuit
     observable : Observable
     theta0 : array_like, shape (circuit.n_params,)
-    method : {"adam", "gd", "spsa", "natural", "newton", "rotosolve"}
+    method : {"adam", "gd", "spsa", "natural", "newton", "rotosolve", "icans"}
     shots : int, optional
         Estimate every value with ``shots`` readouts per measurement setting (simulated
-        sampling); None for exact values.
+        sampling); None for exact values. For "icans" (required): the least shots per
+        setting of each shifted circuit, ``s_min``, where every component starts.
     seed : int or numpy.random.Generator, optional
         One generator made from it serves the whole run, so the shots of successive steps
         are independent and the run is reproducible.
@@ -234,7 +242,11 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
         adam and natural, and: natural ``rate=0.05, regulariser=1e-3,
         metric="full"`` ("layerwise" or "diagonal" for the cheaper structures of
         `qgradlib.curvature.metric_tensor`), ``tol=1e-6``;
-        newton ``rate=1.0, damping=1e-2, tol=1e-6``; rotosolve ``tol=1e-6``.
+        newton ``rate=1.0, damping=1e-2, tol=1e-6``; rotosolve ``tol=1e-6``; icans (the
+        paper's symbols in words) ``rate=1/lipschitz`` (alpha, below ``2 / lipschitz``),
+        ``lipschitz`` (L; default the sum of the observable's ``|coefficients|``, which bounds
+        it for rotation gates), ``mu=0.99`` (moving-average decay), ``bias=1e-6`` (b),
+        ``budget=None`` (stop once the ledger's shots reach it).
 
     Returns
     -------
@@ -259,15 +271,26 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
     multiplied by 10 after a refused one (Levenberg-Marquardt). Where H has a negative
     eigenvalue ``l``, ``mu - l`` is used so that the step is a descent direction.
 
-    "rotosolve" visits each parameter in turn and sets it to the exact minimum of
-    ``A + B cos(w t) + C sin(w t)`` found from the cost at ``t`` and ``t +- pi / (2 w)``.
-    It is refused (ValueError) when a parameter drives several gates or a gate with several
-    frequencies. Exact runs reuse the closed-form minimum as the next parameter's value at
-    ``t`` (two evaluations per parameter); with shots it is evaluated afresh (three), and the
-    cost shown after a sweep (progress bar, callback, history) is the cost measured at the new
-    point, not the fitted minimum (a fit to noisy values is biased low).
-    Its "grad_norm" at step k is the norm of the slopes ``w C`` met during sweep k + 1 (the
-    point moves between parameters); the last entry is the gradient at ``x``.
+    "icans" takes a shift-rule gradient with ``s_i`` shots per setting of the shifted circuits
+    of parameter ``i`` (`qgradlib.estimate_gradient` with per-parameter shots), steps by
+    ``rate * g`` and chooses the next ``s_i`` by the iCANS formula from moving averages of
+    the gradient and of its per-shot variance (`qgradlib.train.icans`). It measures no cost
+    values: its history's "cost" is the exact cost at each point from the simulator, outside
+    the ledger, for the user's reading only. The history's "shots" (every method has it)
+    holds the ledger's shots at each entry.
+
+    "rotosolve" visits each parameter in turn and sets it to the exact minimum of the cost
+    in it. For a parameter driving one single-frequency gate that is ``A + B cos(w t) + C
+    sin(w t)``, found from the cost at ``t`` and ``t +- pi / (2 w)``; a parameter shared by
+    several gates, or driving a gate with several frequencies, has R frequencies and is
+    reconstructed from 2R + 1 values (`qgradlib.train.rotosolve.coordinate_minimum`;
+    Wierichs, Izaac, Wang and Lin, Quantum 6, 677 (2022)). Gates without a finite spectrum
+    (Hamiltonian gates) are refused (ValueError). Exact runs reuse the minimum as the next
+    parameter's value at ``t`` (2R evaluations per parameter); with shots it is evaluated
+    afresh (2R + 1), and the cost shown after a sweep (progress bar, callback, history) is
+    the cost measured at the new point, not the fitted minimum (a fit to noisy values is
+    biased low). Its "grad_norm" at step k is the norm of the slopes met during sweep
+    k + 1 (the point moves between parameters); the last entry is the gradient at ``x``.
 
     Examples
     --------
@@ -294,6 +317,9 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
         raise ValueError(f"theta0 must have shape ({circuit.n_params},); got {x0.shape}")
     steps = _check_steps(steps)
     opts = _options(method, options, steps, expectation=True)
+    if method == "icans" and shots is None:
+        raise ValueError("method='icans' chooses the shots of every gradient component and needs "
+                         "shots= as its least shots per shifted circuit (s_min), an int >= 2")
     rng = make_rng(seed)
     gradient = opts.pop("gradient", "shift")
     if gradient not in _GRADIENTS:
@@ -364,9 +390,12 @@ def _options(method, options, steps, expectation):
         raise TypeError(f"method={method!r} takes the options {sorted(allowed)}; "
                         f"got unknown {unknown}")
     o = {**allowed, **options}
-    for key in ("rate", "eps", "perturbation", "damping"):
-        if key in o:
+    for key in ("rate", "eps", "perturbation", "damping", "lipschitz", "bias", "budget"):
+        if key in o and not (method == "icans" and o[key] is None):
             o[key] = _positive(key, o[key])
+    if "mu" in o and (isinstance(o["mu"], bool) or not isinstance(o["mu"], Real)
+                      or not 0 <= o["mu"] < 1):
+        raise ValueError(f"mu must be a number in [0, 1); got {o['mu']!r}")
     for key in ("tol", "regulariser"):
         if key in o:
             o[key] = _positive(key, o[key], allow_zero=True)
@@ -430,12 +459,13 @@ class _Trace:
                 self.wants_result = "intermediate_result" in inspect.signature(callback).parameters
             except (TypeError, ValueError):
                 pass
-        self.cost, self.grad_norm, self.executions = [], [], []
+        self.cost, self.grad_norm, self.executions, self.shots = [], [], [], []
 
     def record(self, cost, grad_norm):
         self.cost.append(float(cost))
         self.grad_norm.append(float(grad_norm))
         self.executions.append(self.book.executions)
+        self.shots.append(self.book.shots)
 
     def advance(self, x, fun, nit, grad_norm=None):
         """One step done: tick the bar, call the callback; True asks to stop."""
@@ -461,6 +491,8 @@ def _run(problem, method, x0, steps, opts, callback, progress, rng):
             x, fun, jac, nit, status = _rotosolve(problem, x0, steps, trace, opts)
         elif method == "newton":
             x, fun, jac, nit, status = _newton(problem, x0, steps, trace, opts)
+        elif method == "icans":
+            x, fun, jac, nit, status = _icans(problem, x0, steps, trace, opts)
         else:
             evaluate, update = _first_order_method(method, problem, x0.size, opts, rng)
             x, fun, jac, nit, status = _first_order(evaluate, update, x0, steps, trace,
@@ -469,9 +501,11 @@ def _run(problem, method, x0, steps, opts, callback, progress, rng):
             fun, final = _final_value(problem, x, fun)
     messages = {0: f"gradient norm fell to tol={opts.get('tol', 0.0):g}",
                 1: f"reached steps={steps}",
-                2: "stopped by the callback"}
+                2: "stopped by the callback",
+                3: f"spent the shot budget={opts.get('budget')}"}
     h = {"cost": np.array(trace.cost), "grad_norm": np.array(trace.grad_norm),
-         "executions": np.array(trace.executions, dtype=int)}
+         "executions": np.array(trace.executions, dtype=int),
+         "shots": np.array(trace.shots, dtype=int)}
     return TrainingResult(x=x, fun=fun, jac=jac, nit=nit, success=status == 0, status=status,
                           message=messages[status], method=method, history=h,
                           executions=book.executions, circuits=book.circuits, shots=book.shots,
@@ -607,7 +641,32 @@ def _newton(problem, x, steps, trace, o):
         k += 1
 
 
+def _icans(problem, x, steps, trace, o):
+    from ..shots.estimation import estimate_gradient
+
+    circuit, observable, shots, rng = problem.circuit_parts
+    L = o["lipschitz"]
+    if L is None:
+        L = float(sum(abs(v) for w, v in observable.terms.items() if set(w) != {"I"}))
+        if observable.dense is not None or L == 0:
+            raise ValueError("method='icans' needs lipschitz= (a Lipschitz constant of the gradient) "
+                             "for this observable")
+    rate = 1.0 / L if o["rate"] is None else o["rate"]
+    if not rate < 2.0 / L:
+        raise ValueError(f"method='icans' needs rate < 2 / lipschitz = {2.0 / L:.6g} (Kübler et al. "
+                         f"2020: the expected gain is positive only then); got rate={rate:g}")
+
+    def gradient(x, per_param):
+        r = estimate_gradient(circuit, observable, x, shots=per_param, seed=rng, **problem.where)
+        return np.asarray(r.gradient, dtype=float), np.asarray(r.standard_error, dtype=float)
+
+    return _icans_run(gradient, lambda x: _exact_value(circuit, observable, x), x, steps, trace,
+                      {**o, "rate": rate, "lipschitz": L, "min_shots": shots})
+
+
 def _rotosolve(problem, x, steps, trace, o):
+    from ..rules.shift_rules import rule_for_frequencies
+
     circuit = problem.circuit_parts[0]
     exact = problem.circuit_parts[2] is None
     freqs = _roto.frequencies_by_parameter(circuit)
@@ -620,10 +679,18 @@ def _rotosolve(problem, x, steps, trace, o):
         for p in active:
             if not exact and p != active[0]:
                 e = float(problem.values(x[None])[0])
-            h = np.zeros(x.size)
-            h[p] = np.pi / (2 * freqs[p])
-            ep, em = problem.values(np.stack([x + h, x - h]))
-            x[p], e, slopes[p] = _roto.sinusoid_minimum(e, ep, em, x[p], freqs[p])
+            w = freqs[p]
+            if w.size == 1:
+                h = np.zeros(x.size)
+                h[p] = np.pi / (2 * w[0])
+                ep, em = problem.values(np.stack([x + h, x - h]))
+                x[p], e, slopes[p] = _roto.sinusoid_minimum(e, ep, em, x[p], w[0])
+            else:
+                def along(t, p=p):
+                    X = np.repeat(x[None], np.size(t), axis=0)
+                    X[:, p] = t
+                    return problem.values(X)
+                x[p], e, slopes[p] = _roto.coordinate_minimum(along, x[p], w, e)
         if not exact:
             # the fitted minimum of noisy values is biased low: show (and start the next
             # sweep from) the cost measured at the new point
@@ -637,14 +704,19 @@ def _rotosolve(problem, x, steps, trace, o):
         if o["tol"] > 0 and gn <= o["tol"]:
             status = 0
             break
-    # the gradient at the final point by the two-term rule, batched with its value
-    shifts = np.zeros((2 * len(active), x.size))
-    for i, p in enumerate(active):
-        shifts[2 * i, p] = np.pi / (2 * freqs[p])
-        shifts[2 * i + 1, p] = -np.pi / (2 * freqs[p])
-    vals = problem.values(np.vstack([x[None], x + shifts]))
+    # the gradient at the final point by each parameter's shift rule, batched with its value
+    rules = {p: rule_for_frequencies(freqs[p]) for p in active}
+    rows = [x[None]]
+    for p in active:
+        shifted = np.repeat(x[None], rules[p].n_terms, axis=0)
+        shifted[:, p] += rules[p].shifts
+        rows.append(shifted)
+    vals = problem.values(np.vstack(rows))
     g = np.zeros(x.size)
-    for i, p in enumerate(active):
-        g[p] = freqs[p] * 0.5 * (vals[1 + 2 * i] - vals[2 + 2 * i])
+    at = 1
+    for p in active:
+        n = rules[p].n_terms
+        g[p] = float(rules[p].coefficients @ vals[at:at + n])
+        at += n
     trace.record(vals[0], np.linalg.norm(g))
     return x, float(vals[0]), g, k, status

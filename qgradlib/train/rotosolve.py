@@ -1,4 +1,4 @@
-"""The closed-form coordinate minimum behind rotosolve.
+"""The coordinate minimum behind rotosolve, closed-form or from a reconstruction.
 
 When a parameter drives exactly one gate whose generator has a single frequency ``w`` (two
 distinct eigenvalues, ``w`` their difference), the expectation value as a function of that
@@ -7,8 +7,10 @@ evaluations fix ``A, B, C`` and the minimum over the parameter follows in closed
 (Ostaszewski, Grant and Benedetti, Quantum 5, 391 (2021), for ``w' = 1``).
 
 A parameter shared by several gates, or driving a gate with several frequencies (a
-controlled rotation has two), gives a trigonometric polynomial with more terms: three
-evaluations no longer determine it, so such circuits are refused.
+controlled rotation has two), gives a trigonometric polynomial with R frequencies: 2R + 1
+evaluations fix it (`qgradlib.rules.fourier`; Wierichs, Izaac, Wang and Lin, Quantum 6, 677
+(2022)), and its minimum is found by dense sampling polished by Newton's method
+(`coordinate_minimum`), still exact to rounding.
 
 Examples
 --------
@@ -18,12 +20,18 @@ Examples
 >>> x, fmin, slope = sinusoid_minimum(f(x0), f(x0 + np.pi / 2), f(x0 - np.pi / 2), x0, 1.0)
 >>> round(fmin, 12), round(float(f(x)), 12)
 (-0.7, -0.7)
+>>> g = lambda x: np.cos(x) + 0.5 * np.cos(2 * x)          # two frequencies: five values
+>>> x, gmin, slope = coordinate_minimum(g, 0.4, np.array([1.0, 2.0]))
+>>> round(gmin, 12), round(float(g(x)), 12)
+(-0.75, -0.75)
 """
 from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["sinusoid_minimum", "frequencies_by_parameter"]
+from ..rules import fourier
+
+__all__ = ["sinusoid_minimum", "coordinate_minimum", "frequencies_by_parameter"]
 
 
 def sinusoid_minimum(e0, e_plus, e_minus, x0, frequency):
@@ -55,39 +63,49 @@ def sinusoid_minimum(e0, e_plus, e_minus, x0, frequency):
     return float(x0 + u / frequency), float(a - np.hypot(b, c)), float(frequency * c)
 
 
-def frequencies_by_parameter(circuit):
-    """For each parameter, the frequency of the expectation value in it, or None if unused.
+def coordinate_minimum(values, x0, frequencies, value0=None):
+    """Minimum along one coordinate of a cost with several frequencies.
 
-    Raises ValueError naming the first parameter for which the closed form does not hold.
+    Parameters
+    ----------
+    values : callable
+        ``values(t)`` for an array ``t`` of new coordinate values, returning an array.
+    x0 : float
+        The current coordinate.
+    frequencies : ndarray
+        The cost's frequencies in this coordinate (`frequencies_by_parameter`).
+    value0 : float, optional
+        The cost at ``x0`` if already known (exact runs): one evaluation fewer.
+
+    Returns
+    -------
+    x, value, slope : float
+        The minimiser (within one period, or within ``pi / w_min`` of ``x0`` for frequencies
+        that are no multiples of one base), the minimum, and the derivative at ``x0``.
     """
-    gates_of = [[] for _ in range(circuit.n_params)]
-    for op in circuit.parametric_operations:
-        if op.param is not None and op.scale != 0.0:
-            gates_of[op.param].append(op)
+    w, t = fourier.sample_points(frequencies, x0)
+    if value0 is None:
+        vals = np.asarray(values(t), dtype=float)
+    else:
+        vals = np.concatenate([[float(value0)], np.asarray(values(t[1:]), dtype=float)])
+    poly = fourier.fit(w, t, vals)
+    x, v = poly.minimum(near=x0)
+    return float(x), float(v), float(poly.derivative(x0))
+
+
+def frequencies_by_parameter(circuit):
+    """For each parameter, the frequencies of the expectation value in it, or None if unused.
+
+    Raises ValueError naming the first parameter that drives a gate without a finite spectrum.
+    """
     out = []
-    for p, ops in enumerate(gates_of):
-        if not ops:
-            out.append(None)
-            continue
-        if len(ops) > 1:
-            names = ", ".join(f"{op.gate.name} on {op.qubits}" for op in ops)
-            raise ValueError(
-                f"method='rotosolve' needs each parameter to drive a single gate; parameter {p} is "
-                f"shared by {len(ops)} gates ({names}), so the cost in it has several frequencies "
-                "and three evaluations do not fix it: use method='adam', 'gd', 'natural' or 'newton'")
-        op = ops[0]
-        if op.gate.kind != "generator":
-            raise ValueError(
-                f"method='rotosolve' needs gates U(a) = expm(-1j a G); parameter {p} drives "
-                f"{op.gate.name!r} of kind {op.gate.kind!r}: use another method")
-        freqs = op.gate.frequencies
-        if freqs.size == 0:          # a generator proportional to the identity: a global phase
-            out.append(None)
-            continue
-        if freqs.size != 1:
-            listed = ", ".join(f"{w:g}" for w in freqs)
-            raise ValueError(
-                f"method='rotosolve' needs single-frequency gates; parameter {p} drives "
-                f"{op.gate.name!r}, whose generator has frequencies ({listed}): use another method")
-        out.append(abs(op.scale) * float(freqs[0]))
+    for p in range(circuit.n_params):
+        e = np.zeros(circuit.n_params)
+        e[p] = 1.0
+        try:
+            w = fourier.frequencies_along(circuit, e)
+        except ValueError as err:
+            raise ValueError(f"method='rotosolve' needs gates U(a) = expm(-1j a G): {err}; "
+                             "use another method") from None
+        out.append(w if w.size else None)
     return out
