@@ -197,10 +197,12 @@ def _sweep_rows(c, theta, freqs):
     """The circuits a one-sweep rotosolve run evaluates (start, both shifts per parameter,
     then the final value and two-term gradient), as rows for one call each."""
     rows = [theta]
-    for p, w in enumerate(freqs):
-        h = np.zeros(theta.size)
-        h[p] = np.pi / (2 * w)
-        rows += [theta + h, theta - h]
+    for p, ws in enumerate(freqs):
+        # a shared or multi-frequency parameter has several frequencies: two shifts each
+        for w in np.atleast_1d(ws):
+            h = np.zeros(theta.size)
+            h[p] = np.pi / (2 * float(w))
+            rows += [theta + h, theta - h]
     return rows + rows
 
 

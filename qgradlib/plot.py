@@ -235,6 +235,15 @@ def gradient_variance(result, path=None, *, title=None):
         Per study: the mean variance per size (dots and line), each parameter's variance
         (faint dots), the fit ``C exp(-rate size)`` (dashed) and the band of rates in the
         confidence interval; the legend gives the rate and its interval.
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> build = lambda n: qg.Circuit(n).ry(0).ry(1)
+    >>> gv = qg.landscape.gradient_variance(build, lambda n: qg.Observable({"Z" * n: 1.0}), [2, 3, 4],
+    ...                                     samples=10, seed=0)
+    >>> fig = qg.plot.gradient_variance(gv)           # a matplotlib Figure (written with path=)
+    >>> type(fig).__name__
+    'Figure'
     """
     from .landscape import GradientVariance
 

@@ -157,7 +157,14 @@ def limits() -> dict:
 
 
 def available_bytes() -> int:
-    """Bytes this process may still allocate: the tightest of `limits` (read now)."""
+    """Bytes this process may still allocate: the tightest of `limits` (read now).
+
+    Examples
+    --------
+    >>> from qgradlib.engine import available_bytes
+    >>> available_bytes() > 16 * 2 ** 10      # at least a 10-qubit state fits
+    True
+    """
     avail = min(limits().values(), default=_UNLIMITED)
     _recent[:] = [time.monotonic(), avail, os.getpid()]
     return avail

@@ -109,7 +109,16 @@ def _dask_client(executor):
 
 
 def check_timeout(timeout, executor):
-    """Validate ``timeout=`` (seconds to wait for an executor's chunks, or None); returns it."""
+    """Validate ``timeout=`` (seconds to wait for an executor's chunks, or None); returns it.
+
+    Examples
+    --------
+    >>> from concurrent.futures import ThreadPoolExecutor
+    >>> from qgradlib import distribute
+    >>> with ThreadPoolExecutor(1) as pool:
+    ...     distribute.check_timeout(2, pool)
+    2.0
+    """
     if timeout is None:
         return None
     if isinstance(timeout, bool) or not isinstance(timeout, Real) or not 0 < timeout < math.inf:
@@ -255,7 +264,16 @@ def in_worker(task, *args):
 
 def row_checksums(phi) -> np.ndarray:
     """One 64-bit checksum per row of ``phi`` (R, G) from the exact bits of its angles: equal
-    rows give equal sums, a row moved to another place or another chunk gives another."""
+    rows give equal sums, a row moved to another place or another chunk gives another.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> from qgradlib import distribute
+    >>> s = distribute.row_checksums(np.array([[0.1, 0.2], [0.2, 0.1], [0.1, 0.2]]))
+    >>> bool(s[0] == s[2]), bool(s[0] != s[1])
+    (True, True)
+    """
     bits = np.ascontiguousarray(phi, dtype=float).view(np.uint64).reshape(np.shape(phi))
     mix = (np.arange(1, bits.shape[1] + 1, dtype=np.uint64) * np.uint64(0x9E3779B97F4A7C15)) | np.uint64(1)
     with np.errstate(over="ignore"):

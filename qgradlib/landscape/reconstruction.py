@@ -61,6 +61,13 @@ class Reconstruction:
         Standard errors of ``values`` (with shots).
     circuits, executions, shots : int
         What a device would have run: 2R + 1 circuits, times measurement settings.
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> r = qg.landscape.reconstruct(qg.Circuit(1).ry(0), qg.Observable({"Z": 1.0}), np.array([0.2]), 0)
+    >>> bool(np.isclose(r(1.1), np.cos(1.1))), r.circuits       # <Z> = cos(theta) from 2R + 1 points
+    (True, 3)
     """
 
     polynomial: TrigPolynomial
@@ -121,6 +128,14 @@ class Reconstruction2D:
         The grid axes evaluated, ``(2R_i + 1,)`` and ``(2R_j + 1,)``.
     values : ndarray, shape (2R_i + 1, 2R_j + 1)
     circuits, executions, shots : int
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(2).ry(0).ry(1)
+    >>> r = qg.landscape.reconstruct(c, qg.Observable({"ZZ": 1.0}), np.array([0.2, 0.3]), (0, 1))
+    >>> bool(np.isclose(r(0.5, 0.7), np.cos(0.5) * np.cos(0.7)))
+    True
     """
 
     params: tuple

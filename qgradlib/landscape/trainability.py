@@ -66,6 +66,14 @@ class GradientVariance:
     confidence : float
     executions : int
         Circuits a device would have run for these gradients (the ledger's count).
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> build = lambda n: qg.Circuit(n).ry(0).ry(1).cnot(0, 1)
+    >>> gv = qg.landscape.gradient_variance(build, lambda n: qg.Observable({"Z" * n: 1.0}), [2, 3, 4],
+    ...                                     samples=20, seed=0)
+    >>> len(gv.variance)
+    3
     """
 
     sizes: np.ndarray
@@ -100,6 +108,14 @@ class Redundancy:
     metric_eigenvalues, hessian_eigenvalues : ndarray, shape (n_params,)
         Ascending.
     tol : float
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(1).ry(0).rz(0).rz(0)          # two RZ in a row: one redundant direction
+    >>> r = qg.landscape.redundancy(c, qg.Observable({"X": 1.0}), np.array([0.3, 0.4, 0.5]))
+    >>> r.n_params, r.rank, r.redundant
+    (3, 2, 1)
     """
 
     n_params: int
@@ -226,6 +242,13 @@ def redundancy(circuit, observable, theta, *, tol=1e-8) -> Redundancy:
     Returns
     -------
     Redundancy
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> r = qg.landscape.redundancy(qg.Circuit(1).ry(0), qg.Observable({"Z": 1.0}), np.array([0.3]))
+    >>> r.rank
+    1
     """
     if not isinstance(circuit, Circuit):
         raise TypeError(f"circuit must be a qgradlib Circuit; got {type(circuit).__name__}")
