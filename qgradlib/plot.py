@@ -235,6 +235,7 @@ def gradient_variance(result, path=None, *, title=None):
         Per study: the mean variance per size (dots and line), each parameter's variance
         (faint dots), the fit ``C exp(-rate size)`` (dashed) and the band of rates in the
         confidence interval; the legend gives the rate and its interval.
+
     Examples
     --------
     >>> import qgradlib as qg

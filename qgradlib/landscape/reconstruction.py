@@ -61,6 +61,7 @@ class Reconstruction:
         Standard errors of ``values`` (with shots).
     circuits, executions, shots : int
         What a device would have run: 2R + 1 circuits, times measurement settings.
+
     Examples
     --------
     >>> import numpy as np
@@ -81,14 +82,40 @@ class Reconstruction:
     executions: int
     shots: int
 
-    frequencies = property(lambda self: self.polynomial.frequencies,
-                           doc="Positive frequencies of the cost along the line.")
-    a0 = property(lambda self: self.polynomial.a0, doc="Constant term.")
-    a = property(lambda self: self.polynomial.a, doc="Cosine coefficients, one per frequency.")
-    b = property(lambda self: self.polynomial.b, doc="Sine coefficients, one per frequency.")
-    a0_error = property(lambda self: self.polynomial.a0_error)
-    a_error = property(lambda self: self.polynomial.a_error)
-    b_error = property(lambda self: self.polynomial.b_error)
+    @property
+    def frequencies(self):
+        """Positive frequencies of the cost along the line."""
+        return self.polynomial.frequencies
+
+    @property
+    def a0(self):
+        """Constant term."""
+        return self.polynomial.a0
+
+    @property
+    def a(self):
+        """Cosine coefficients, one per frequency."""
+        return self.polynomial.a
+
+    @property
+    def b(self):
+        """Sine coefficients, one per frequency."""
+        return self.polynomial.b
+
+    @property
+    def a0_error(self):
+        """Standard error of the constant term (None without shots)."""
+        return self.polynomial.a0_error
+
+    @property
+    def a_error(self):
+        """Standard errors of the cosine coefficients (None without shots)."""
+        return self.polynomial.a_error
+
+    @property
+    def b_error(self):
+        """Standard errors of the sine coefficients (None without shots)."""
+        return self.polynomial.b_error
 
     def __call__(self, t):
         return self.polynomial(t)
@@ -128,6 +155,7 @@ class Reconstruction2D:
         The grid axes evaluated, ``(2R_i + 1,)`` and ``(2R_j + 1,)``.
     values : ndarray, shape (2R_i + 1, 2R_j + 1)
     circuits, executions, shots : int
+
     Examples
     --------
     >>> import numpy as np

@@ -66,6 +66,7 @@ class GradientVariance:
     confidence : float
     executions : int
         Circuits a device would have run for these gradients (the ledger's count).
+
     Examples
     --------
     >>> import qgradlib as qg
@@ -108,6 +109,7 @@ class Redundancy:
     metric_eigenvalues, hessian_eigenvalues : ndarray, shape (n_params,)
         Ascending.
     tol : float
+
     Examples
     --------
     >>> import numpy as np
@@ -242,6 +244,7 @@ def redundancy(circuit, observable, theta, *, tol=1e-8) -> Redundancy:
     Returns
     -------
     Redundancy
+
     Examples
     --------
     >>> import numpy as np
