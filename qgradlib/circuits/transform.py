@@ -47,6 +47,27 @@ class _Dagger:
         return hash((_Dagger, self.fn))
 
 
+
+def qubit_sequence(qubits, n: int) -> tuple:
+    """``qubits`` as a tuple of ints in ``0..n-1``, or a TypeError/ValueError naming ``qubits``.
+
+    Examples
+    --------
+    >>> qubit_sequence([1, 0], 2)
+    (1, 0)
+    """
+    try:
+        qs = tuple(qubits)
+    except TypeError:
+        raise TypeError(f"qubits must be a sequence of ints; got {qubits!r}") from None
+    for q in qs:
+        if isinstance(q, (bool, np.bool_)) or not isinstance(q, (int, np.integer)):
+            raise TypeError(f"qubits must be ints; got {q!r}")
+        if not 0 <= q < n:
+            raise ValueError(f"qubits: qubit {q} is out of range for a circuit of {n} qubits (0..{n - 1})")
+    return tuple(int(q) for q in qs)
+
+
 def _dagger_name(name):
     return name[:-1] if name.endswith(DAGGER) else name + DAGGER
 
@@ -111,15 +132,7 @@ def compose(circuit, other, qubits=None):
             raise ValueError(f"other has {other.n_qubits} qubits, more than this circuit's {n}: "
                              "give qubits=[...] or compose the other way round")
         qubits = tuple(range(other.n_qubits))
-    try:
-        qs = tuple(qubits)
-    except TypeError:
-        raise TypeError(f"qubits must be a sequence of ints; got {qubits!r}") from None
-    for q in qs:
-        if isinstance(q, (bool, np.bool_)) or not isinstance(q, (int, np.integer)):
-            raise TypeError(f"qubits must be ints; got {q!r}")
-        if not 0 <= q < n:
-            raise ValueError(f"qubits: qubit {q} is out of range for a circuit of {n} qubits (0..{n - 1})")
+    qs = qubit_sequence(qubits, n)
     if len(qs) != other.n_qubits:
         raise ValueError(f"qubits must give one qubit of this circuit for each of other's "
                          f"{other.n_qubits} qubits; got {len(qs)}")

@@ -34,6 +34,7 @@ from autograd.tracer import Box, getval
 
 from . import distribute, ledger
 from ..circuits.circuit import Circuit, check_inputs, check_theta
+from ..circuits.transform import qubit_sequence
 from ..engine import memory
 from .adjoint_nested import adjoint_jacobian, adjoint_vjp, check_nested, keep_states
 from ..engine.density import density_states, run_density
@@ -405,18 +406,10 @@ def _traced_split(observables):
 def _check_qubits(qubits, n):
     if qubits is None:
         return None
-    try:
-        qs = tuple(qubits)
-    except TypeError:
-        raise TypeError(f"qubits must be a sequence of ints; got {qubits!r}") from None
-    for q in qs:
-        if isinstance(q, (bool, np.bool_)) or not isinstance(q, (int, np.integer)):
-            raise TypeError(f"qubits must be ints; got {q!r}")
-        if not 0 <= q < n:
-            raise ValueError(f"qubit {q} is out of range for a circuit of {n} qubits")
+    qs = qubit_sequence(qubits, n)
     if len(set(qs)) != len(qs) or not qs:
         raise ValueError(f"qubits must be distinct and non-empty; got {qs}")
-    return tuple(int(q) for q in qs)
+    return qs
 
 
 def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, gradient="shift",
