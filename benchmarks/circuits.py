@@ -8,7 +8,7 @@ import numpy as np
 
 import qgradlib as qg
 
-__all__ = ["layered", "ring", "ising", "ising_terms", "angles"]
+__all__ = ["layered", "ring", "deep_narrow", "ising", "ising_terms", "angles"]
 
 
 def layered(n: int, layers: int, trainable: int | None = None) -> qg.Circuit:
@@ -52,3 +52,31 @@ def ising(n: int, field: float = 0.5) -> qg.Observable:
 
 def angles(circuit: qg.Circuit, seed: int = 0) -> np.ndarray:
     return np.random.default_rng(seed).uniform(0, 2 * np.pi, size=circuit.n_params)
+
+
+def deep_narrow(n: int = 4, gates: int = 10_000, params: int = 1_641, seed: int = 11) -> qg.Circuit:
+    """A long circuit on few qubits: ``gates`` gates, ``params`` of them trainable rotations
+    (RX, RY, RZ or CRY, evenly spread), the others H, S, CNOT or CZ, drawn with ``seed``."""
+    rng = np.random.default_rng(seed)
+    c = qg.Circuit(n)
+    trainable = set(np.linspace(0, gates - 1, params).round().astype(int).tolist())
+    for k in range(gates):
+        q = int(rng.integers(n))
+        r = (q + 1 + int(rng.integers(n - 1))) % n
+        if k in trainable:
+            kind = int(rng.integers(4))
+            if kind == 3:
+                c.cry(q, r)
+            else:
+                (c.rx, c.ry, c.rz)[kind](q)
+        else:
+            kind = int(rng.integers(4))
+            if kind == 0:
+                c.h(q)
+            elif kind == 1:
+                c.s(q)
+            elif kind == 2:
+                c.cnot(q, r)
+            else:
+                c.cz(q, r)
+    return c

@@ -13,7 +13,7 @@ from autograd import grad, hessian
 import qgradlib as qg
 
 from . import data_sets, jax_sim
-from .circuits import angles, ising, ising_terms, layered, ring
+from .circuits import angles, deep_narrow, ising, ising_terms, layered, ring
 from .plain_sim import layered_energy
 from .timing import paired, summary
 
@@ -28,11 +28,13 @@ SIZES = {
              "shift_layers": 4, "fwd_mem_n": 26, "adj_mem_n": 24, "mem_layers": 1,
              "overhead_layers": 300, "hess_n": 6, "hess_layers": 5, "min_time": 0.05, "roto_layers": 50,
              "jax_qubits": [4, 6, 8, 10, 12, 14, 16], "jax_layers": 3, "jax_shift": (6, 5),
-             "first": (10, 5), "data_n": 8, "data_N": 256, "data_m": 48},
+             "first": (10, 5), "data_n": 8, "data_N": 256, "data_m": 48,
+             "deep": (4, 10_000, 1_641), "threads": (14, 4)},
     "quick": {"gate_n": 12, "gate_layers": 2, "adj_n": 8, "adj_layers": 4, "shift_n": 6,
               "shift_layers": 4, "fwd_mem_n": 12, "adj_mem_n": 10, "mem_layers": 1,
               "overhead_layers": 20, "hess_n": 3, "hess_layers": 2, "min_time": 0.002, "roto_layers": 2,
-              "jax_qubits": [3], "jax_layers": 1, "jax_shift": (3, 1), "first": (4, 1), "data_n": 3, "data_N": 8, "data_m": 6},
+              "jax_qubits": [3], "jax_layers": 1, "jax_shift": (3, 1), "first": (4, 1), "data_n": 3, "data_N": 8, "data_m": 6,
+              "deep": (3, 60, 10), "threads": (4, 2)},
 }
 
 
@@ -310,6 +312,37 @@ def first_gradient(sz, repeats):
                    f"n = {n}, m = {n * L}", 3.0, "<=", ratios, **details)
 
 
+def deep_shift(sz, repeats):
+    """Every shifted circuit of a long, narrow circuit shares the prefix before its gate."""
+    n, G, m = sz["deep"]
+    c = deep_narrow(n, G, m)
+    H = qg.Observable({"Z" * 2 + "I" * (n - 2): 1.0, "I" * (n - 1) + "X": 0.5})
+    theta = angles(c)
+    sh = lambda: grad(lambda t: qg.expect(c, H, t))(theta)  # noqa: E731
+    adj = lambda: grad(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)  # noqa: E731
+    diff, t, b = _agree_and_time(sh, adj, sz, max(1, min(repeats, 3)))
+    return _result("deep_shift", f"shift-rule gradient / adjoint gradient of a deep narrow circuit, "
+                   f"n = {n}, {G:,} gates, m = {c.n_params}", 10.0, "<=", t / b, seconds=t,
+                   max_gradient_difference=diff, seconds_shift=float(np.median(t)),
+                   seconds_adjoint=float(np.median(b)))
+
+
+def thread_shift(sz, repeats):
+    """Rows of one gradient split over a pool of two threads (NumPy releases the GIL)."""
+    from concurrent.futures import ThreadPoolExecutor
+
+    n, L = sz["threads"]
+    c, H, theta = _ising_setup(n, L)
+    one = lambda: grad(lambda t: qg.expect(c, H, t))(theta)  # noqa: E731
+    with ThreadPoolExecutor(2) as pool:
+        two = lambda: grad(lambda t: qg.expect(c, H, t, executor=pool))(theta)  # noqa: E731
+        diff, t, b = _agree_and_time(one, two, sz, repeats)
+    return _result("thread_shift", f"shift-rule gradient, one thread / two threads "
+                   f"(executor=ThreadPoolExecutor(2)), n = {n}, m = {c.n_params}", 1.5, ">=", t / b,
+                   seconds=b, max_gradient_difference=diff, seconds_one=float(np.median(t)),
+                   seconds_two=float(np.median(b)))
+
+
 def batch_adjoint(sz, repeats):
     return data_sets.batch_adjoint(sz, repeats, _result)
 
@@ -324,4 +357,4 @@ def kernel_gram(sz, repeats):
 
 FIGURES = [gate_pass, adjoint_forward, shift_forward, backprop_adjoint, hessian_adjoint, forward_memory,
            adjoint_memory, overhead, import_time, rotosolve_sweep, jax_adjoint, jax_shift,
-           first_gradient, batch_adjoint, batch_shift, kernel_gram]
+           first_gradient, batch_adjoint, batch_shift, kernel_gram, deep_shift, thread_shift]

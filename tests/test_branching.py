@@ -10,7 +10,7 @@ from autograd import grad
 from hypothesis import given, strategies as st
 
 import qgradlib as qg
-from qgradlib.engine.branch import divergence, prefix_tree, run_branched, run_prefix_tree
+from qgradlib.engine.branch import RUNS, divergence, prefix_tree, run_branched, run_prefix_tree
 from qgradlib.engine.statevector import run
 from qgradlib.rules.plans import first_order_points
 
@@ -112,6 +112,24 @@ def test_fused_gate_moved_ahead_of_a_branch_point_is_not_shared():
     points = np.asarray(points)
     got = run_branched(c, points, ins, min_saving=0.0)
     assert np.max(np.abs(got - run(c, points, ins, fuse=False))) <= 1e-12
+
+
+@pytest.mark.parametrize("runs", [1, 3, RUNS + 2])
+def test_kept_gate_applied_run_by_run_equals_separate_runs(runs):
+    # rows sharing a trunk take a kept column's angle in ``runs`` runs of equal values (the
+    # branched rows keep theirs in blocks); each run gets one matrix, or every row its own
+    c = qg.Circuit(3).h(0).ry(1).crx(0, 2).cz(1, 2).rz(0).ry(2).cnot(2, 0).rx(1)
+    rng = np.random.default_rng(runs)
+    base = rng.normal(size=len(c.parametric_operations))
+    rows = np.repeat(base[None], 2 * runs + 6, axis=0)
+    rows[1:1 + 2 * runs, 1] += np.repeat(rng.normal(size=runs), 2)
+    rows[-3:, 3] += rng.normal(size=3)           # a few rows also differ further on
+    got = run_branched(c, rows, min_saving=0.0)
+    assert got is not None
+    assert np.max(np.abs(got - run(c, rows, fuse=False))) <= 1e-12
+    # reference: dense kron/expm simulation of single rows
+    for p in (0, 1, rows.shape[0] - 1):
+        assert np.allclose(got[p], dense_reference(c, rows[p]), atol=1e-10)
 
 
 # -- a tree of prefixes: shift plans over a data set ------------------------------------------

@@ -142,6 +142,12 @@ def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2):
     starts = start[order]
     full_shared = np.all(rows_phi == rows_phi[:1], axis=0)
     table = _table(prog, rows_phi, full_shared)
+    # per column, the first buffer row whose angle differs from the reference's: the first
+    # ``a`` rows share a column's angle exactly when ``a <= first_diff[column]``; found once
+    # here, since comparing all active rows at every step grows as rows x columns x steps
+    differs = rows_phi != rows_phi[:1]
+    first_diff = np.where(differs.any(axis=0), np.argmax(differs, axis=0), M)
+    del differs
     active = 1
     nxt = 0
     for i, s in enumerate(steps):
@@ -156,11 +162,8 @@ def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2):
             cur[:a] = _external(s, cur[:a], n)
             continue
         if s.kind == "solo":
-            sub = rows_phi[:a]
-            shared = np.all(sub == sub[:1], axis=0)
             ins = None if rows_ins is None else rows_ins[:a]
-            res, _ = _solo(s, cur[:a], other[:a], n, sub, ins, shared)
-            if np.shares_memory(res, other):
+            if _solo_runs(s, cur, other, n, rows_phi, a, ins, first_diff):
                 cur, other = other, cur
             continue
         if s.matrix is not None:
@@ -173,6 +176,32 @@ def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2):
     out[order] = cur[1:active]
     out[is_ref] = cur[0]
     return out
+
+
+# a kept gate whose angle takes at most this many runs of equal values over the active rows
+# is applied run by run, with one matrix each, instead of one matrix per row
+RUNS = 8
+
+
+def _solo_runs(s, cur, other, n, rows_phi, a, ins, first_diff):
+    """Apply kept step ``s`` to the first ``a`` rows of ``cur``; True when the result is in
+    ``other``. Rows sorted by branch point hold a column's angle in a few runs (the rows that
+    branched at this gate, the rest): each run is one kernel call with one matrix."""
+    col = s.column
+    same = col is None or a <= first_diff[col]
+    cuts = None
+    if not same and ins is None:
+        v = rows_phi[:a, col]
+        cuts = np.flatnonzero(v[1:] != v[:-1]) + 1
+    if cuts is None or cuts.size >= RUNS:
+        res, _ = _solo(s, cur[:a], other[:a], n, rows_phi[:a], ins, {col: same})
+        return np.shares_memory(res, other)
+    bounds = [0, *cuts.tolist(), a]
+    moved = False
+    for lo, hi in zip(bounds[:-1], bounds[1:]):
+        res, _ = _solo(s, cur[lo:hi], other[lo:hi], n, rows_phi[lo:hi], None, {col: True})
+        moved = np.shares_memory(res, other)
+    return moved
 
 
 def _split(node, values, count):
