@@ -163,6 +163,42 @@ def test_prefix_tree_rows_equal_separate_runs(n, layers, N, fuse, seed):
     assert np.max(np.abs(got - run(c, points, fuse=False))) <= 1e-12
 
 
+@given(circuits(max_n=4), st.integers(0, 2 ** 31), st.integers(1, 4), st.booleans(), st.booleans())
+def test_prefix_tree_with_derived_rows_equals_separate_runs(c, seed, B, fuse, with_values):
+    # rows that differ from another (or from an unshifted point not among them) in one Pauli
+    # rotation's angle are combined from that row and one extra branch: U(a + d) =
+    # cos(d / 2) U(a) - 2i sin(d / 2) U(a) G for G = P / 2 (common practice)
+    phi, points, _ = _plan(c, seed, B)
+    rows = np.vstack([phi, points]) if with_values else points
+    if rows.shape[0] < 2 or rows.shape[1] == 0:
+        return
+    got = run_prefix_tree(c, rows, fuse=fuse, min_saving=0.0)
+    assert got is not None
+    assert np.max(np.abs(got - run(c, rows, fuse=False))) <= 1e-12
+    # reference: dense kron/expm simulation of single rows
+    for p in {0, rows.shape[0] - 1}:
+        assert np.allclose(got[p], dense_reference(c, rows[p]), atol=1e-10)
+
+
+def test_prefix_tree_derives_shifted_rows_from_their_unshifted_point():
+    # a two-term plan over 3 data points: 2m shifted rows a point, one twin made for each
+    # point, so the tree runs 1 + m rows a point (m: the weights), not 2m
+    from qgradlib.engine.branch import _generator_scales, _tree, _twins
+    from qgradlib.engine.program import program
+
+    c = _uploading(2, 2)
+    points = _data_plan(c, 3, seed=6)
+    steps = program(c, True).steps
+    tree = _tree(steps, points, None, np.inf)
+    derived, twin, col, extra = _twins(points, tree[4], tree[5], _generator_scales(steps, points.shape[1]))
+    m = c.n_params
+    assert extra.shape[0] == 3 and derived.size == 3 * 2 * m
+    assert np.all(twin >= points.shape[0])      # every twin is a made row (no unshifted row given)
+    # common practice: the two shifts of a two-term rule are +-pi/2 of the unshifted angle
+    np.testing.assert_allclose(np.abs(points[derived, col] - extra[twin - points.shape[0], col]),
+                               np.pi / 2, atol=1e-12)
+
+
 def test_prefix_tree_shares_each_data_points_prefix_and_skips_unrelated_rows():
     c = _uploading(3, 2)
     points = _data_plan(c, 5, seed=1)

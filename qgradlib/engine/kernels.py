@@ -148,7 +148,8 @@ def apply_dense(psi, n, mat, qubits, out, real=None):
     d = 2 ** k
     R = 2 ** (n - hi - 1)
     per_row = mat.ndim == 3
-    if R < TAIL_STRIDE and n > k:
+    # per-row matrices widened by two or more qubits cost more than small slab products
+    if R < TAIL_STRIDE and n > k and not (per_row and n - lo - k >= 2):
         # widen to a block over the last qubits: one product with (N/D, D) rows
         w = n - lo
         blk = widen(mat, list(range(k)), w)
@@ -174,9 +175,20 @@ def apply_dense(psi, n, mat, qubits, out, real=None):
     return out
 
 
+# rows of a far gate's moved copy at a time: its temporaries stay in cache (bytes)
+FAR_BYTES = 2 ** 20
+
+
 def _dense_far(psi, n, mat, sq, out):
-    """Qubits far apart: move them to the front, one product, move back (two extra passes)."""
+    """Qubits far apart: move them to the front, one product, move back (two extra passes),
+    a cache-sized block of rows at a time."""
     B = psi.shape[0]
+    step = max(1, FAR_BYTES // psi[:1].nbytes)
+    if B > step:
+        for lo in range(0, B, step):
+            m = mat[lo:lo + step] if mat.ndim == 3 else mat
+            _dense_far(psi[lo:lo + step], n, m, sq, out[lo:lo + step])
+        return out
     k = len(sq)
     t = psi.reshape((B,) + (2,) * n)
     axes = [1 + q for q in sq]

@@ -271,11 +271,13 @@ def _embedding(f, step):
     return (np.rint(full.real).astype(np.intp) - 1)
 
 
-def _factor_value(f, table, d_only):
+def _factor_value(f, table, d_only, values=None):
     """The factor's matrix (or diagonal, with ``d_only``): (d, d) / (B, d, d) / (d,) / (B, d)."""
     if f.cached is not None:
         return f.cached
     g = f.gate
+    if values is not None and f.column in values:
+        return values[f.column]
     if not f.const:
         gi, j = f.slot
         vals, shared = table[gi]
@@ -289,12 +291,15 @@ def _factor_value(f, table, d_only):
     raise AssertionError("varying factor without a table")
 
 
-def step_matrix(step, table, B):
-    """The step's matrix (dense/mono) or diagonal (diag) from its factors, in step order."""
+def step_matrix(step, table, B, values=None):
+    """The step's matrix (dense/mono) or diagonal (diag) from its factors, in step order.
+
+    ``values`` ({column: (U, d, d) or (U, d)}) overrides the table for those columns: the
+    matrices of U rows of angles (a prefix tree's distinct angle combinations)."""
     d_only = step.kind == "diag"
     out = None
     for f in step.factors:
-        v = _factor_value(f, table, d_only)
+        v = _factor_value(f, table, d_only, values)
         if f.embed is not None:
             if d_only:
                 v = v[..., f.embed]
