@@ -374,12 +374,29 @@ def run_prefix_tree(circuit, phi, *, fuse=None, min_saving=0.2):
     ext[real_idx] = np.arange(real_idx.size)
     w = np.array([_scale(circuit.parametric_operations[c].gate) for c in range(G)])[col]
     d = (phi[derived, col] - every[twin, col]) * w
-    base, branch = node[ext[twin]], node[real_idx.size + virt]
-    for lo in range(0, derived.size, 512):
-        sl = slice(lo, lo + 512)
-        out[derived[sl]] = (np.cos(d[sl])[:, None] * cur[base[sl]]
-                            - 1j * (np.sin(d[sl]) / w[sl])[:, None] * cur[branch[sl]])
+    _combine(out, derived, cur, node[ext[twin]], np.cos(d), node[real_idx.size + virt],
+             -1j * np.sin(d) / w)
     return out
+
+
+def _combine(out, rows, cur, base, cb, branch, cr):
+    """``out[rows] = cb * cur[base] + cr * cur[branch]`` a cache-sized block at a time, with
+    the rows written in place where they run consecutively (a shift plan's rows mostly do)."""
+    step = max(1, 2 ** 20 // max(cur[:1].nbytes, 1))
+    buf = np.empty((min(step, rows.size), cur.shape[1]), dtype=out.dtype)
+    for lo in range(0, rows.size, step):
+        hi = min(lo + step, rows.size)
+        r = rows[lo:hi]
+        run = r[-1] - r[0] == hi - lo - 1
+        dst = out[r[0]:r[-1] + 1] if run else np.empty((hi - lo, cur.shape[1]), dtype=out.dtype)
+        np.take(cur, base[lo:hi], axis=0, out=dst)
+        dst *= cb[lo:hi, None]
+        tmp = buf[:hi - lo]
+        np.take(cur, branch[lo:hi], axis=0, out=tmp)
+        tmp *= cr[lo:hi, None]
+        dst += tmp
+        if not run:
+            out[r] = dst
 
 
 def _tree(steps, phi, fork, limit):
