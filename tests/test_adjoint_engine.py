@@ -124,3 +124,58 @@ def test_layered_circuit_blocks_pairs_and_tail(rows):
     # reference: the shift rule, a different algorithm on the same engine
     shift = jacobian(lambda t: qg.expect(c, H, t))(theta)
     assert np.allclose(adj, shift, atol=1e-10)
+
+
+@pytest.mark.parametrize("rows", [1, 3])
+def test_blocks_of_diagonal_gates_one_product_and_one_phase_multiply(rows):
+    # RZ on every qubit and RZZ on disjoint pairs commute: their derivatives come from one
+    # product Im(conj(lam) psi) and they are undone as one phase multiply
+    n = 5
+    c = qg.Circuit(n)
+    for _ in range(2):
+        for q in range(n):
+            c.ry(q)
+        for q in range(n):
+            c.rz(q)
+        c.rzz(0, 1).rzz(2, 3).crz(4, 0)
+        for q in range(n - 1):
+            c.cnot(q, q + 1)
+    rng = np.random.default_rng(9)
+    H = _random_observable(n, rng, 4)
+    theta = rng.normal(size=(rows, c.n_params))
+    adj = jacobian(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)
+    # reference: the shift rule, a different algorithm on the same engine
+    shift = jacobian(lambda t: qg.expect(c, H, t))(theta)
+    assert np.allclose(adj, shift, atol=1e-10)
+    # reference: scipy.optimize.check_grad on the first row's value
+    f = lambda t: float(qg.expect(c, H, t))  # noqa: E731
+    g = lambda t: grad(lambda u: qg.expect(c, H, u, gradient="adjoint"))(t)  # noqa: E731
+    assert scipy.optimize.check_grad(f, g, theta[0], epsilon=1e-6) < 1e-5
+
+
+@pytest.mark.parametrize("n, rows", [(3, 1), (6, 1), (6, 3)])
+def test_runs_of_rotations_on_one_qubit_fuse_with_derivatives_at_the_end(n, rows):
+    # RY, RZ, RX on each qubit in turn (a qubit carries three trainable gates in one run):
+    # derivatives taken at the run's end with conjugated generators, the run undone fused
+    c = qg.Circuit(n)
+    for _ in range(2):
+        for q in range(n):
+            c.ry(q, input=q % 2)
+        for q in range(n):
+            c.ry(q).rz(q).rx(q)
+        for q in range(n):
+            c.cz(q, (q + 1) % n)
+    rng = np.random.default_rng(10 + n)
+    H = _random_observable(n, rng, 4)
+    theta = rng.normal(size=(rows, c.n_params))
+    X = rng.normal(size=(rows, 2))
+    adj = np.stack([grad(lambda t: qg.expect(c, H, t, inputs=x, gradient="adjoint"))(th)
+                    for th, x in zip(theta, X)])
+    # reference: the shift rule, a different algorithm on the same engine
+    shift = np.stack([grad(lambda t: qg.expect(c, H, t, inputs=x))(th) for th, x in zip(theta, X)])
+    assert np.allclose(adj, shift, atol=1e-10)
+    # the data points in one batch give the same per-sample derivatives as one at a time
+    batch = jacobian(lambda t: qg.expect(c, H, t, inputs=X, gradient="adjoint"))(theta[0])
+    single = np.stack([grad(lambda t: qg.expect(c, H, t, inputs=x, gradient="adjoint"))(theta[0])
+                       for x in X])
+    assert np.allclose(batch.reshape(single.shape), single, atol=1e-12)

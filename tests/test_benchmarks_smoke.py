@@ -9,7 +9,7 @@ ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
 KEYS = {"gate_pass", "adjoint_forward", "shift_forward", "backprop_adjoint", "hessian_adjoint",
         "forward_memory",
         "adjoint_memory", "overhead_n4", "import_time", "rotosolve_sweep", "first_gradient",
-        "batch_adjoint", "batch_shift", "kernel_gram"}
+        "batch_adjoint", "batch_shift", "kernel_gram", "deep_shift", "thread_shift"}
 # the JAX comparison rows: skipped here (--no-jax keeps the run short and JAX optional), with
 # the reason in place of the figures
 JAX_KEYS = {"jax_adjoint_n3", "jax_shift"}
@@ -46,5 +46,8 @@ def test_quick_suite_writes_every_figure(tmp_path):
     # the plain simulator's gradient agrees with ours (a silent mismatch would void the ratio)
     assert figs["backprop_adjoint"]["details"]["max_gradient_difference"] < 1e-9
     assert figs["hessian_adjoint"]["details"]["max_hessian_difference"] < 1e-9
+    # shift rule against adjoint (deep circuit) and threads against one thread: same gradient
+    assert figs["deep_shift"]["details"]["max_gradient_difference"] < 1e-9
+    assert figs["thread_shift"]["details"]["max_gradient_difference"] < 1e-12
     # the sweep and the one-call-at-a-time baseline ran the circuits the ledger counted
     assert figs["rotosolve_sweep"]["details"]["circuits"] > 0

@@ -20,7 +20,7 @@ import numpy as np
 from .threads import engine_threads
 from . import kernels
 from .memory import guard_states
-from .program import program, step_matrix
+from .program import DIAG_WIDTH, program, step_matrix
 from .statevector import _table, run
 
 __all__ = ["adjoint_gradient", "adjoint_states", "hamiltonian_derivative"]
@@ -252,6 +252,17 @@ def _backward(prog, both, phi, n, P, G, want, observable_into, apply_observable)
             both, buf = _undo_step(s, both, buf, n, phi, shared, table, P)
             i -= 1
             continue
+        if _single(s, want):
+            run = [s]
+            j = i - 1
+            while j >= 0 and _single(steps[j], want):
+                run.append(steps[j])
+                j -= 1
+            qs = [b.op.qubits[0] for b in run]
+            if len(set(qs)) < len(qs):
+                both, buf = _undo_run(run, both, buf, n, phi, shared, P, grad)
+                i = j
+                continue
         # a block of trainable gates on disjoint qubits commutes: every derivative in it can
         # be taken at the block's end, and the block undone with single-qubit pairs fused
         block = [s]
@@ -261,16 +272,124 @@ def _backward(prog, both, phi, n, P, G, want, observable_into, apply_observable)
             block.append(steps[j])
             used |= set(steps[j].qubits)
             j -= 1
-        tail = [b for b in block if _in_tail(b, n)]
+        phases = [b for b in block if b.op.gate.kind == "generator" and b.op.gate.diagonal]
+        if len(phases) < 2 or len({q for b in phases for q in b.op.qubits}) > DIAG_WIDTH:
+            phases = []
+        rest = [b for b in block if b not in phases]
+        tail = [b for b in rest if _in_tail(b, n)]
         S = _tail_overlaps(both, n, P) if len(tail) > 1 else None
-        for b in block:
+        for b in rest:
             if S is not None and b in tail:
                 _tail_derivative(b, S, n, grad)
             else:
                 _derivative(b, both, buf, n, phi, P, grad)
-        both, buf = _undo_block(block, both, buf, n, phi, shared, table, P)
+        if phases:
+            _phase_derivatives(phases, both, buf, n, P, grad)
+            _undo_phases(phases, both, n, phi, shared, P)
+        both, buf = _undo_block(rest, both, buf, n, phi, shared, table, P)
         i = j
     return grad
+
+
+def _single(s, want):
+    """A trainable single-qubit generator gate (a step of its own)."""
+    return _trainable(s, want) and s.op.gate.kind == "generator" and len(s.op.qubits) == 1
+
+
+def _undo_run(run, both, buf, n, phi, shared, P, grad):
+    """A run of trainable single-qubit gates (``run`` latest first; a qubit may carry several,
+    RY then RZ): each qubit's gates fuse into one 2 x 2 matrix, and every derivative is taken
+    at the run's end, ``2 Im <lam|A G A^dag|psi>`` with ``A`` the qubit's gates after it (the
+    other qubits' gates commute with both), from one 2 x 2 overlap matrix a qubit."""
+    by_qubit: dict = {}
+    for b in run:
+        by_qubit.setdefault(b.op.qubits[0], []).append(b)
+    S = _qubit_overlaps(sorted(by_qubit), both, buf, n, P)
+    undo = {}
+    for q, gates in by_qubit.items():
+        A = np.eye(2, dtype=both.dtype)
+        for b in gates:                     # latest first
+            g = b.op.gate
+            sh = bool(shared[b.column])
+            U = g._matrices(phi[:1, b.column] if sh else phi[:, b.column])
+            U = U[0] if sh else U
+            Ah = np.conj(np.swapaxes(A, -1, -2))
+            M = A @ np.asarray(g.generator, dtype=both.dtype) @ Ah
+            grad[:, b.column] = 2 * np.imag(np.einsum("pij,pij->p" if M.ndim == 3 else "ij,pij->p",
+                                                      M, S[q]))
+            A = A @ U
+        undo[q] = np.conj(np.swapaxes(A, -1, -2))
+    return _undo_qubits(undo, both, buf, n, P)
+
+
+def _qubit_overlaps(qubits, both, buf, n, P):
+    """``{q: S}`` with ``S[p, i, j] = sum conj(lam[p, .. i ..]) psi[p, .. j ..]`` over the other
+    qubits, so that ``<lam|M|psi> = sum_ij M_ij S_ij`` for any M on qubit q. Qubits in the
+    last few come from one overlap matrix of that window; the others from slab products of
+    the conjugated bra (written into the spare buffer)."""
+    out = {}
+    lam, psi = both[P:], both[:P]
+    tail = [q for q in qubits if n > _TAIL and q >= n - _TAIL]
+    if tail:
+        T = _tail_overlaps(both, n, P).reshape((P,) + (2,) * (2 * _TAIL))
+        for q in tail:
+            k = q - (n - _TAIL)
+            keep = "ijk"[k], "lmn"[k]
+            rows = "ijk"[:k] + "x" + "ijk"[k + 1:]
+            cols = "lmn"[:k] + "y" + "lmn"[k + 1:]
+            # trace out the other window qubits: equal row and column letters
+            for a, b in zip("ijk", "lmn"):
+                if a != keep[0]:
+                    cols = cols.replace(b, a)
+            out[q] = np.einsum(f"p{rows}{cols}->pxy", T)
+    rest = [q for q in qubits if q not in out]
+    if rest:
+        cl = buf[:P]
+        np.conjugate(lam, out=cl)
+        for q in rest:
+            L, R = 2 ** q, 2 ** (n - q - 1)
+            a = cl.reshape(P, L, 2, R)
+            b = psi.reshape(P, L, 2, R)
+            out[q] = np.matmul(a, np.swapaxes(b, -1, -2)).sum(axis=1)
+    return out
+
+
+def _phase_derivatives(block, both, buf, n, P, grad):
+    """Derivatives of commuting diagonal generator gates (RZ, RZZ, ...) from one product:
+    ``2 Im <lam|G|psi> = 2 sum_x G(x) Im(conj(lam_x) psi_x)``, and ``G`` acts on a few qubits,
+    so each gate needs only the marginal of ``v = Im(conj(lam) psi)`` on its qubits. ``v``
+    and its scratch live in the spare buffer (nothing allocated at full size)."""
+    N = 2 ** n
+    flat = buf.reshape(-1).view(np.float64)
+    v = flat[:P * N].reshape(P, N)
+    tmp = flat[P * N:2 * P * N].reshape(P, N)
+    lam = both[P:].view(np.float64).reshape(P, N, 2)
+    psi = both[:P].view(np.float64).reshape(P, N, 2)
+    np.multiply(lam[..., 0], psi[..., 1], out=v)
+    np.multiply(lam[..., 1], psi[..., 0], out=tmp)
+    v -= tmp
+    cube = v.reshape((P,) + (2,) * n)
+    for b in block:
+        g = b.op.gate
+        d, sq = kernels.sort_qubits(np.real(np.diag(np.asarray(g.generator))), b.op.qubits, diag=True)
+        others = tuple(1 + q for q in range(n) if q not in sq)
+        marginal = cube.sum(axis=others).reshape(P, -1)
+        grad[:, b.column] = 2 * marginal @ d
+
+
+def _undo_phases(block, both, n, phi, shared, P):
+    """Undo commuting diagonal gates as one phase multiply over their qubits, in place."""
+    union = tuple(sorted({q for b in block for q in b.op.qubits}))
+    per_row = not all(shared[b.column] for b in block)
+    total = np.ones(((P,) if per_row else ()) + (2,) * len(union), dtype=both.dtype)
+    for b in block:
+        a = phi[:, b.column] if per_row else phi[:1, b.column]
+        d = b.op.gate.diagonal_values(-a)
+        d, sq = kernels.sort_qubits(d, b.op.qubits, diag=True)
+        shape = [2 if q in sq else 1 for q in union]
+        total = total * d.reshape(((P,) if per_row else ()) + tuple(shape))
+    total = total.reshape(((P,) if per_row else ()) + (-1,))
+    kernels.apply_diag(both, n, _tile(total, True) if per_row else total, union)
 
 
 _TAIL = 3   # qubits of the window whose overlap matrix serves all derivatives inside it
@@ -357,25 +476,33 @@ def _undo_block(block, both, buf, n, phi, shared, table, P):
     pairable = {b.op.qubits[0]: b for b in block
                 if len(b.op.qubits) == 1 and b.op.gate.kind == "generator" and not b.op.gate.diagonal}
     inv = _inverses(list(pairable.values()), phi, shared)
+    both, buf = _undo_qubits({q: inv[id(b)] for q, b in pairable.items()}, both, buf, n, P)
+    # the block's gates commute: the others may be undone after the single-qubit ones
+    for b in block:
+        if pairable.get(b.op.qubits[0]) is not b or len(b.op.qubits) != 1:
+            both, buf = _undo_step(b, both, buf, n, phi, shared, table, P)
+    return both, buf
+
+
+def _undo_qubits(mats, both, buf, n, P):
+    """Apply single-qubit matrices ``{qubit: (2, 2) or (P, 2, 2)}`` to every stacked row
+    (they commute): the last four qubits as one 16 x 16 block where all are shared (pair
+    products are slow there), neighbours as pairs, the rest one by one."""
     done = set()
     tail = list(range(n - 4, n))
-    if n > 4 and all(q in pairable for q in tail) and all(inv[id(pairable[q])].ndim == 2 for q in tail):
-        # the last four qubits, where pair products are slow: one 16 x 16 block instead
-        m = np.ones((1, 1), dtype=complex)
+    if n > 4 and all(q in mats and mats[q].ndim == 2 for q in tail):
+        m = np.ones((1, 1), dtype=both.dtype)
         for q in tail:
-            u = inv[id(pairable[q])]
+            u = mats[q]
             m = (m[:, None, :, None] * u[None, :, None, :]).reshape(2 * m.shape[0], 2 * m.shape[1])
         kernels.apply_dense(both, n, m, tuple(tail), buf)
         both, buf = buf, both
-        done.update(id(pairable[q]) for q in tail)
-    # the block's gates commute, so they may be undone in ascending qubit order (pairs)
-    for b in sorted(block, key=lambda x: min(x.op.qubits)):
-        q = b.op.qubits[0] if len(b.op.qubits) == 1 else None
-        if id(b) in done:
+        done.update(tail)
+    for q in sorted(mats):
+        if q in done:
             continue
-        if q is not None and pairable.get(q) is b and q + 1 in pairable and id(pairable[q + 1]) not in done:
-            other = pairable[q + 1]
-            u0, u1 = inv[id(b)], inv[id(other)]
+        if q + 1 in mats and q + 1 not in done:
+            u0, u1 = mats[q], mats[q + 1]
             if u0.ndim == 2 and u1.ndim == 2:
                 m = (u0[:, None, :, None] * u1[None, :, None, :]).reshape(4, 4)
             else:
@@ -383,9 +510,9 @@ def _undo_block(block, both, buf, n, phi, shared, table, P):
                 u1 = np.broadcast_to(u1, (P, 2, 2))
                 m = _tile(np.einsum("pij,pkl->pikjl", u0, u1).reshape(P, 4, 4), True)
             kernels.apply_dense(both, n, m, (q, q + 1), buf)
-            both, buf = buf, both
-            done.update((id(b), id(other)))
-            continue
-        both, buf = _undo_step(b, both, buf, n, phi, shared, table, P)
-        done.add(id(b))
+            done.update((q, q + 1))
+        else:
+            kernels.apply_dense(both, n, _tile(mats[q], mats[q].ndim == 3), (q,), buf)
+            done.add(q)
+        both, buf = buf, both
     return both, buf
