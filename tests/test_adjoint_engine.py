@@ -110,20 +110,34 @@ def test_adjoint_memory_stays_near_four_states():
 @pytest.mark.parametrize("rows", [1, 2])
 def test_layered_circuit_blocks_pairs_and_tail(rows):
     # layers of RY/RX on every qubit: commuting blocks, undone in pairs and a last-four block
-    n = 7
+    c = _chain_layers(7, 3, lambda layer: ["ry" if layer % 2 == 0 else "rx"], "cz")
+    _adjoint_equals_shift(c, rows, seed=8)
+
+
+def _chain_layers(n, layers, rotations, entangler, extra=lambda c: None):
+    """Layers of ``rotations(layer)`` on every qubit, ``extra(c)``, then ``entangler`` on
+    (0, 1), (1, 2), ..."""
     c = qg.Circuit(n)
-    for layer in range(3):
-        for q in range(n):
-            (c.ry if layer % 2 == 0 else c.rx)(q)
+    for layer in range(layers):
+        for name in rotations(layer):
+            for q in range(n):
+                getattr(c, name)(q)
+        extra(c)
         for q in range(n - 1):
-            c.cz(q, q + 1)
-    rng = np.random.default_rng(8)
-    H = _random_observable(n, rng, 4)
+            getattr(c, entangler)(q, q + 1)
+    return c
+
+
+def _adjoint_equals_shift(c, rows, seed):
+    """Adjoint Jacobian of ``rows`` parameter rows of a random observable against the shift
+    rule's (a different algorithm on the same engine); returns the observable and rows."""
+    rng = np.random.default_rng(seed)
+    H = _random_observable(c.n_qubits, rng, 4)
     theta = rng.normal(size=(rows, c.n_params))
     adj = jacobian(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)
-    # reference: the shift rule, a different algorithm on the same engine
     shift = jacobian(lambda t: qg.expect(c, H, t))(theta)
     assert np.allclose(adj, shift, atol=1e-10)
+    return H, theta
 
 
 @pytest.mark.parametrize("rows", [1, 3])
@@ -131,22 +145,10 @@ def test_blocks_of_diagonal_gates_one_product_and_one_phase_multiply(rows):
     # RZ on every qubit and RZZ on disjoint pairs commute: their derivatives come from one
     # product Im(conj(lam) psi) and they are undone as one phase multiply
     n = 5
-    c = qg.Circuit(n)
-    for _ in range(2):
-        for q in range(n):
-            c.ry(q)
-        for q in range(n):
-            c.rz(q)
-        c.rzz(0, 1).rzz(2, 3).crz(4, 0)
-        for q in range(n - 1):
-            c.cnot(q, q + 1)
-    rng = np.random.default_rng(9)
-    H = _random_observable(n, rng, 4)
-    theta = rng.normal(size=(rows, c.n_params))
-    adj = jacobian(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)
+    c = _chain_layers(n, 2, lambda layer: ["ry", "rz"], "cnot",
+                      extra=lambda c: c.rzz(0, 1).rzz(2, 3).crz(4, 0))
     # reference: the shift rule, a different algorithm on the same engine
-    shift = jacobian(lambda t: qg.expect(c, H, t))(theta)
-    assert np.allclose(adj, shift, atol=1e-10)
+    H, theta = _adjoint_equals_shift(c, rows, seed=9)
     # reference: scipy.optimize.check_grad on the first row's value
     f = lambda t: float(qg.expect(c, H, t))  # noqa: E731
     g = lambda t: grad(lambda u: qg.expect(c, H, u, gradient="adjoint"))(t)  # noqa: E731
