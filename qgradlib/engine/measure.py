@@ -433,7 +433,7 @@ def _apply_layout(psi, layout, w, out, scratch):
             else:
                 np.multiply(psi, w @ W.T, out=target)
         else:
-            np.take(psi, flip, axis=1, out=target)
+            np.take(psi, flip, axis=1, out=target, mode="clip")
             if w.shape[1] == 1:
                 target *= Wf[0]
                 target *= w

@@ -214,7 +214,7 @@ def _forward(comp, cur, other, table, n):
         if code == _CONST_DIAG:
             cur *= s[1]
         elif code == _CONST_MONO:
-            np.take(cur, s[1], axis=1, out=other)
+            np.take(cur, s[1], axis=1, out=other, mode="clip")
             if s[2] is not None:
                 other *= s[2]
             cur, other = other, cur
@@ -262,6 +262,8 @@ def run(circuit, phi, psi=None, out=None):
     comp = compiled(circuit)
     B = phi.shape[0]
     N = 2 ** comp.n
+    # the matrices first: their temporaries come and go before the two buffers exist
+    table = _table(comp, phi)
     cur = out if out is not None else np.empty((B, N), dtype=complex)
     if psi is None:
         cur[...] = 0
@@ -269,7 +271,6 @@ def run(circuit, phi, psi=None, out=None):
     else:
         cur[...] = psi
     other = np.empty_like(cur)
-    table = _table(comp, phi)
     res, _ = _forward(comp, cur, other, table, comp.n)
     if out is not None and res is not out:
         out[...] = res
@@ -295,12 +296,12 @@ def backward(circuit, both, phi, want, observable_into=None, apply_observable=No
     comp = compiled(circuit)
     n = comp.n
     P = phi.shape[0]
+    table = _table(comp, phi)        # before the buffer: its temporaries come and go first
     buf = np.empty_like(both)
     if observable_into is not None:
         observable_into(both[:P], both[P:], buf[:P])
     else:
         both[P:] = apply_observable(both[:P])
-    table = _table(comp, phi)
     grad = np.zeros((P, comp.n_columns))
     cur, other = both, buf
     for s in reversed(comp.steps):
@@ -333,7 +334,7 @@ def _undo(s, cur, other, table, n):
         cur *= np.conj(s[1])
         return cur, other
     if code == _CONST_MONO:
-        np.take(cur, s[3], axis=1, out=other)
+        np.take(cur, s[3], axis=1, out=other, mode="clip")
         if s[4] is not None:
             other *= s[4]
         return other, cur
