@@ -322,8 +322,7 @@ def _derivative(s, both, buf, n, P, grad):
     elif code == _ONE:
         _one(psi, mu, s[7], s[4], s[5], s[6])
     else:
-        from .adjoint import _apply_generator
-        _apply_generator(s[5], psi, n, s[4], mu)
+        kernels.apply_dense(psi, n, np.asarray(s[5].generator, dtype=complex), s[4], mu)
     grad[:, col] = 2 * np.imag(_dots(lam, mu))
 
 
