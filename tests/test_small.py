@@ -17,30 +17,13 @@ from qgradlib.engine import adjoint, memory, small
 from qgradlib.engine.measure import apply_observables, expectations
 from qgradlib.engine.statevector import run
 from qgradlib.rules.plans import first_order_points
+from test_fusion import circuits
 from reference import (angle_gradient, circuit_ops, dense_expectation, dense_state,
                        observable_dense)
 
-ONE = ["h", "x", "y", "z", "s", "t", "sx", "rx", "ry", "rz", "phase"]
-TWO = ["cnot", "cz", "swap", "crx", "cry", "crz", "cphase", "rxx", "ryy", "rzz"]
-
-
-@st.composite
-def circuits(draw, max_n=8):
-    # up to 8 qubits: the widened tail products start there (2**8 amplitudes)
-    n = draw(st.integers(1, max_n))
-    c = qg.Circuit(n)
-    for _ in range(draw(st.integers(1, 30))):
-        if n >= 2 and draw(st.integers(0, 9)) < 4:
-            a, b = draw(st.permutations(range(n)))[:2]
-            getattr(c, draw(st.sampled_from(TWO)))(a, b)
-        else:
-            name = draw(st.sampled_from(ONE))
-            q = draw(st.integers(0, n - 1))
-            if name in ("rx", "ry", "rz", "phase") and draw(st.booleans()):
-                getattr(c, name)(q, angle=draw(st.floats(-3, 3)))
-            else:
-                getattr(c, name)(q)
-    return c
+# random circuits of standard gates, fixed angles included (the strategy of the fusion tests);
+# up to 8 qubits, where the widened tail products start (2**8 amplitudes)
+SIZES = 8
 
 
 def _rows(c, seed, B, same):
@@ -55,7 +38,7 @@ def _words(n, rng, k):
     return {"".join(rng.choice(list("IXYZ"), n)): float(rng.normal()) for _ in range(k)}
 
 
-@given(circuits(), st.integers(0, 2 ** 31), st.integers(1, 3), st.booleans())
+@given(circuits(max_n=SIZES), st.integers(0, 2 ** 31), st.integers(1, 3), st.booleans())
 def test_small_run_equals_dense_reference_and_general_engine(c, seed, B, same):
     phi = _rows(c, seed, B, same)
     got = small.run(c, phi)
