@@ -343,6 +343,29 @@ def test_shot_kernel_is_an_unbiased_binomial_estimate():
                                   qg.kernel_matrix(c, X, shots=50, seed=3))
 
 
+def test_shot_kernel_reads_the_compute_uncompute_circuits():
+    # Havlicek et al., Nature 567, 209 (2019): U(y)^dagger U(x) on |0...0> ends in 0...0 with
+    # probability |<phi(y)|phi(x)>|^2; here against the dense reference's feature states
+    from qgradlib.circuits.transform import overlap_circuit
+    c, X, Y = feature_map(), data(4, seed=6), data(3, seed=8)
+    k = overlap_circuit(c)
+    assert (k.n_qubits, k.n_inputs, len(k)) == (3, 4, 2 * len(c))
+    pairs = np.array([np.concatenate([x, y]) for x in X for y in Y])
+    p0 = qg.probabilities(k, np.zeros(0), inputs=pairs)[:, 0]
+    want = [abs(np.vdot(ref_state(c, np.zeros(0), y), ref_state(c, np.zeros(0), x))) ** 2
+            for x in X for y in Y]
+    np.testing.assert_allclose(p0, want, atol=1e-12)
+    # the shot kernel is Binomial(shots, p0) / shots of those circuits, drawn in pair order
+    # from the seed's generator (numpy's binomial, a reference library routine)
+    got = qg.kernel_matrix(c, X, Y, shots=300, seed=7)
+    np.testing.assert_array_equal(got.ravel(), np.random.default_rng(7).binomial(300, p0) / 300)
+    i, j = np.triu_indices(4, k=1)
+    p_sym = qg.probabilities(k, np.zeros(0), inputs=np.hstack([X[i], X[j]]))[:, 0]
+    sym = qg.kernel_matrix(c, X, shots=300, seed=7)
+    np.testing.assert_array_equal(sym[i, j], np.random.default_rng(7).binomial(300, p_sym) / 300)
+    np.testing.assert_array_equal(sym, sym.T)
+
+
 def test_trainable_feature_circuit_and_bad_kernel_arguments():
     c = feature_map().ry(1)                     # one trainable weight after the encoding
     X = data(3)
