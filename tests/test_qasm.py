@@ -419,7 +419,8 @@ def test_openqasm3_inputs_are_parameters_with_exact_gradients():
     assert c.n_params == 2
     # declaration order: beta is theta[0], alpha theta[1]
     assert [(op.param, op.scale, op.offset) for op in c.parametric_operations] == \
-        [(1, 2.0, -math.pi / 4), (0, -1 / 3, -0.0), (1, 0.5, 0.5)]
+        [(1, 2.0, -math.pi / 4), (0, -1 / 3, 0.0), (1, 0.5, 0.5)]
+    assert str(c.parametric_operations[1].offset) == "0.0"      # no -0.0 in the angle map
     H = qg.Observable({"ZX": 0.7, "YI": -0.4, "XZ": 1.1})
     theta = np.array([0.3, -1.1])
     g = grad(lambda t: qg.expect(c, H, t))(theta)
@@ -465,8 +466,10 @@ HOSTILE = [
     (program('include "stdgates.inc";\n', 1), "'qelib1.inc' of OpenQASM 2", 4, 9),
     (program('include "qelib1.inc\n', 1), "unterminated string", 4, 9),
     (program("h q[0]; /* never closed\n h q[0];", 1), "unterminated comment", 4, 9),
-    (program("rx(" + "(" * 5000 + "1" + ")" * 5000 + ") q[0];", 1), "nested more than 64", 4, 68),
-    (program("rx(" + "-" * 100000 + "1) q[0];", 1), "nested more than 64", 4, 68),
+    (program("rx(" + "(" * 5000 + "1" + ")" * 5000 + ") q[0];", 1), "nested more than 100", 4, 104),
+    (program("rx(" + "-" * 100000 + "1) q[0];", 1), "nested more than 100", 4, 103),
+    (program("rx(" + "1+" * 100000 + "1) q[0];", 1), "nested more than 100", 4, 203),
+    (program("rx(" + "2*" * 100000 + "1) q[0];", 1), "nested more than 100", 4, 203),
     (program("qreg big[1000000000000];", 1), "at most 64 are read", 4, 6),
     (program("qreg r[64];", 1), "brings the program to 65 qubits", 4, 6),
     (program("qreg r[" + "9" * 60 + "];", 1), "number literal of 60 characters", 4, 8),

@@ -552,7 +552,7 @@ class _Reader:
             if a is None:
                 c.add(gate, qs)
             elif a.constant:
-                c.add(gate, qs, angle=a.const)
+                c.add(gate, qs, angle=a.const + 0.0)      # + 0.0 turns -0.0 into 0.0
             elif len(a.coef) > 1:
                 _fail(f"an angle of gate {node.name!r} depends on {' and '.join(sorted(a.coef))}; a "
                       "qgradlib angle is scale * (one input) + offset", node)
@@ -560,9 +560,9 @@ class _Reader:
                 (name, scale), = a.coef.items()
                 kind, k = self.kind[name]
                 if kind == "param":
-                    c.add(gate, qs, k, scale=scale, offset=a.const)
+                    c.add(gate, qs, k, scale=scale + 0.0, offset=a.const + 0.0)
                 else:
-                    c.add(gate, qs, scale=scale, offset=a.const, input=k)
+                    c.add(gate, qs, scale=scale + 0.0, offset=a.const + 0.0, input=k)
         return c
 
 

@@ -9,7 +9,8 @@ are refused here with their line and column. Nothing is evaluated and no file is
 this module only reads the text it is given.
 
 The bounds that keep hostile input cheap are set here: `MAX_TEXT` characters,
-`MAX_EXPRESSION_DEPTH` levels of nesting in an expression and `MAX_NUMBER` characters in a
+`MAX_EXPRESSION_DEPTH` levels in the tree of an expression (nested parentheses, signs and
+functions, and operators in a chain) and `MAX_NUMBER` characters in a
 number literal. Every refusal is a `QasmError` that carries ``line`` and ``col`` (both
 counted from 1).
 
@@ -30,7 +31,7 @@ from dataclasses import dataclass
 __all__ = ["QasmError", "parse", "tokens", "MAX_TEXT", "MAX_EXPRESSION_DEPTH", "MAX_NUMBER"]
 
 MAX_TEXT = 1_000_000            # characters of program text
-MAX_EXPRESSION_DEPTH = 64       # nested parentheses, signs, powers and function calls
+MAX_EXPRESSION_DEPTH = 100      # levels of an expression's tree: parentheses, operators, signs
 MAX_NUMBER = 40                 # characters of one number literal
 
 FUNCTIONS = ("sin", "cos", "tan", "exp", "ln", "sqrt")
@@ -559,26 +560,33 @@ class _Parser:
         if self.depth > MAX_EXPRESSION_DEPTH:
             self.fail(f"expression nested more than {MAX_EXPRESSION_DEPTH} levels deep")
 
+    # each operator of a chain such as 1+1+...+1 is a level of the tree as well: evaluating
+    # the tree recurses through its depth, which must stay far below Python's recursion limit
     def expression(self):
+        level = self.depth
         self.deeper()
         left = self.product()
         while self.tok.kind == "op" and self.tok.text in "+-":
+            self.deeper()
             op = self.take()
             left = Binary(op.text, left, self.product(), op.line, op.col)
-        self.depth -= 1
+        self.depth = level
         return left
 
     def product(self):
+        level = self.depth
         left = self.signed()
         while self.tok.kind == "op" and self.tok.text in ("*", "/"):
+            self.deeper()
             op = self.take()
             left = Binary(op.text, left, self.signed(), op.line, op.col)
+        self.depth = level
         return left
 
     def signed(self):
         if self.tok.kind == "op" and self.tok.text in "+-":
-            op = self.take()
             self.deeper()
+            op = self.take()
             out = Unary(op.text, self.signed(), op.line, op.col)
             self.depth -= 1
             return out
@@ -592,8 +600,8 @@ class _Parser:
                 self.fail("in OpenQASM 3, ^ is the bitwise xor; write ** for a power")
             if tok.text == "**" and self.version == 2:
                 self.fail("in OpenQASM 2, a power is written ^")
-            self.take()
             self.deeper()
+            self.take()
             out = Binary("^", base, self.signed(), tok.line, tok.col)
             self.depth -= 1
             return out
