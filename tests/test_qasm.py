@@ -396,6 +396,19 @@ def test_registers_broadcasting_and_gate_definitions_against_the_dense_reference
     assert equal_up_to_phase(got[:, None], psi[:, None])
 
 
+def test_a_program_without_the_header_defines_its_own_gates():
+    text = """OPENQASM 2.0;
+    gate h a { U(pi/2, 0, pi) a; }
+    gate cx c, t { CX c, t; }
+    qreg q[2];
+    h q[0];
+    cx q[0], q[1];
+    """
+    # common practice: the Bell state (|00> + |11>)/sqrt(2), up to a global phase
+    psi = qg.state(qg.from_qasm(text), np.zeros(0))
+    assert equal_up_to_phase(psi[:, None], np.array([[1], [0], [0], [1]]) / np.sqrt(2))
+
+
 def test_ghz_over_two_registers():
     c = qg.from_qasm(program("qreg r[2];\nh q[0];\ncx q[0], r[0];\ncx r[0], r[1];\n", 1))
     # common practice: the GHZ state (|000> + |111>)/sqrt(2)
@@ -485,6 +498,8 @@ HOSTILE = [
     (program("h q[0];\0", 1), "NUL character", 4, 8),
     (program("/* caf\u00e9 */ h q[0]; // \0", 1), "NUL character in a comment", 4, 23),
     (program("gate h a { x a; }", 1), "'h' is a gate of qelib1.inc", 4, 6),
+    ("OPENQASM 2.0;\ngate h a { U(pi/2, 0, pi) a; }\ninclude \"qelib1.inc\";\nqreg q[1];",
+     "the header defines 'h', which the program has already defined", 3, 9),
     (program("gate g a { x a; }\ngate g a { y a; }", 1), "'g' is already a gate", 5, 6),
     (program("qreg q[2];", 1), "'q' is already a quantum register", 4, 6),
     (program("cx q[0];", 2), "acts on 2 qubit(s); got 1", 4, 1),

@@ -323,6 +323,12 @@ class _Reader:
         if s.path != self.header_name:
             _fail(f"include accepts only the standard header {self.header_name!r} of OpenQASM "
                   f"{self.version}, which is built in; no file is ever opened (got {s.path!r})", s)
+        # a program may define its own h, cx, ... without the header, but not both
+        clash = sorted(n for n, g in self.table.items() if isinstance(g, _Defined) and n in self.header)
+        clash += sorted(n for n in list(self.qregs) + list(self.cregs) + list(self.inputs)
+                        if n in self.header)
+        if clash:
+            _fail(f"the header defines {clash[0]!r}, which the program has already defined", s)
         self.included = True
 
     def register(self, s):

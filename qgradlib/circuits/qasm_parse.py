@@ -26,7 +26,9 @@ qgradlib.circuits.qasm_parse.QasmError: line 2, column 1: reset is not supported
 """
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
+from typing import NamedTuple
 
 __all__ = ["QasmError", "parse", "tokens", "MAX_TEXT", "MAX_EXPRESSION_DEPTH", "MAX_NUMBER"]
 
@@ -68,6 +70,13 @@ class QasmError(ValueError):
 
     The message starts with the position: ``line 3, column 9: ...``.
 
+    Attributes
+    ----------
+    line, col : int
+        Where the program fails, both counted from 1.
+    reason : str
+        The message without the position.
+
     Examples
     --------
     >>> import qgradlib as qg
@@ -86,21 +95,42 @@ class QasmError(ValueError):
 
 
 # -- tokens ----------------------------------------------------------------------------------
-@dataclass(frozen=True)
-class Token:
+class Token(NamedTuple):
     kind: str      # "id", "int", "real", "string", "op" or "eof"
     text: str
     line: int
     col: int
 
 
-_TWO = ("->", "**", "==", "!=", "<=", ">=", "&&", "||", "<<", ">>", "++", "+=", "-=")
-_ONE = ";,()[]{}+-*/^=@<>!&|%~:$#?."
+# one alternative a token kind; a compiled scanner keeps a megabyte of text to a second or so
+_SCAN = re.compile(r"""
+   (?P<space>[ \t\r\f\v\n]+)
+  |(?P<line_comment>//[^\n]*)
+  |(?P<block_comment>/\*.*?\*/)
+  |(?P<open_comment>/\*)
+  |(?P<string>"[^"\n]*")
+  |(?P<open_string>")
+  |(?P<number>(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?)
+  |(?P<id>[A-Za-z_][A-Za-z0-9_]*)
+  |(?P<op>->|\*\*|==|!=|<=|>=|&&|\|\||<<|>>|\+\+|\+=|-=|[;,()\[\]{}+\-*/^=@<>!&|%~:$\#?.])
+""", re.X | re.S)
+
+
+def _bad_character(ch):
+    if ch == "\0":
+        return "NUL character in the program text"
+    if ord(ch) > 127:
+        return (f"non-ASCII character U+{ord(ch):04X}: OpenQASM is read as ASCII here (write pi "
+                "for the constant)")
+    return f"unexpected character {ch!r} (code {ord(ch)})"
 
 
 def tokens(text: str) -> list:
     """The tokens of ``text`` (ending with an ``eof`` token); `QasmError` on a bad character,
     an unterminated string or comment, or an overlong number.
+
+    Comments may hold any text except NUL (an author's name with accents, say); everywhere
+    else the program is ASCII.
 
     Examples
     --------
@@ -117,101 +147,44 @@ def tokens(text: str) -> list:
     i, n, line, start = 0, len(text), 1, 0     # start: index of the first character of the line
 
     def fail(msg, at):
-        raise QasmError(msg, line, at - start + 1)
+        before = text.count("\n", i, at)        # ``at`` may lie on a later line than ``i``
+        first = text.rfind("\n", 0, at) + 1 if before else start
+        raise QasmError(msg, line + before, at - first + 1)
 
-    while i < n:
-        ch = text[i]
-        if ch == "\n":
-            i += 1
-            line, start = line + 1, i
-            continue
-        if ch in " \t\r\f\v":
-            i += 1
-            continue
-        # comments may hold any text (names with accents, say) except NUL
-        if text.startswith("//", i):
-            end = text.find("\n", i)
-            end = n if end < 0 else end
-            if "\0" in text[i:end]:
-                fail("NUL character in a comment", text.index("\0", i))
-            i = end
-            continue
-        if text.startswith("/*", i):
-            end = text.find("*/", i + 2)
-            if end < 0:
-                fail("unterminated comment: /* without */", i)
-            if "\0" in text[i:end]:
-                j = text.index("\0", i)
-                line += text.count("\n", i, j)
-                start = text.rfind("\n", 0, j) + 1
-                fail("NUL character in a comment", j)
-            line += text.count("\n", i, end)
-            if "\n" in text[i:end]:
-                start = text.rfind("\n", i, end) + 1
-            i = end + 2
-            continue
-        if ord(ch) > 127:
-            fail(f"non-ASCII character U+{ord(ch):04X}: OpenQASM is read as ASCII here "
-                 "(write pi for the constant)", i)
-        if ch == "\0":
-            fail("NUL character in the program text", i)
-        col = i - start + 1
-        if ch == '"':
-            end = i + 1
-            while end < n and text[end] not in '"\n':
-                end += 1
-            if end >= n or text[end] != '"':
-                fail('unterminated string: a " without its closing " on the same line', i)
-            body = text[i + 1:end]
-            for j, c in enumerate(body):
-                if ord(c) > 127 or c == "\0":
-                    fail("non-ASCII or NUL character in a string", i + 1 + j)
-            out.append(Token("string", body, line, col))
-            i = end + 1
-            continue
-        if ch.isdigit() or (ch == "." and i + 1 < n and text[i + 1].isdigit()):
-            j = i
-            while j < n and text[j].isdigit():
-                j += 1
-            real = False
-            if j < n and text[j] == ".":
-                real = True
-                j += 1
-                while j < n and text[j].isdigit():
-                    j += 1
-            if j < n and text[j] in "eE":
-                k = j + 1
-                if k < n and text[k] in "+-":
-                    k += 1
-                if k < n and text[k].isdigit():
-                    real = True
-                    j = k
-                    while j < n and text[j].isdigit():
-                        j += 1
-            if j - i > MAX_NUMBER:
-                fail(f"number literal of {j - i} characters; at most {MAX_NUMBER} are read", i)
-            if j < n and (text[j].isalpha() or text[j] == "_"):
-                fail(f"bad number {text[i:j + 1]!r}: a letter directly after digits", i)
-            out.append(Token("real" if real else "int", text[i:j], line, col))
-            i = j
-            continue
-        if ch.isalpha() or ch == "_":
-            j = i + 1
-            while j < n and (text[j].isalnum() or text[j] == "_") and ord(text[j]) < 128:
-                j += 1
-            out.append(Token("id", text[i:j], line, col))
-            i = j
-            continue
-        two = text[i:i + 2]
-        if two in _TWO:
-            out.append(Token("op", two, line, col))
-            i += 2
-            continue
-        if ch in _ONE:
-            out.append(Token("op", ch, line, col))
-            i += 1
-            continue
-        fail(f"unexpected character {ch!r} (code {ord(ch)})", i)
+    for m in _SCAN.finditer(text):
+        if m.start() != i:          # the scanner skipped a character no token starts with
+            fail(_bad_character(text[i]), i)
+        kind, body, end = m.lastgroup, m.group(), m.end()
+        if kind == "space":
+            if "\n" in body:
+                line += body.count("\n")
+                start = i + body.rfind("\n") + 1
+        elif kind in ("line_comment", "block_comment"):
+            if "\0" in body:
+                fail("NUL character in a comment", i + body.index("\0"))
+            if kind == "block_comment" and "\n" in body:
+                line += body.count("\n")
+                start = i + body.rfind("\n") + 1
+        elif kind == "open_comment":
+            fail("unterminated comment: /* without */", i)
+        elif kind == "open_string":
+            fail('unterminated string: a " without its closing " on the same line', i)
+        else:
+            if kind == "string":
+                bad = [k for k, c in enumerate(body) if ord(c) > 127 or c == "\0"]
+                if bad:
+                    fail("non-ASCII or NUL character in a string", i + bad[0])
+                body = body[1:-1]
+            elif kind == "number":
+                if len(body) > MAX_NUMBER:
+                    fail(f"number literal of {len(body)} characters; at most {MAX_NUMBER} are read", i)
+                if end < n and (text[end].isalpha() or text[end] == "_"):
+                    fail(f"bad number {text[i:end + 1]!r}: a letter directly after digits", i)
+                kind = "real" if any(c in body for c in ".eE") else "int"
+            out.append(Token(kind, body, line, i - start + 1))
+        i = end
+    if i != n:
+        fail(_bad_character(text[i]), i)
     out.append(Token("eof", "", line, i - start + 1))
     return out
 
