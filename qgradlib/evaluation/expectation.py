@@ -596,7 +596,7 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
     circuit = prepared(circuit, initial)
     obs, single = _observables(observables, circuit.n_qubits)
     theta = check_theta(circuit, theta)
-    check_inputs(circuit, inputs, theta)
+    inputs = check_inputs(circuit, inputs, theta)
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
                  allocation=allocation, readout=readout, fuse=fuse, executor=executor, chunk=chunk,
@@ -630,7 +630,7 @@ def probabilities(circuit, theta, qubits=None, *, inputs=None, shots=None, seed=
     circuit = prepared(circuit, initial)
     qs = _check_qubits(qubits, circuit.n_qubits)
     theta = check_theta(circuit, theta)
-    check_inputs(circuit, inputs, theta)
+    inputs = check_inputs(circuit, inputs, theta)
     spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
                  readout=readout, fuse=fuse, executor=executor, chunk=chunk, timeout=timeout)
