@@ -164,6 +164,11 @@ def _undo_step(s, both, buf, n, phi, shared, table, P):
     return kernels.apply_dense(both, n, mh, s.qubits, buf, real=s.real), both
 
 
+# a batch of at least this many amplitudes (rows x 2**n) takes the general backward pass even
+# on few qubits: its fused runs cost less than the lean loop's gate-by-gate steps there
+LEAN_AMPLITUDES = 2 ** 14
+
+
 def adjoint_states(rows: int, observable_scratch: float = 0.0) -> float:
     """States alive at the peak of `adjoint_gradient` on ``rows`` rows: the stacked bra and
     ket rows and their spare buffer (4 a row; the forward run inside needs only 3), plus what
@@ -228,7 +233,7 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
     del psi  # the caller's copy can go now: at most four states from here on
     # (the BLAS limit starts here, not in a wrapper, whose arguments would keep psi alive)
     with engine_threads(n):
-        if fuse and small.eligible(circuit):
+        if fuse and small.eligible(circuit) and P * N < LEAN_AMPLITUDES:
             # few qubits: the lean loop of qgradlib.engine.small (same layout, same memory)
             return small.backward(circuit, both, phi, want, observable_into, apply_observable)
         prog = program(circuit, fuse, want)

@@ -19,6 +19,9 @@ from ..engine import small
 
 # at or below this many qubits, rows of small circuits run as one batch, not as branches
 BATCH_QUBITS = 8
+# ... unless rows x operations reach this: long circuits with many rows branch after all (a
+# deep narrow circuit's shifted rows skip about half of its gates)
+BRANCH_WORK = 2 ** 20
 
 __all__ = ["measure_rows_here", "peak_states", "guard_rows"]
 
@@ -86,6 +89,7 @@ def _measure_rows(phi, spec, inserts, errors, keep):
             # Small states run as one batch instead: there the trunk's bookkeeping costs more
             # than the gates it saves.
             lean = (spec.fuse and ins is None and spec.circuit.n_qubits <= BATCH_QUBITS
+                    and (hi - lo) * len(spec.circuit) < BRANCH_WORK
                     and small.eligible(spec.circuit))
             if not lean:
                 states = run_branched(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse)
