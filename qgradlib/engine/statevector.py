@@ -20,7 +20,7 @@ from __future__ import annotations
 import numpy as np
 
 from .threads import limited
-from . import kernels
+from . import kernels, small
 from .memory import guard, guard_states
 from .program import program, step_matrix
 
@@ -170,6 +170,20 @@ def _external(step, cur, n):
     return np.ascontiguousarray(fn(cur, n, tuple(step.op.qubits)), dtype=complex)
 
 
+def _run_small(circuit, phi, psi, out):
+    """`run` on few qubits (`qgradlib.engine.small`), with the same checks and guard."""
+    B, n = phi.shape[0], circuit.n_qubits
+    if phi.shape[1] != len(circuit.parametric_operations):
+        raise ValueError(f"phi must have one column per parametric operation: shape (B, "
+                         f"{len(circuit.parametric_operations)}); got {phi.shape}")
+    if out is not None and (out.shape != (B, 2 ** n) or out.dtype != complex):
+        raise ValueError(f"out must be a complex array of shape {(B, 2 ** n)}; got {out.shape} {out.dtype}")
+    if psi is not None and np.shape(psi) != (B, 2 ** n):
+        raise ValueError(f"psi must have shape {(B, 2 ** n)}; got {np.shape(psi)}")
+    guard_states(n, B * (run_states() - (out is not None)), f"a run of {B} row(s)")
+    return small.run(circuit, phi, psi, out)
+
+
 def run_states() -> int:
     """States per row that `run` keeps alive at its peak: its two alternating buffers (the
     result is one of them; initial states ``psi``, when given, are the caller's on top).
@@ -213,6 +227,8 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
     B = phi.shape[0]
     n = circuit.n_qubits
     fuse = True if fuse is None else bool(fuse)
+    if fuse and small.eligible(circuit, inserts):
+        return _run_small(circuit, phi, psi, out)
     solo = set(keep)
     if inserts is not None:
         for row in inserts:
