@@ -12,7 +12,6 @@ Examples
 """
 from . import check, curvature, landscape, shots
 from .circuits import Channel, Circuit, Gate, Observable, Operation, channels, commutator, gates
-from .circuits.qasm import QasmError, from_qasm, to_qasm
 from .evaluation import (ChunkError, Ledger, NestedPlanWarning, counts, density_matrix, distribute,
                          expect, kernel_matrix, probabilities, sample, state, variance)
 from .rules import ShiftRule
@@ -31,6 +30,9 @@ __all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", 
 
 _LAZY = {"plot": ".plot", "models": ".train.models", "optimize": ".train.optimize",
          "workflows": ".train.workflows"}
+# names whose module loads on first use: the OpenQASM reader and writer (a parser of its own)
+_LAZY_NAMES = {"to_qasm": ".circuits.qasm", "from_qasm": ".circuits.qasm",
+               "QasmError": ".circuits.qasm"}
 
 
 def __getattr__(name):
@@ -42,4 +44,10 @@ def __getattr__(name):
         module = importlib.import_module(_LAZY[name], __name__)
         globals()[name] = module
         return module
+    if name in _LAZY_NAMES:
+        import importlib
+
+        value = getattr(importlib.import_module(_LAZY_NAMES[name], __name__), name)
+        globals()[name] = value
+        return value
     raise AttributeError(f"module {__name__!r} has no attribute {name!r}")

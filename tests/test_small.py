@@ -169,3 +169,22 @@ def test_repeated_and_periodic_rows_run_once_in_order():
         vals = qg.evaluation.evaluate(phi, spec)
     assert book.circuits == 3
     np.testing.assert_allclose(vals[:, 0], np.cos(phi[:, 0]), atol=1e-12)   # <Z> = cos(a)
+
+
+@given(circuits(max_n=5), st.integers(0, 2 ** 31))
+def test_rows_of_a_shift_plan_equal_the_dense_reference(c, seed):
+    # the points of a shift plan differ from the first row in one angle each: the run applies
+    # one matrix to all rows and redoes the few that differ (on 5 qubits a plan's batch
+    # already takes the widened tail products)
+    phi = _rows(c, seed, 1, False)
+    cols = tuple(range(phi.shape[1]))
+    points = np.vstack([phi, np.asarray(first_order_points(c, phi, None, cols)[0])])
+    got = small.run(c, points)
+    # reference: dense simulator of tests/reference
+    want = np.array([dense_state(circuit_ops(c, row), c.n_qubits) for row in points])
+    assert np.max(np.abs(got - want)) <= 1e-12
+    H = qg.Observable(_words(c.n_qubits, np.random.default_rng(seed), 2))
+    into = lambda psi, out, scratch: apply_observables(psi, c.n_qubits, [H], None, out, scratch)  # noqa: E731
+    fast = adjoint.adjoint_gradient(c, points, observable_into=into)
+    general = adjoint.adjoint_gradient(c, points, observable_into=into, fuse=False)
+    assert np.max(np.abs(fast - general), initial=0.0) <= 1e-12

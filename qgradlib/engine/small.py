@@ -33,7 +33,7 @@ SMALL_QUBITS = 12
 DENSE_QUBITS = 6
 # single-qubit gates whose stride is below this act on a widened block over the last qubits
 _TAIL = 8
-# and only on states at least this large (below, the strided product is cheaper)
+# and only on batches of at least this many amplitudes (below, the strided product is cheaper)
 _TAIL_MIN = 256
 
 _CONST_DIAG, _CONST_MONO, _CONST_DENSE, _FIXED, _ONE, _DIAG, _OTHER = range(7)
@@ -152,31 +152,85 @@ def _gate_step(g, qubits, n, gi, pos, col):
     if len(qubits) == 1:
         q = qubits[0]
         L, R = 2 ** q, 2 ** (n - q - 1)
-        wide = R < _TAIL and 2 ** n >= _TAIL_MIN
-        return (_ONE, gi, pos, col, L, R, wide, np.asarray(g.generator, dtype=complex))
+        return (_ONE, gi, pos, col, L, R, R < _TAIL, np.asarray(g.generator, dtype=complex))
     return (_OTHER, gi, pos, col, qubits, g)
 
 
 # -- a run ------------------------------------------------------------------------------------
+class _Few(tuple):
+    """A gate value shared by all rows but a few: ``(base, rows, values of those rows)``.
+
+    The points of a shift plan differ from the unshifted point in one angle each, so a gate
+    acts on most rows with one matrix: that product runs once for all rows, and the few
+    rows whose angle differs are redone with their own.
+    """
+
+
 def _table(comp, phi):
-    """Per group: matrices (or diagonals) (k, d, d) for shared angles, or (k, P, d, d)."""
+    """Per group: matrices (or diagonals) (k, d, d) for shared angles, (k, P, d, d) where
+    many rows differ, or the base values (k, d, d) and per column its few differing rows."""
     P = phi.shape[0]
     table = []
     for g, cols, diag in comp.groups:
         a = phi[:, cols]
-        shared = P == 1 or bool(np.all(a == a[:1]))
-        flat = a[0] if shared else a.T.reshape(-1)
-        vals = g.diagonal_values(flat) if diag else g._matrices(flat)
-        if not shared:
-            vals = vals.reshape((cols.size, P) + vals.shape[1:])
-        table.append((vals, shared))
+        values = g.diagonal_values if diag else g._matrices
+        base = values(a[0])
+        if P == 1:
+            table.append((base, None))
+            continue
+        differ = a != a[:1]
+        count = int(np.count_nonzero(differ))
+        if count == 0:
+            table.append((base, None))
+        elif count * 4 <= differ.size:
+            # few rows differ: their values in one call, then column by column
+            where = differ.T
+            vals = values(a.T[where])
+            per = np.cumsum([0] + where.sum(axis=1).tolist())
+            rows = [np.flatnonzero(where[j]) for j in range(cols.size)]
+            table.append((base, [(rows[j], vals[per[j]:per[j + 1]]) for j in range(cols.size)]))
+        else:
+            vals = values(a.T.reshape(-1))
+            table.append((vals.reshape((cols.size, P) + vals.shape[1:]), "rows"))
     return table
+
+
+def _value(table, gi, pos):
+    vals, mode = table[gi]
+    if mode is None or mode == "rows":
+        return vals[pos]
+    rows, few = mode[pos]
+    return vals[pos] if rows.size == 0 else _Few((vals[pos], rows, few))
+
+
+def _apply(code, s, cur, other, m, n):
+    """Apply a gate step's value ``m`` (an array or `_Few`); returns (current, spare)."""
+    if isinstance(m, _Few):
+        base, rows, few = m
+        sub = cur[rows]
+        if code == _DIAG:
+            _diag(cur, base, s[4], s[5], s[6])
+            cur[rows] = _diag(sub, few, s[4], s[5], s[6])
+            return cur, other
+        _apply(code, s, cur, other, base, n)
+        res = np.empty_like(sub)
+        _apply(code, s, sub, res, few, n)
+        other[rows] = res
+        return other, cur
+    if code == _DIAG:
+        _diag(cur, m, s[4], s[5], s[6])
+        return cur, other
+    if code == _ONE:
+        _one(cur, other, m, s[4], s[5], s[6])
+    else:
+        kernels.apply_dense(cur, n, m, s[4], other)
+    return other, cur
 
 
 def _one(psi, out, m, L, R, wide):
     """``out = m psi`` on one qubit; m (2, 2) shared or (B, 2, 2) per row."""
     B = psi.shape[0]
-    if wide:
+    if wide and psi.size >= _TAIL_MIN:
         eye = np.eye(R)
         if m.ndim == 2:
             blk = (m[:, None, :, None] * eye[None, :, None, :]).reshape(2 * R, 2 * R)
@@ -202,11 +256,6 @@ def _diag(psi, d, shape, dshape, perm):
     return psi
 
 
-def _value(table, gi, pos):
-    vals, shared = table[gi]
-    return vals[pos]
-
-
 def _forward(comp, cur, other, table, n):
     """Apply every step; returns (final buffer, spare)."""
     for s in comp.steps:
@@ -224,19 +273,18 @@ def _forward(comp, cur, other, table, n):
         elif code == _FIXED:
             kernels.apply_dense(cur, n, s[1], s[2], other)
             cur, other = other, cur
-        elif code == _DIAG:
-            _diag(cur, _value(table, s[1], s[2]), s[4], s[5], s[6])
-        elif code == _ONE:
-            _one(cur, other, _value(table, s[1], s[2]), s[4], s[5], s[6])
-            cur, other = other, cur
         else:
-            kernels.apply_dense(cur, n, _value(table, s[1], s[2]), s[4], other)
-            cur, other = other, cur
+            cur, other = _apply(code, s, cur, other, _value(table, s[1], s[2]), n)
     return cur, other
 
 
 def _invert(m, diag, rows):
-    """The inverse of a unitary value, tiled over stacked rows when it is per row."""
+    """The inverse of a unitary value, tiled over the stacked bra and ket rows when it is
+    per row (``rows`` = 2P)."""
+    if isinstance(m, _Few):
+        base, idx, few = m
+        return _Few((_invert(base, diag, rows), np.concatenate([idx, idx + rows // 2]),
+                     _invert(few, diag, 2 * few.shape[0])))
     inv = np.conj(m) if diag else np.conj(np.swapaxes(m, -1, -2))
     extra = 1 if diag else 2
     if inv.ndim > extra and inv.shape[0] != rows:
@@ -344,11 +392,4 @@ def _undo(s, cur, other, table, n):
         kernels.apply_dense(cur, n, s[3], s[2], other)
         return other, cur
     m = _invert(_value(table, s[1], s[2]), code == _DIAG, cur.shape[0])
-    if code == _DIAG:
-        _diag(cur, m, s[4], s[5], s[6])
-        return cur, other
-    if code == _ONE:
-        _one(cur, other, m, s[4], s[5], s[6])
-    else:
-        kernels.apply_dense(cur, n, m, s[4], other)
-    return other, cur
+    return _apply(code, s, cur, other, m, n)
