@@ -12,6 +12,7 @@ Examples
 """
 from . import check, curvature, landscape, shots
 from .circuits import Channel, Circuit, Gate, Observable, Operation, channels, commutator, gates
+from .circuits.qasm import QasmError, from_qasm, to_qasm
 from .evaluation import (ChunkError, Ledger, NestedPlanWarning, counts, density_matrix, distribute,
                          expect, kernel_matrix, probabilities, sample, state, variance)
 from .rules import ShiftRule
@@ -25,7 +26,7 @@ __all__ = ["Circuit", "Operation", "Gate", "Observable", "ShiftRule", "Ledger", 
            "GradientEstimate", "TensorEstimate", "check", "curvature", "models", "optimize",
            "workflows", "plot", "distribute", "ChunkError", "shots", "kernel_matrix", "counts",
            "variance", "commutator", "NestedPlanWarning",
-           "landscape"]
+           "landscape", "to_qasm", "from_qasm", "QasmError"]
 
 
 _LAZY = {"plot": ".plot", "models": ".train.models", "optimize": ".train.optimize",

@@ -246,6 +246,25 @@ def test_adjoint_input_gradient_against_the_reference():
     np.testing.assert_allclose(gx, [ref_grads(c, THETA, x)[1] for x in X], atol=1e-10)
 
 
+@pytest.mark.parametrize("method", ["shift", "adjoint"])
+def test_integer_and_listed_inputs_are_differentiated_like_floats(method):
+    # before: grad with respect to an integer data set returned zeros without a word, and a
+    # list of traced features was refused with "got ndarray"
+    c = qg.Circuit(1).ry(0, input=0).rx(0)
+    Z = qg.Observable({"Z": 1.0})
+    f = lambda x: qg.expect(c, Z, np.array([0.3]), inputs=x, gradient=method)  # noqa: E731
+    want = -np.sin(1.0) * np.cos(0.3)      # common practice: <Z> = cos(x) cos(0.3)
+    assert np.allclose(grad(f)(np.array([1])), [want], atol=1e-12)
+    assert np.allclose(grad(lambda v: f([v[0]]))(np.array([1.0])), [want], atol=1e-12)
+    assert np.allclose(grad(lambda v: anp.sum(f(v)))(np.array([[1], [2]])),
+                       [[want], [-np.sin(2.0) * np.cos(0.3)]], atol=1e-12)
+    p = jacobian(lambda v: qg.probabilities(c, np.array([0.3]), inputs=[v[0]]))(np.array([1.0]))
+    assert np.allclose(p[:, 0], [want / 2, -want / 2], atol=1e-12)   # p0 = (1 + <Z>) / 2
+    # an integer array made inside the derivative cannot carry one: refused, by name
+    with pytest.raises(TypeError, match="inputs is an integer array made inside"):
+        grad(lambda v: f((v * 2).astype(int)))(np.array([1.0]))
+
+
 def test_per_sample_gradients_against_a_loop():
     c, X = model(), data(6)
     with qg.Ledger() as book:
@@ -341,6 +360,29 @@ def test_shot_kernel_is_an_unbiased_binomial_estimate():
     assert np.all(np.abs(draws.mean(axis=0) - exact) <= 5 * se)
     np.testing.assert_array_equal(qg.kernel_matrix(c, X, shots=50, seed=3),
                                   qg.kernel_matrix(c, X, shots=50, seed=3))
+
+
+def test_shot_kernel_reads_the_compute_uncompute_circuits():
+    # Havlicek et al., Nature 567, 209 (2019): U(y)^dagger U(x) on |0...0> ends in 0...0 with
+    # probability |<phi(y)|phi(x)>|^2; here against the dense reference's feature states
+    from qgradlib.circuits.transform import overlap_circuit
+    c, X, Y = feature_map(), data(4, seed=6), data(3, seed=8)
+    k = overlap_circuit(c)
+    assert (k.n_qubits, k.n_inputs, len(k)) == (3, 4, 2 * len(c))
+    pairs = np.array([np.concatenate([x, y]) for x in X for y in Y])
+    p0 = qg.probabilities(k, np.zeros(0), inputs=pairs)[:, 0]
+    want = [abs(np.vdot(ref_state(c, np.zeros(0), y), ref_state(c, np.zeros(0), x))) ** 2
+            for x in X for y in Y]
+    np.testing.assert_allclose(p0, want, atol=1e-12)
+    # the shot kernel is Binomial(shots, p0) / shots of those circuits, drawn in pair order
+    # from the seed's generator (numpy's binomial, a reference library routine)
+    got = qg.kernel_matrix(c, X, Y, shots=300, seed=7)
+    np.testing.assert_array_equal(got.ravel(), np.random.default_rng(7).binomial(300, p0) / 300)
+    i, j = np.triu_indices(4, k=1)
+    p_sym = qg.probabilities(k, np.zeros(0), inputs=np.hstack([X[i], X[j]]))[:, 0]
+    sym = qg.kernel_matrix(c, X, shots=300, seed=7)
+    np.testing.assert_array_equal(sym[i, j], np.random.default_rng(7).binomial(300, p_sym) / 300)
+    np.testing.assert_array_equal(sym, sym.T)
 
 
 def test_trainable_feature_circuit_and_bad_kernel_arguments():

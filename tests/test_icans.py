@@ -65,7 +65,10 @@ def test_a_run_asks_the_formulas_shots_and_the_ledger_counts_them(problem, monke
     # every shot is in the ledger: the gradients' plus the fresh final estimate of the cost
     final = r.shots - sum(n for *_, n in calls)
     assert r.shots == book.shots and r.history["shots"][-1] == sum(n for *_, n in calls)
-    assert final == 5 * qg.shots.n_settings(H)       # common practice: one circuit, s_min per setting
+    # common practice: one circuit per setting, with the most shots the last gradient gave a
+    # component (s_min, often 2, would leave a nearly worthless estimate)
+    assert calls[-1][0].max() > 5
+    assert final == calls[-1][0].max() * qg.shots.n_settings(H)
     assert len(calls) == 13
 
 

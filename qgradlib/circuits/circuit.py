@@ -607,18 +607,10 @@ def check_inputs(circuit: Circuit, inputs, theta=None):
     if not d:
         raise ValueError("inputs= was given but this circuit reads no data feature (add gates "
                          "with input=k to read feature k)")
-    raw = getval(inputs)
-    if isinstance(raw, (list, tuple)):
-        try:
-            raw = inputs = np.asarray(raw)
-        except ValueError:
-            raise ValueError(f"inputs must have shape ({d},) or (N, {d}); got a ragged sequence") from None
-    if not isinstance(raw, (np.ndarray, np.generic)) or np.asarray(raw).dtype.kind not in "fiu":
-        raise TypeError(f"inputs must be a real array of shape ({d},) or (N, {d}); "
-                        f"got {type(raw).__name__}")
-    arr = np.asarray(raw)
+    form = f"({d},) or (N, {d})"
+    arr, listed = _real_array(inputs, "inputs", form)
     if arr.ndim == 0 or arr.ndim > 2 or arr.shape[-1] != d or (arr.ndim == 2 and arr.shape[0] == 0):
-        raise ValueError(f"inputs must have shape ({d},) or (N, {d}) with N >= 1; got {arr.shape}")
+        raise ValueError(f"inputs must have shape {form} with N >= 1; got {arr.shape}")
     if not np.all(np.isfinite(arr)):
         raise ValueError("inputs must be finite (found NaN or inf)")
     if theta is not None:
@@ -627,9 +619,7 @@ def check_inputs(circuit: Circuit, inputs, theta=None):
             raise ValueError(f"a batch of theta {t} and a data set {arr.shape} pair up row by "
                              "row, so their lengths must agree; give theta of shape "
                              f"({circuit.n_params},) to evaluate one model over the data set")
-    if inputs is raw and arr.dtype != float:
-        return arr.astype(float)
-    return inputs
+    return _traced(inputs, arr, listed, "inputs")
 
 
 def check_theta(circuit: Circuit, theta):
@@ -659,44 +649,58 @@ def check_theta(circuit: Circuit, theta):
         ...
     ValueError: theta must have shape (2,)...
     """
-    raw = getval(theta)
-    listed = isinstance(raw, (list, tuple))
-    if listed:
-        leaves = _leaves(raw)
-        if any(isinstance(v, (bool, np.bool_)) for v in leaves):
-            raise TypeError("theta must hold real numbers, not booleans")
-        if isinstance(theta, Box) and any(not isinstance(v, (float, np.floating)) for v in leaves):
-            raise TypeError("theta is a list of ints inside an autograd derivative: autograd cannot "
-                            "differentiate with respect to Python ints; pass a float array such "
-                            "as np.array(theta, dtype=float)")
-        try:
-            raw = np.asarray(_unboxed(raw))
-        except (ValueError, TypeError):  # rows of different lengths, or non-numbers
-            raise ValueError(f"theta must have shape ({circuit.n_params},) or (B, {circuit.n_params}); "
-                             "got a ragged or non-numeric sequence") from None
-    if not isinstance(raw, (np.ndarray, Real, np.generic)) or isinstance(raw, (bool, np.bool_)):
-        raise TypeError(f"theta must be a real array of shape ({circuit.n_params},) or "
-                        f"(B, {circuit.n_params}); got {type(raw).__name__}")
-    arr = np.asarray(raw)
-    if arr.dtype.kind not in "fiu" or arr.dtype == bool:
-        raise TypeError(f"theta must be a real numeric array; got dtype {arr.dtype}")
+    form = f"({circuit.n_params},) or (B, {circuit.n_params})"
+    arr, listed = _real_array(theta, "theta", form)
     if arr.ndim == 0 or arr.ndim > 2 or arr.shape[-1] != circuit.n_params:
         raise ValueError(f"theta must have shape ({circuit.n_params},) or (B, {circuit.n_params}); "
                          f"got {arr.shape}")
     if not np.all(np.isfinite(arr)):
         raise ValueError("theta must be finite (found NaN or inf)")
-    if not isinstance(theta, Box) and not (listed and _holds_box(theta)):
+    return _traced(theta, arr, listed, "theta")
+
+
+def _real_array(value, name, form):
+    """``value`` (an array, a number, or nested lists and tuples, boxed by autograd or not) as
+    a plain numeric array, and whether it came as a sequence; refuses booleans, non-numbers,
+    ragged sequences and lists of ints inside a derivative, naming ``name`` and ``form``."""
+    raw = getval(value)
+    listed = isinstance(raw, (list, tuple))
+    if listed:
+        leaves = _leaves(raw)
+        if any(isinstance(v, (bool, np.bool_)) for v in leaves):
+            raise TypeError(f"{name} must hold real numbers, not booleans")
+        if isinstance(value, Box) and any(not isinstance(v, (float, np.floating)) for v in leaves):
+            raise TypeError(f"{name} is a list of ints inside an autograd derivative: autograd "
+                            "cannot differentiate with respect to Python ints; pass a float array "
+                            f"such as np.array({name}, dtype=float)")
+        try:
+            raw = np.asarray(_unboxed(raw))
+        except (ValueError, TypeError):  # rows of different lengths, or non-numbers
+            raise ValueError(f"{name} must have shape {form}; got a ragged or non-numeric "
+                             "sequence") from None
+    if not isinstance(raw, (np.ndarray, Real, np.generic)) or isinstance(raw, (bool, np.bool_)):
+        raise TypeError(f"{name} must be a real array of shape {form}; got {type(raw).__name__}")
+    arr = np.asarray(raw)
+    if arr.dtype.kind not in "fiu" or arr.dtype == bool:
+        raise TypeError(f"{name} must be a real numeric array; got dtype {arr.dtype}")
+    return arr, listed
+
+
+def _traced(value, arr, listed, name):
+    """The checked ``value`` as float64, kept boxed inside an autograd derivative so that the
+    derivative reaches the caller's argument (see `check_theta` for the integer cases)."""
+    if not isinstance(value, Box) and not (listed and _holds_box(value)):
         return np.asarray(arr, dtype=float)
     if listed:
-        return anp.array(theta)
+        return anp.array(value)
     if arr.dtype.kind in "iu":
-        if not _is_argument(theta):
-            raise TypeError("theta is an integer array made inside an autograd derivative: autograd "
-                            "carries derivatives with respect to integer arrays as integers and "
-                            "truncates them; differentiate with respect to a float array "
-                            "(np.asarray(theta, dtype=float))")
-        return theta * 1.0
-    return theta
+        if not _is_argument(value):
+            raise TypeError(f"{name} is an integer array made inside an autograd derivative: "
+                            "autograd carries derivatives with respect to integer arrays as "
+                            "integers and truncates them; differentiate with respect to a float "
+                            f"array (np.asarray({name}, dtype=float))")
+        return value * 1.0
+    return value
 
 
 def _leaves(seq):

@@ -26,7 +26,7 @@ import numpy as np
 
 from .gates import STANDARD, Gate
 
-__all__ = ["inverse", "compose", "inverse_gate"]
+__all__ = ["inverse", "compose", "inverse_gate", "overlap_circuit"]
 
 DAGGER = "†"
 
@@ -149,3 +149,35 @@ def compose(circuit, other, qubits=None):
     out._n_inputs = max(circuit.n_inputs, other.n_inputs)
     out._cache = None
     return out
+
+
+def overlap_circuit(circuit):
+    """The compute-uncompute circuit ``U(y)^dagger U(x)`` of a feature circuit ``U``.
+
+    It reads ``2 k`` inputs for a circuit of ``k``: the point ``x`` as inputs ``0 .. k-1``
+    and ``y`` as ``k .. 2k-1``; trainable parameters are shared by both halves (one feature
+    map). Started from ``|0...0>`` it ends in the all-zero outcome with probability
+    ``|<phi(y)|phi(x)>|**2``, the fidelity kernel: what a device runs to estimate it.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.circuits.transform import overlap_circuit
+    >>> k = overlap_circuit(qg.Circuit(1).ry(0, input=0))
+    >>> k.n_inputs, [op.input for op in k.operations]
+    (2, [0, 1])
+    >>> p = qg.probabilities(k, np.zeros(0), inputs=np.array([0.0, np.pi / 2]))
+    >>> round(float(p[0]), 12)                          # cos(pi / 4)**2
+    0.5
+    """
+    k = circuit.n_inputs
+    back = inverse(circuit)
+    out = circuit.copy()
+    for op in back.operations:
+        out._ops.append(op if op.input is None else replace(op, input=op.input + k))
+    out._n_params = circuit.n_params
+    out._n_inputs = 2 * k
+    out._cache = None
+    return out
+

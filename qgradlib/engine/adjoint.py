@@ -18,7 +18,7 @@ from functools import lru_cache
 import numpy as np
 
 from .threads import engine_threads
-from . import kernels
+from . import kernels, small
 from .memory import guard_states
 from .program import program, step_matrix
 from .statevector import _table, run
@@ -222,9 +222,6 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
     N = 2 ** n
     want = frozenset(range(G)) if columns is None else frozenset(int(c) for c in columns)
     fuse = True if fuse is None else bool(fuse)
-    prog = program(circuit, fuse, want)
-    if prog.const_columns and not np.all(phi[:, list(prog.const_columns)] == prog.const_angles):
-        prog = program(circuit, fuse, want, bake_fixed_angles=False)
     # states handed in are released once copied (the caller passes its last reference)
     handed = P if psi is not None else 0
     dtype = np.dtype(dtype)
@@ -238,6 +235,13 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
     del psi  # the caller's copy can go now: at most four states from here on
     # (the BLAS limit starts here, not in a wrapper, whose arguments would keep psi alive)
     with engine_threads(n):
+        if fuse and dtype == np.complex128 and small.eligible(circuit):
+            # few qubits: the lean loop of qgradlib.engine.small (same layout, same memory;
+            # double precision only)
+            return small.backward(circuit, both, phi, want, observable_into, apply_observable)
+        prog = program(circuit, fuse, want)
+        if prog.const_columns and not np.all(phi[:, list(prog.const_columns)] == prog.const_angles):
+            prog = program(circuit, fuse, want, bake_fixed_angles=False)
         return _backward(prog, both, phi, n, P, G, want, observable_into, apply_observable)
 
 

@@ -13,7 +13,7 @@ summed in float64.
 """
 from __future__ import annotations
 
-from collections import defaultdict
+from collections import OrderedDict, defaultdict
 from functools import lru_cache
 
 import numpy as np
@@ -148,6 +148,70 @@ def pauli_expectation(psi: np.ndarray, n: int, word: str) -> np.ndarray:
     return pauli_terms_expectation(psi, n, {word: 1.0})
 
 
+# few qubits: observables are laid out once as phase vectors per flip pattern (`_readout`)
+READOUT_QUBITS = 12
+_READOUT_ENTRIES = 2 ** 21      # at most this many phase entries a set of observables
+_READOUTS: "OrderedDict" = OrderedDict()   # ids of the observables, n -> (observables, layout)
+
+
+def _readout(n, observables):
+    """``[(flip index (N,) or None, phases (K, N), phases at the flipped index (K, N))]``:
+    every word with X/Y letters on qubits ``x`` read as ``<psi|P|psi> = sum_i conj(psi[i ^
+    x]) phase(i) psi[i]`` with ``phase(i) = i**nY (-1)**popcount(i & z)``, words of one flip
+    pattern summed into one vector. None on many qubits, with a dense part, or when the
+    vectors would be large. Memoised (observables are immutable values)."""
+    if n > READOUT_QUBITS:
+        return None
+    key = (n,) + tuple(id(o) for o in observables)
+    hit = _READOUTS.get(key)
+    if hit is not None and all(a is b for a, b in zip(hit[0], observables)):
+        _READOUTS.move_to_end(key)
+        return hit[1]
+    if any(o.dense is not None for o in observables):
+        return None
+    N = 2 ** n
+    K = len(observables)
+    index = np.arange(N)
+    groups = {}
+    for k, obs in enumerate(observables):
+        for word, c in obs.terms.items():
+            xq, zq, ny = masks(word)
+            if xq not in groups:
+                if (len(groups) + 1) * K * N > _READOUT_ENTRIES:
+                    return None
+                groups[xq] = np.zeros((K, N), dtype=complex)
+            zbits = sum(1 << (n - 1 - q) for q in zq)
+            sign = 1.0 - 2.0 * (np.bitwise_count(index & zbits) & 1)
+            groups[xq][k] += (c * (1j ** ny)) * sign
+    layout = []
+    for xq, W in groups.items():
+        if not xq:
+            layout.append((None, np.ascontiguousarray(W.real.T), None))
+            continue
+        flip = index ^ sum(1 << (n - 1 - q) for q in xq)
+        layout.append((flip, np.ascontiguousarray(W.T), np.ascontiguousarray(W[:, flip])))
+    _READOUTS[key] = (tuple(observables), layout)
+    while len(_READOUTS) > 64:
+        _READOUTS.popitem(last=False)
+    return layout
+
+
+def _read_values(psi, layout, K):
+    """(B, K) expectation values from a `_readout` layout: one product a flip pattern."""
+    B = psi.shape[0]
+    out = np.zeros((B, K))
+    for flip, W, _ in layout:
+        if flip is None:
+            f = psi.reshape(B, -1, 1).view(np.float64)
+            out += np.einsum("bni,bni->bn", f, f) @ W          # |psi|**2, one array
+            continue
+        prod = np.take(psi, flip, axis=1)
+        np.conjugate(prod, out=prod)
+        prod *= psi
+        out += (prod @ W).real
+    return out
+
+
 def expectations(psi: np.ndarray, n: int, observables) -> np.ndarray:
     """Expectation of each observable for every row; returns (B, K) float.
 
@@ -160,6 +224,9 @@ def expectations(psi: np.ndarray, n: int, observables) -> np.ndarray:
     >>> expectations(psi, 2, [qg.Observable({"ZI": 1.0}), qg.Observable({"XX": 1.0})]).tolist()
     [[1.0, 0.0]]
     """
+    layout = _readout(n, observables)
+    if layout is not None:
+        return _read_values(psi, layout, len(observables))
     out = np.empty((psi.shape[0], len(observables)))
     for k, obs in enumerate(observables):
         v = pauli_terms_expectation(psi, n, obs.terms) if obs.terms else 0.0
@@ -219,6 +286,8 @@ def observable_scratch(n: int, observables) -> float:
     """States a row that `apply_observables` allocates beyond ``out`` and ``scratch``: the Z
     windows' sign vectors and a dense part's product (1). The memory guard's estimate."""
     dense = any(o.dense is not None for o in observables)
+    if len(observables) > 1 and _readout(n, observables) is not None:
+        return 1.0      # the weighted phases of one flip pattern, a state a row
     return _z_window_scratch(n, observables) + (1.0 if dense else 0.0)
 
 
@@ -327,6 +396,9 @@ def apply_observables(psi, n, observables, weights=None, out=None, scratch=None)
     B = psi.shape[0]
     K = len(observables)
     w = np.ones((B, K)) if weights is None else np.asarray(weights, dtype=float).reshape(B, K)
+    layout = _readout(n, observables)
+    if layout is not None:
+        return _apply_layout(psi, layout, w, out, scratch)
     coef = {}
     for k, obs in enumerate(observables):
         for word, c in obs.terms.items():
@@ -379,6 +451,37 @@ def apply_observables(psi, n, observables, weights=None, out=None, scratch=None)
     for k, obs in enumerate(observables):
         if obs.dense is not None:
             out += w[:, k, None] * (psi @ obs.dense.T)
+    return out
+
+
+def _apply_layout(psi, layout, w, out, scratch):
+    """``out = sum_k w[:, k] O_k psi`` from a `_readout` layout:
+    ``(P psi)[j] = phase(j ^ x) psi[j ^ x]``, the phases at the flipped index laid out."""
+    if out is None:
+        out = np.empty_like(psi)
+    if scratch is None:
+        scratch = np.empty_like(psi)
+    first = True
+    for flip, W, Wf in layout:
+        target = out if first else scratch
+        if flip is None:
+            if w.shape[1] == 1:
+                np.multiply(psi, W[:, 0], out=target)
+                target *= w
+            else:
+                np.multiply(psi, w @ W.T, out=target)
+        else:
+            np.take(psi, flip, axis=1, out=target, mode="clip")
+            if w.shape[1] == 1:
+                target *= Wf[0]
+                target *= w
+            else:
+                target *= w @ Wf
+        if not first:
+            out += target
+        first = False
+    if first:
+        out[...] = 0
     return out
 
 

@@ -25,7 +25,7 @@ import math
 import os
 import time
 
-__all__ = ["StateTooLarge", "AMPLITUDE_BYTES", "OVERHEAD", "limits", "available_bytes",
+__all__ = ["StateTooLarge", "AMPLITUDE_BYTES", "OVERHEAD", "limits", "available_bytes", "recent_available",
            "state_bytes", "guard", "guard_states"]
 
 AMPLITUDE_BYTES = 16       # complex128
@@ -170,6 +170,23 @@ def available_bytes() -> int:
     return avail
 
 
+def recent_available(nbytes: int = 0) -> int:
+    """`available_bytes`, or its reading of less than a second ago when ``nbytes`` is below
+    1/64 of that reading (the rule `guard` follows): small requests do not read the limits
+    again.
+
+    Examples
+    --------
+    >>> from qgradlib.engine.memory import recent_available
+    >>> recent_available(16 * 2 ** 10) > 16 * 2 ** 10
+    True
+    """
+    t, avail, pid = _recent
+    if pid == os.getpid() and time.monotonic() - t < _FRESH and nbytes * _MARGIN <= avail:
+        return avail
+    return available_bytes()
+
+
 def state_bytes(n_qubits: int, states: float = 1.0, amplitude_bytes: int = AMPLITUDE_BYTES, *,
                 density: bool = False) -> int:
     """Bytes of ``states`` states of ``n_qubits`` qubits (density matrices with ``density``),
@@ -200,9 +217,7 @@ def guard(nbytes: int, what: str) -> None:
     >>> guard(16 * 2 ** 10, "a 10-qubit state") is None    # fits: returns quietly
     True
     """
-    t, avail, pid = _recent
-    if not (pid == os.getpid() and time.monotonic() - t < _FRESH and nbytes * _MARGIN <= avail):
-        avail = available_bytes()
+    avail = recent_available(nbytes)
     if nbytes > avail:
         which = [k for k, v in limits().items() if v == avail]
         by = f" (the {which[0]} limit)" if which else ""

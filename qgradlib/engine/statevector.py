@@ -24,7 +24,7 @@ from __future__ import annotations
 import numpy as np
 
 from .threads import limited
-from . import kernels
+from . import kernels, small
 from .memory import guard, guard_states
 from .program import program, step_matrix
 
@@ -186,6 +186,20 @@ def _external(step, cur, n):
     return np.ascontiguousarray(fn(cur, n, tuple(step.op.qubits)), dtype=cur.dtype)
 
 
+def _run_small(circuit, phi, psi, out):
+    """`run` on few qubits (`qgradlib.engine.small`), with the same checks and guard."""
+    B, n = phi.shape[0], circuit.n_qubits
+    if phi.shape[1] != len(circuit.parametric_operations):
+        raise ValueError(f"phi must have one column per parametric operation: shape (B, "
+                         f"{len(circuit.parametric_operations)}); got {phi.shape}")
+    if out is not None and (out.shape != (B, 2 ** n) or out.dtype != complex):
+        raise ValueError(f"out must be a complex array of shape {(B, 2 ** n)}; got {out.shape} {out.dtype}")
+    if psi is not None and np.shape(psi) != (B, 2 ** n):
+        raise ValueError(f"psi must have shape {(B, 2 ** n)}; got {np.shape(psi)}")
+    guard_states(n, run_states(circuit, B) - B * (out is not None), f"a run of {B} row(s)")
+    return small.run(circuit, phi, psi, out)
+
+
 def run_states(circuit, rows: int = 1) -> float:
     """States that `run` keeps alive at its peak on ``rows`` rows: two alternating buffers a
     row, or, for a batch run in place (`IN_PLACE`), one a row and the pieces of the widest
@@ -254,6 +268,12 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
     B = phi.shape[0]
     n = circuit.n_qubits
     fuse = True if fuse is None else bool(fuse)
+    dtype = np.dtype(dtype)
+    if dtype not in (np.complex128, np.complex64):
+        raise ValueError(f"dtype must be complex128 or complex64; got {dtype}")
+    if fuse and dtype == np.complex128 and small.eligible(circuit, inserts):
+        # the lean small-state loop is double precision; single precision takes the kernels
+        return _run_small(circuit, phi, psi, out)
     solo = set(keep)
     if inserts is not None:
         for row in inserts:
@@ -267,9 +287,6 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
         prog = program(circuit, fuse, frozenset(solo), bake_fixed_angles=False)
     shared = np.all(phi == phi[:1], axis=0) if B > 1 else np.ones(phi.shape[1], dtype=bool)
     N = 2 ** n
-    dtype = np.dtype(dtype)
-    if dtype not in (np.complex128, np.complex64):
-        raise ValueError(f"dtype must be complex128 or complex64; got {dtype}")
     if out is not None and (out.shape != (B, N) or out.dtype != dtype):
         raise ValueError(f"out must be a {dtype.name} array of shape {(B, N)}; got {out.shape} {out.dtype}")
     # the buffers are allocated here unless the caller gives one of them

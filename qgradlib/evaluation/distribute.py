@@ -390,9 +390,12 @@ def measure_rows(phi, spec, inserts=None, *, errors=False, index=None):
     [[1.0], [-1.0]]
     """
     phi = np.asarray(phi, dtype=float)
+    R = phi.shape[0]
+    if spec.executor is None and spec.shots is None:
+        # here and exact: no stream to hand out, no chunk to check
+        return measure_rows_here(phi, spec, inserts, errors=errors)
     base = None if spec.shots is None else int(spec.rng.integers(2 ** 63))
     task_spec = replace(spec, executor=None, chunk=None, rng=None, timeout=None)
-    R = phi.shape[0]
     if spec.executor is None or R == 0:
         return measure_chunk(task_spec, phi, inserts, 0, base, errors)[2]
     size = chunk_size(spec.executor, R, spec.chunk)

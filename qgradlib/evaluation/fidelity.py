@@ -8,10 +8,10 @@ states (Havlicek et al., Nature 567, 209 (2019); Schuld and Killoran, Phys. Rev.
 - exactly, on the simulator: every feature state is prepared once, and the kernel matrix is
   the squared modulus of one complex matrix product of the stacked states;
 - with ``shots``, as a device would estimate it: the compute-uncompute circuit
-  ``U(y)^dagger U(x)`` on ``|0...0>`` ends in the all-zero outcome with probability
-  ``p = k(x, y)``, so ``shots`` readouts give ``Binomial(shots, p) / shots``. That is what is
-  drawn here, from the exact ``p`` of the overlap: the same distribution as sampling the
-  compute-uncompute circuit, without simulating its N**2 circuits of twice the depth.
+  ``U(y)^dagger U(x)`` (`qgradlib.circuits.transform.overlap_circuit`) is simulated for every
+  pair, in batches, and ``shots`` readouts of it are drawn; the kernel entry is the frequency
+  of the all-zero outcome, ``Binomial(shots, p) / shots`` with ``p`` that circuit's all-zero
+  probability. This costs one circuit of twice the depth per entry, as on a device.
 
 The ledger counts what a device would run: one compute-uncompute circuit per entry, i.e.
 ``N (N - 1) / 2`` for the symmetric Gram matrix of one data set (the diagonal is 1 and needs
@@ -37,6 +37,7 @@ import numpy as np
 from autograd.tracer import getval
 
 from . import ledger
+from ..circuits.transform import overlap_circuit
 from ..engine import memory
 from ..engine.measurement import make_rng
 from .expectation import _check_circuit, _check_shots, state
@@ -118,18 +119,35 @@ def kernel_matrix(feature_circuit, X, Y=None, shots=None, seed=None, *, theta=No
     ledger.record(circuits, 1, shots or 0, {"kernel": circuits})
     if shots is None:
         return np.clip(K, 0.0, 1.0)
-    return _sampled(np.clip(K, 0.0, 1.0), shots, make_rng(seed), symmetric=Ys is None)
+    return _sampled(c, theta, Xs, Ys, shots, make_rng(seed))
 
 
-def _sampled(K, shots, rng, symmetric):
-    """All-zero frequencies of ``shots`` readouts of each compute-uncompute circuit."""
-    if not symmetric:
-        return rng.binomial(shots, K) / shots
-    N = K.shape[0]
-    iu = np.triu_indices(N, k=1)
+# pairs of points simulated together by the shot path (bounded in bytes per batch below)
+_PAIR_BYTES = 64 * 2 ** 20
+
+
+def _sampled(c, theta, Xs, Ys, shots, rng):
+    """All-zero frequencies of ``shots`` readouts of each pair's compute-uncompute circuit."""
+    N = Xs.shape[0]
+    if Ys is None:
+        i, j = np.triu_indices(N, k=1)
+        left, right = Xs[i], Xs[j]
+    else:
+        i, j = np.divmod(np.arange(N * Ys.shape[0]), Ys.shape[0])
+        left, right = Xs[i], Ys[j]
+    k = overlap_circuit(c)
+    p0 = np.empty(left.shape[0])
+    batch = max(1, _PAIR_BYTES // (16 * 2 ** c.n_qubits))
+    for a in range(0, left.shape[0], batch):
+        rows = np.hstack([left[a:a + batch], right[a:a + batch]])
+        amp = state(k, theta, inputs=rows)[:, 0]
+        p0[a:a + batch] = amp.real ** 2 + amp.imag ** 2
+    freq = rng.binomial(shots, np.clip(p0, 0.0, 1.0)) / shots
+    if Ys is not None:
+        return freq.reshape(N, Ys.shape[0])
     out = np.eye(N)
-    out[iu] = rng.binomial(shots, K[iu]) / shots
-    out.T[iu] = out[iu]
+    out[i, j] = freq
+    out[j, i] = freq
     return out
 
 

@@ -16,6 +16,10 @@ from ..engine.measurement import (apply_readout, measure, measure_scratch, outco
                                   point_generators, probability_scratch)
 from ..engine.statevector import run, run_states
 from ..engine.threads import engine_threads
+from ..engine import small
+
+# at or below this many qubits, rows of small circuits run as one batch, not as branches
+BATCH_QUBITS = 8
 
 __all__ = ["measure_rows_here", "peak_states", "guard_rows"]
 
@@ -55,7 +59,8 @@ def _chunk(spec, total):
     available), at least one, and never more than fit in what is available."""
     per_row = memory.state_bytes(spec.circuit.n_qubits, peak_states(spec, 2) / 2,
                                  _amplitude_bytes(spec), density=spec.circuit.has_noise) - memory.OVERHEAD
-    avail = memory.available_bytes()
+    # a batch far below what was available a moment ago needs no new reading of the limits
+    avail = memory.recent_available(per_row * total + memory.OVERHEAD)
     budget = min(avail, spec.memory) if spec.memory is not None else avail // 4
     chunk = max(1, min(total, (budget - memory.OVERHEAD) // max(per_row, 1)))
     guard_rows(spec, chunk)
@@ -83,10 +88,15 @@ def _measure_rows(phi, spec, inserts, errors, keep):
             states = run_density(spec.circuit, phi[lo:hi], ins)
         else:
             # rows that share a prefix of angles (the points of a shift plan) run as branches
-            # of one trunk; a device would still run each circuit (the ledger counted them)
+            # of one trunk; a device would still run each circuit (the ledger counted them).
+            # Small states run as one batch instead: there the trunk's bookkeeping costs more
+            # than the gates it saves.
             dtype = state_dtype(spec.precision)
-            states = run_branched(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse, dtype=dtype)
-            if states is None and ins is None:
+            lean = (spec.fuse and ins is None and spec.circuit.n_qubits <= BATCH_QUBITS
+                    and small.eligible(spec.circuit))
+            if not lean:
+                states = run_branched(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse, dtype=dtype)
+            if states is None and ins is None and (spec.circuit.n_inputs or not lean):
                 # rows of many data points: a tree of shared prefixes, one per point
                 states = run_prefix_tree(spec.circuit, phi[lo:hi], fuse=spec.fuse, dtype=dtype)
             if states is None:

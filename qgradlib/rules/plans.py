@@ -133,16 +133,18 @@ def first_order_points(circuit, phi, inserts, columns, **rule_options):
 
     raw = np.asarray(getval(phi))
     P, G = raw.shape
+    fixed = _fixed_plan(circuit, columns, inserts, rule_options)
+    if fixed is not None:
+        delta, coeff, names = fixed
+        T = delta.shape[0]
+        points = anp.reshape(phi[:, None, :] + delta[None, :, :], (P * T, G))
+        return points, None, coeff, list(names) * P
     terms = []
     for j in columns:
         breaks = sorted({r for row in inserts for r, _ in row.get(j, ())}) if inserts else ()
         terms.extend(column_terms(circuit, j, raw[:, j], breaks=breaks, **rule_options))
+    delta, coeff = _layout(terms, G)
     T = len(terms)
-    delta = np.zeros((T, G))
-    coeff = np.zeros((G, T))
-    for t, term in enumerate(terms):
-        delta[t, term.column] = term.shift
-        coeff[term.column, t] = term.coefficient
     points = anp.reshape(phi[:, None, :] + delta[None, :, :], (P * T, G))
     new_inserts = None
     if any(term.split is not None for term in terms) or inserts is not None:
@@ -156,3 +158,45 @@ def first_order_points(circuit, phi, inserts, columns, **rule_options):
                 new_inserts.append(row)
     names = [circuit.parametric_operations[term.column].gate.name for term in terms] * P
     return points, new_inserts, coeff, names
+
+
+def _layout(terms, G):
+    """The displacements (T, G) and coefficients (G, T) of a list of terms."""
+    T = len(terms)
+    delta = np.zeros((T, G))
+    coeff = np.zeros((G, T))
+    for t, term in enumerate(terms):
+        delta[t, term.column] = term.shift
+        coeff[term.column, t] = term.coefficient
+    return delta, coeff
+
+
+def _fixed_plan(circuit, columns, inserts, options):
+    """``(delta, coeff, names)`` of a plan that depends on no angle, memoised on the circuit.
+
+    Generator gates' rules depend on the gate and the ``shift`` option only (not on the
+    angles, the shots or the random generator), so a gradient in a training loop lays out
+    the same plan every step. None where some column is not a generator gate, or with
+    inserted rotations.
+    """
+    if inserts is not None or options.get("least_variance") is not None:
+        return None
+    pops = circuit.parametric_operations
+    columns = tuple(int(j) for j in columns)
+    shift = options.get("shift")
+    memo = circuit.__dict__.setdefault("_memo_plans", {})
+    key = (len(pops), columns, shift)
+    hit = memo.get(key)
+    if hit is not None:
+        return hit
+    if not all(pops[j].gate.kind == "generator" for j in columns):
+        return None
+    terms = [t for j in columns for t in column_terms(circuit, j, None, shift=shift)]
+    delta, coeff = _layout(terms, len(pops))
+    for a in (delta, coeff):
+        a.setflags(write=False)
+    hit = (delta, coeff, tuple(pops[t.column].gate.name for t in terms))
+    if len(memo) > 32:          # a few column sets a circuit: keep the memo small
+        memo.clear()
+    memo[key] = hit
+    return hit

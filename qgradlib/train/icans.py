@@ -58,6 +58,9 @@ def next_shots(xi, chi, k, *, rate, lipschitz, mu, bias, min_shots):
 def run(estimate_gradient, exact_value, x, steps, trace, o):
     """The iCANS loop; ``estimate_gradient(x, shots per parameter) -> (g, standard errors)``.
 
+    Returns ``(x, value, gradient, steps, status, shots)``, ``shots`` the per-parameter shots
+    of the last gradient estimate.
+
     Stops after ``steps`` updates, or at the first point where the ledger's shots have
     reached ``budget`` (status 3; the last step may overshoot it by its own shots). The
     history's cost is ``exact_value(x)``, the simulator's exact cost: iCANS itself measures
@@ -75,15 +78,15 @@ def run(estimate_gradient, exact_value, x, steps, trace, o):
             v = exact_value(x)
             trace.record(v, float(np.linalg.norm(g)))
             trace.advance(x, v, k, float(np.linalg.norm(g)))
-            return x, v, g, k, 3
+            return x, v, g, k, 3, s
         g, se = estimate_gradient(x, s)
         gn = float(np.linalg.norm(g))
         v = exact_value(x)
         trace.record(v, gn)
         if k > 0 and trace.advance(x, v, k, gn):
-            return x, v, g, k, 2
+            return x, v, g, k, 2, s
         if k == steps:
-            return x, v, g, k, 1
+            return x, v, g, k, 1, s
         x = x - a * g
         k += 1
         per_shot = se ** 2 * s            # the estimate's variance is S_i / s_i

@@ -254,7 +254,8 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
         As in `minimize`, and ``fun_error``. Without shots ``fun`` is exact (``fun_error`` is
         0.0). With shots ``fun`` is a fresh estimate at ``x``, independent of the estimates
         the run steered by (the kept least of those is biased low), with its standard error
-        ``fun_error``; its executions and shots are in the ledger's counts. ``fun_exact`` is
+        ``fun_error``; its executions and shots are in the ledger's counts ("icans" takes it
+        with the largest shots per setting of its last gradient step). ``fun_exact`` is
         then the exact value at ``x``: **simulator only**, a device has no such number (it is
         not counted in the ledger).
 
@@ -484,7 +485,7 @@ class _Trace:
 
 def _run(problem, method, x0, steps, opts, callback, progress, rng):
     bar = progress_bar(progress, total=steps, desc=method)
-    final = {}
+    final, final_shots = {}, None
     with Ledger() as book, bar:
         trace = _Trace(book, bar, callback)
         if method == "rotosolve":
@@ -492,13 +493,15 @@ def _run(problem, method, x0, steps, opts, callback, progress, rng):
         elif method == "newton":
             x, fun, jac, nit, status = _newton(problem, x0, steps, trace, opts)
         elif method == "icans":
-            x, fun, jac, nit, status = _icans(problem, x0, steps, trace, opts)
+            x, fun, jac, nit, status, last = _icans(problem, x0, steps, trace, opts)
+            # its s_min (often 2) would make the fresh estimate nearly worthless
+            final_shots = int(np.max(last))
         else:
             evaluate, update = _first_order_method(method, problem, x0.size, opts, rng)
             x, fun, jac, nit, status = _first_order(evaluate, update, x0, steps, trace,
                                                     opts.get("tol", 0.0))
         if problem.circuit_parts is not None:
-            fun, final = _final_value(problem, x, fun)
+            fun, final = _final_value(problem, x, fun, final_shots)
     messages = {0: f"gradient norm fell to tol={opts.get('tol', 0.0):g}",
                 1: f"reached steps={steps}",
                 2: "stopped by the callback",
@@ -512,17 +515,19 @@ def _run(problem, method, x0, steps, opts, callback, progress, rng):
                           **final)
 
 
-def _final_value(problem, x, fun):
+def _final_value(problem, x, fun, shots=None):
     """``fun`` at the returned point and its error fields.
 
     Under shots the run's own estimate at ``x`` is the one it kept because it looked low
     (Newton accepts a step when the noisy cost falls), so it is biased low: a fresh
     independent estimate replaces it, with its standard error, and the exact value at ``x``
     is added for the simulator's user (computed outside the ledger: no device can run it).
+    ``shots`` overrides the run's shots per setting for that estimate.
     """
-    circuit, observable, shots, rng = problem.circuit_parts
-    if shots is None:
+    circuit, observable, run_shots, rng = problem.circuit_parts
+    if run_shots is None:
         return fun, {"fun_error": 0.0}
+    shots = run_shots if shots is None else shots
     r = estimate(circuit, observable, x, shots=shots, seed=rng, **problem.where)
     return r.value, {"fun_error": r.standard_error, "fun_exact": _exact_value(circuit, observable, x)}
 

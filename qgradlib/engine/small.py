@@ -1,0 +1,354 @@
+"""Small states: a lean run and adjoint pass where a Python call costs more than its arithmetic.
+
+On a few qubits a kernel call is microseconds of arithmetic and as much again of Python, so
+`qgradlib.engine.statevector.run` and `qgradlib.engine.adjoint.adjoint_gradient` hand circuits of
+at most `SMALL_QUBITS` qubits (fixed and generator gates only, no inserted rotations) to this
+module. A circuit is compiled once (memoised on it by its length, as programs are) into:
+
+- *constant steps*: each run of consecutive fixed gates becomes one whole-register operation,
+  a diagonal (N,), a permutation with phases, or up to `DENSE_QUBITS` qubits a dense (N, N)
+  matrix (otherwise its gates stay apart, each one kernel call);
+- *gate steps*: one a parametric gate, with its view of the state worked out in advance.
+  Their matrices (or diagonals) come from one vectorised call per gate type per run
+  (`_table`), for every row at once.
+
+The forward run alternates two buffers; the backward pass of the adjoint method walks the
+same steps in reverse on the stacked bra and ket rows (the layout and memory of
+`qgradlib.engine.adjoint`). Results agree with the general engine to rounding.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import kernels
+from .program import is_gate
+
+__all__ = ["SMALL_QUBITS", "DENSE_QUBITS", "eligible", "compiled", "run", "backward"]
+
+# at or below this many qubits the lean loop is used
+SMALL_QUBITS = 12
+# whole-register dense matrices for runs of fixed gates up to this many qubits
+DENSE_QUBITS = 6
+# single-qubit gates whose stride is below this act on a widened block over the last qubits
+_TAIL = 8
+# and only on states at least this large (below, the strided product is cheaper)
+_TAIL_MIN = 256
+
+_CONST_DIAG, _CONST_MONO, _CONST_DENSE, _FIXED, _ONE, _DIAG, _OTHER = range(7)
+
+
+@dataclass(frozen=True, eq=False)
+class Compiled:
+    """Steps of a small circuit: ``(code, *payload)`` tuples, and the gate groups of `_table`."""
+
+    n: int
+    steps: tuple
+    groups: tuple       # (gate, columns (k,) intp, diagonal?) of every parametric gate type
+    n_columns: int
+
+
+def eligible(circuit, inserts=None) -> bool:
+    """Whether the small-state loop runs ``circuit``: few qubits, gates of fixed or generator
+    kind only, no inserted rotations."""
+    if inserts is not None or circuit.n_qubits > SMALL_QUBITS:
+        return False
+    hit = circuit.__dict__.get("_memo_small_ok")
+    if hit is None or hit[0] != len(circuit):
+        ok = all(is_gate(op.gate) and op.gate.kind in ("fixed", "generator")
+                 for op in circuit.operations)
+        hit = (len(circuit), ok)
+        circuit.__dict__["_memo_small_ok"] = hit
+    return hit[1]
+
+
+def compiled(circuit) -> Compiled:
+    """The memoised `Compiled` form of an `eligible` circuit (recompiled when it grows)."""
+    hit = circuit.__dict__.get("_memo_small")
+    if hit is not None and hit[0] == len(circuit):
+        return hit[1]
+    comp = _compile(circuit)
+    circuit.__dict__["_memo_small"] = (len(circuit), comp)
+    return comp
+
+
+def _compile(circuit):
+    n = circuit.n_qubits
+    steps, run_ops, groups = [], [], {}
+    col = 0
+    for op in circuit.operations:
+        g = op.gate
+        if not g.parametric:
+            run_ops.append(op)
+            continue
+        steps.extend(_constant_steps(run_ops, n))
+        run_ops = []
+        key = id(g)
+        if key not in groups:
+            groups[key] = (g, [])
+        gi = list(groups).index(key)
+        pos = len(groups[key][1])
+        groups[key][1].append(col)
+        steps.append(_gate_step(g, tuple(op.qubits), n, gi, pos, col))
+        col += 1
+    steps.extend(_constant_steps(run_ops, n))
+    glist = tuple((g, np.array(cols, dtype=np.intp), bool(g.diagonal)) for g, cols in groups.values())
+    return Compiled(n, tuple(steps), glist, col)
+
+
+def _constant_steps(ops, n):
+    """One whole-register step for a run of fixed gates where it is cheap, else one a gate."""
+    if not ops:
+        return []
+    N = 2 ** n
+    if all(op.gate.diagonal for op in ops):
+        d = np.ones((1, N), dtype=complex)
+        for op in ops:
+            kernels.apply_diag(d, n, np.diag(op.gate.unitary), tuple(op.qubits))
+        d = d[0]
+        return [(_CONST_DIAG, d.real.copy() if not np.any(d.imag) else d)]
+    if all(kernels.monomial_structure(op.gate.unitary) is not None for op in ops):
+        # a monomial maps amplitude src[i] to i with a unit phase: run it on 1, 2, ..., N
+        # and read the source from the modulus and the phase from the argument
+        x = np.arange(1, N + 1, dtype=complex)[None]
+        x = _apply_ops(x, ops, n)[0]
+        src = np.rint(np.abs(x)).astype(np.intp) - 1
+        ph = x / np.abs(x)
+        inv = np.empty(N, dtype=np.intp)
+        inv[src] = np.arange(N)
+        ones = bool(np.all(ph == 1))
+        return [(_CONST_MONO, src, None if ones else ph, inv, None if ones else np.conj(ph)[inv])]
+    if n <= DENSE_QUBITS:
+        U = _apply_ops(np.eye(N, dtype=complex), ops, n).T      # row i of the run is U e_i
+        return [(_CONST_DENSE, np.ascontiguousarray(U.T), np.ascontiguousarray(U.conj()))]
+    return [(_FIXED, np.asarray(op.gate.unitary, dtype=complex), tuple(op.qubits),
+             np.ascontiguousarray(np.asarray(op.gate.unitary, dtype=complex).conj().T)) for op in ops]
+
+
+def _apply_ops(psi, ops, n):
+    for op in ops:
+        psi = kernels.apply_dense(np.ascontiguousarray(psi), n, np.asarray(op.gate.unitary, dtype=complex),
+                                  tuple(op.qubits), np.empty_like(psi))
+    return psi
+
+
+def _gate_step(g, qubits, n, gi, pos, col):
+    if g.diagonal:
+        order = sorted(range(len(qubits)), key=lambda i: qubits[i])
+        sq = tuple(qubits[i] for i in order)
+        shape, axes = kernels._view_shape(1, n, sq)
+        dshape = [1] * len(shape)
+        for ax in axes:
+            dshape[ax] = 2
+        # the diagonal's entries re-ordered to ascending qubits (identity when they are)
+        k = len(qubits)
+        code = np.arange(2 ** k, dtype=float)
+        perm = np.rint(kernels.sort_qubits(code, qubits, diag=True)[0]).astype(np.intp)
+        perm = None if np.array_equal(perm, np.arange(2 ** k)) else perm
+        G = np.diag(np.asarray(g.generator)).real
+        Gs = G if perm is None else G[perm]
+        return (_DIAG, gi, pos, col, tuple(shape[1:]), tuple(dshape[1:]), perm, Gs)
+    if len(qubits) == 1:
+        q = qubits[0]
+        L, R = 2 ** q, 2 ** (n - q - 1)
+        wide = R < _TAIL and 2 ** n >= _TAIL_MIN
+        return (_ONE, gi, pos, col, L, R, wide, np.asarray(g.generator, dtype=complex))
+    return (_OTHER, gi, pos, col, qubits, g)
+
+
+# -- a run ------------------------------------------------------------------------------------
+def _table(comp, phi):
+    """Per group: matrices (or diagonals) (k, d, d) for shared angles, or (k, P, d, d)."""
+    P = phi.shape[0]
+    table = []
+    for g, cols, diag in comp.groups:
+        a = phi[:, cols]
+        shared = P == 1 or bool(np.all(a == a[:1]))
+        flat = a[0] if shared else a.T.reshape(-1)
+        vals = g.diagonal_values(flat) if diag else g._matrices(flat)
+        if not shared:
+            vals = vals.reshape((cols.size, P) + vals.shape[1:])
+        table.append((vals, shared))
+    return table
+
+
+def _one(psi, out, m, L, R, wide):
+    """``out = m psi`` on one qubit; m (2, 2) shared or (B, 2, 2) per row."""
+    B = psi.shape[0]
+    if wide:
+        eye = np.eye(R)
+        if m.ndim == 2:
+            blk = (m[:, None, :, None] * eye[None, :, None, :]).reshape(2 * R, 2 * R)
+            np.matmul(psi.reshape(-1, 2 * R), blk.T, out=out.reshape(-1, 2 * R))
+        else:
+            blk = (m[:, :, None, :, None] * eye[None, None, :, None, :]).reshape(B, 2 * R, 2 * R)
+            np.matmul(psi.reshape(B, -1, 2 * R), np.swapaxes(blk, 1, 2), out=out.reshape(B, -1, 2 * R))
+        return out
+    v = psi.reshape(B, L, 2, R)
+    o = out.reshape(B, L, 2, R)
+    np.matmul(m if m.ndim == 2 else m[:, None], v, out=o)
+    return out
+
+
+def _diag(psi, d, shape, dshape, perm):
+    """``psi *= d`` on the step's qubits, in place; d (d,) shared or (B, d) per row."""
+    B = psi.shape[0]
+    if perm is not None:
+        d = d[..., perm]
+    d = d.reshape(((1,) if d.ndim == 1 else (B,)) + dshape)
+    v = psi.reshape((B,) + shape)
+    v *= d
+    return psi
+
+
+def _value(table, gi, pos):
+    vals, shared = table[gi]
+    return vals[pos]
+
+
+def _forward(comp, cur, other, table, n):
+    """Apply every step; returns (final buffer, spare)."""
+    for s in comp.steps:
+        code = s[0]
+        if code == _CONST_DIAG:
+            cur *= s[1]
+        elif code == _CONST_MONO:
+            np.take(cur, s[1], axis=1, out=other, mode="clip")
+            if s[2] is not None:
+                other *= s[2]
+            cur, other = other, cur
+        elif code == _CONST_DENSE:
+            np.matmul(cur, s[1], out=other)
+            cur, other = other, cur
+        elif code == _FIXED:
+            kernels.apply_dense(cur, n, s[1], s[2], other)
+            cur, other = other, cur
+        elif code == _DIAG:
+            _diag(cur, _value(table, s[1], s[2]), s[4], s[5], s[6])
+        elif code == _ONE:
+            _one(cur, other, _value(table, s[1], s[2]), s[4], s[5], s[6])
+            cur, other = other, cur
+        else:
+            kernels.apply_dense(cur, n, _value(table, s[1], s[2]), s[4], other)
+            cur, other = other, cur
+    return cur, other
+
+
+def _invert(m, diag, rows):
+    """The inverse of a unitary value, tiled over stacked rows when it is per row."""
+    inv = np.conj(m) if diag else np.conj(np.swapaxes(m, -1, -2))
+    extra = 1 if diag else 2
+    if inv.ndim > extra and inv.shape[0] != rows:
+        inv = np.concatenate([inv, inv])
+    return inv
+
+
+def run(circuit, phi, psi=None, out=None):
+    """Final states (B, 2**n) of an `eligible` circuit at gate angles ``phi`` (B, G).
+
+    ``psi`` (B, 2**n) are the initial states (default ``|0...0>``, not modified); ``out``
+    receives the result when given. Checks of shapes are the caller's
+    (`qgradlib.engine.statevector.run`).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(2).h(0).cnot(0, 1).ry(1)
+    >>> bool(np.allclose(run(c, np.zeros((1, 1))), qg.state(c, np.zeros(1), fuse=False)))
+    True
+    """
+    comp = compiled(circuit)
+    B = phi.shape[0]
+    N = 2 ** comp.n
+    # the matrices first: their temporaries come and go before the two buffers exist
+    table = _table(comp, phi)
+    cur = out if out is not None else np.empty((B, N), dtype=complex)
+    if psi is None:
+        cur[...] = 0
+        cur[:, 0] = 1
+    else:
+        cur[...] = psi
+    other = np.empty_like(cur)
+    res, _ = _forward(comp, cur, other, table, comp.n)
+    if out is not None and res is not out:
+        out[...] = res
+        return out
+    return res
+
+
+# -- the adjoint backward pass ------------------------------------------------------------------
+def _dots(lam, mu):
+    """<lam_p|mu_p> for every row."""
+    if lam.shape[0] == 1:
+        return np.array([np.vdot(lam[0], mu[0])])
+    return np.einsum("bi,bi->b", lam.conj(), mu)
+
+
+def backward(circuit, both, phi, want, observable_into=None, apply_observable=None):
+    """dE/dphi (P, G) from the stacked final states ``both`` (2P, 2**n): rows :P the kets,
+    rows P: are filled with ``O psi`` here (the layout of `qgradlib.engine.adjoint`).
+
+    ``want`` holds the columns to differentiate; the others stay zero. Uses ``both`` and one
+    buffer like it, nothing larger.
+    """
+    comp = compiled(circuit)
+    n = comp.n
+    P = phi.shape[0]
+    table = _table(comp, phi)        # before the buffer: its temporaries come and go first
+    buf = np.empty_like(both)
+    if observable_into is not None:
+        observable_into(both[:P], both[P:], buf[:P])
+    else:
+        both[P:] = apply_observable(both[:P])
+    grad = np.zeros((P, comp.n_columns))
+    cur, other = both, buf
+    for s in reversed(comp.steps):
+        code = s[0]
+        if code in (_DIAG, _ONE, _OTHER) and s[3] in want:
+            _derivative(s, cur, other, n, P, grad)
+        cur, other = _undo(s, cur, other, table, n)
+    return grad
+
+
+def _derivative(s, both, buf, n, P, grad):
+    """``grad[:, col] = 2 Im <lam|G|psi>`` at the gate's output, psi rows :P, lam rows P:."""
+    code, col = s[0], s[3]
+    psi, lam, mu = both[:P], both[P:], buf[:P]
+    if code == _DIAG:
+        np.copyto(mu, psi)
+        _diag(mu, s[7], s[4], s[5], None)
+    elif code == _ONE:
+        _one(psi, mu, s[7], s[4], s[5], s[6])
+    else:
+        kernels.apply_dense(psi, n, np.asarray(s[5].generator, dtype=complex), s[4], mu)
+    grad[:, col] = 2 * np.imag(_dots(lam, mu))
+
+
+def _undo(s, cur, other, table, n):
+    """Undo one step on every stacked row; returns (current, spare)."""
+    code = s[0]
+    if code == _CONST_DIAG:
+        cur *= np.conj(s[1])
+        return cur, other
+    if code == _CONST_MONO:
+        np.take(cur, s[3], axis=1, out=other, mode="clip")
+        if s[4] is not None:
+            other *= s[4]
+        return other, cur
+    if code == _CONST_DENSE:
+        np.matmul(cur, s[2], out=other)
+        return other, cur
+    if code == _FIXED:
+        kernels.apply_dense(cur, n, s[3], s[2], other)
+        return other, cur
+    m = _invert(_value(table, s[1], s[2]), code == _DIAG, cur.shape[0])
+    if code == _DIAG:
+        _diag(cur, m, s[4], s[5], s[6])
+        return cur, other
+    if code == _ONE:
+        _one(cur, other, m, s[4], s[5], s[6])
+    else:
+        kernels.apply_dense(cur, n, m, s[4], other)
+    return other, cur
