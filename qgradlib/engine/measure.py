@@ -202,7 +202,7 @@ def _read_values(psi, layout, K):
     out = np.zeros((B, K))
     for flip, W, _ in layout:
         if flip is None:
-            f = psi.reshape(B, -1, 1).view(np.float64)
+            f = psi.reshape(B, -1, 1).view(psi.real.dtype)
             out += np.einsum("bni,bni->bn", f, f) @ W          # |psi|**2, one array
             continue
         prod = np.take(psi, flip, axis=1)
