@@ -29,12 +29,12 @@ SIZES = {
              "overhead_layers": 300, "hess_n": 6, "hess_layers": 5, "min_time": 0.05, "roto_layers": 50,
              "jax_qubits": [4, 6, 8, 10, 12, 14, 16], "jax_layers": 3, "jax_shift": (6, 5),
              "first": (10, 5), "data_n": 8, "data_N": 256, "data_m": 48,
-             "deep": (4, 10_000, 1_641), "threads": (14, 4)},
+             "deep": (4, 10_000, 1_641), "threads": (14, 4), "fwd_single_n": 30},
     "quick": {"gate_n": 12, "gate_layers": 2, "adj_n": 8, "adj_layers": 4, "shift_n": 6,
               "shift_layers": 4, "fwd_mem_n": 12, "adj_mem_n": 10, "mem_layers": 1,
               "overhead_layers": 20, "hess_n": 3, "hess_layers": 2, "min_time": 0.002, "roto_layers": 2,
               "jax_qubits": [3], "jax_layers": 1, "jax_shift": (3, 1), "first": (4, 1), "data_n": 3, "data_N": 8, "data_m": 6,
-              "deep": (3, 60, 10), "threads": (4, 2)},
+              "deep": (3, 60, 10), "threads": (4, 2), "fwd_single_n": None},
 }
 
 
@@ -140,19 +140,31 @@ def _probe(what, n, layers):
     return json.loads(out.stdout.strip().splitlines()[-1])
 
 
-def _memory(key, what, n, layers, target, repeats, label):
+def _memory(key, what, n, layers, target, repeats, label, amplitude=16):
     runs = [_probe(what, n, layers) for _ in range(repeats)]
     ratios = [r["traced_peak_bytes"] / r["state_bytes"] for r in runs]
     rss = [r["rss_growth_bytes"] / r["state_bytes"] for r in runs]
     return _result(key, label, target, "<=", ratios, unit="states",
                    state_bytes=runs[0]["state_bytes"], rss_growth_states=rss,
-                   measure="tracemalloc peak of the call in a child process / 16 * 2**n bytes")
+                   measure=f"tracemalloc peak of the call in a child process / {amplitude} * 2**n bytes")
 
 
 def forward_memory(sz, repeats):
     n = sz["fwd_mem_n"]
-    return _memory("forward_memory", "forward", n, sz["mem_layers"], 2.5, repeats,
+    return _memory("forward_memory", "forward", n, sz["mem_layers"], 1.5, repeats,
                    f"peak memory of a forward run, n = {n} / one state")
+
+
+def forward_memory_single(sz, repeats):
+    n = sz["fwd_single_n"]
+    key, target = "forward_memory_single", 1.5
+    if n is None:
+        return _skipped(key, "peak memory of a single-precision forward run, n = 30 / one "
+                        "complex64 state", target, "<=", "full run only (the state alone is 8 GiB)",
+                        unit="states")
+    return _memory(key, "forward-single", n, sz["mem_layers"], target, repeats,
+                   f"peak memory of a single-precision forward run, n = {n} / one complex64 state",
+                   amplitude=8)
 
 
 def adjoint_memory(sz, repeats):
@@ -367,5 +379,5 @@ def kernel_gram(sz, repeats):
 
 
 FIGURES = [gate_pass, adjoint_forward, shift_forward, backprop_adjoint, hessian_adjoint, forward_memory,
-           adjoint_memory, overhead, import_time, rotosolve_sweep, jax_adjoint, jax_shift,
-           first_gradient, batch_adjoint, batch_shift, kernel_gram, deep_shift, thread_shift]
+           forward_memory_single, adjoint_memory, overhead, import_time, rotosolve_sweep, jax_adjoint,
+           jax_shift, first_gradient, batch_adjoint, batch_shift, kernel_gram, deep_shift, thread_shift]

@@ -1,6 +1,7 @@
 """Child process: peak memory of one forward run or one adjoint gradient, as JSON on stdout.
 
-``python -m benchmarks.memory_probe {forward|adjoint} N LAYERS``. Two measures: the peak of
+``python -m benchmarks.memory_probe {forward|forward-single|adjoint} N LAYERS``
+(forward-single: ``precision="single"``, against a complex64 state). Two measures: the peak of
 traced allocations (tracemalloc sees every NumPy data buffer) and the growth of the
 process's peak resident set (ru_maxrss) over its resident set just before the call.
 """
@@ -31,8 +32,12 @@ def main(argv):
     c = layered(n, layers)
     theta = angles(c)
     H = ising(n)
+    state = 16 * 2 ** n
     if what == "forward":
         fn = lambda: qg.expect(c, H, theta)  # noqa: E731
+    elif what == "forward-single":
+        fn = lambda: qg.expect(c, H, theta, precision="single")  # noqa: E731
+        state = 8 * 2 ** n
     elif what == "adjoint":
         fn = lambda: grad(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)  # noqa: E731
     else:
@@ -44,7 +49,6 @@ def main(argv):
     _, traced = tracemalloc.get_traced_memory()
     tracemalloc.stop()
     peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
-    state = 16 * 2 ** n
     print(json.dumps({"what": what, "n": n, "layers": layers, "state_bytes": state,
                       "traced_peak_bytes": traced, "rss_before": before, "rss_peak": peak,
                       "rss_growth_bytes": max(0, peak - before)}))

@@ -90,7 +90,7 @@ _CHILD = textwrap.dedent("""
 
     noisy = lambda n: qg.Circuit(n).ry(0).noise(0, qg.channels.depolarizing(0.1))
     cases = {
-        "forward": lambda: qg.expect(ry(24), Z(24), np.array([0.3])),
+        "forward": lambda: qg.expect(ry(25), Z(25), np.array([0.3])),
         "adjoint": lambda: grad(lambda t: qg.expect(ry(23), Z(23), t, gradient="adjoint"))(np.array([0.3])),
         "shift": lambda: grad(lambda t: qg.expect(ry(24, 2), Z(24), t))(np.array([0.3, 0.2])),
         "density": lambda: qg.expect(noisy(12), Z(12), np.array([0.3])),
@@ -126,7 +126,7 @@ def _guard(name):
     return f"{kind} (the guard let it through)", False
 
 
-for _key, _text in [("forward", "forward pass of 24 qubits (one 256 MiB state fits, the run's peak does not)"),
+for _key, _text in [("forward", "forward pass of 25 qubits (one 512 MiB state, in place, does not fit)"),
                     ("adjoint", "adjoint gradient of 23 qubits (the value fits, its four states do not)"),
                     ("shift", "shift-rule gradient of 24 qubits"),
                     ("density", "density matrix of 12 qubits (noise channel)")]:

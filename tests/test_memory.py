@@ -219,15 +219,17 @@ CHILD = textwrap.dedent('''
         return qg.Circuit(n).ry(0).noise(0, qg.channels.depolarizing(0.1))
 
     cases = {
-        # one state of 24 qubits (256 MiB) fits; the two buffers of a run do not
-        "forward": lambda: qg.expect(ry_circuit(24), Z(24), np.array([0.3])),
-        "state": lambda: qg.state(ry_circuit(24), np.array([0.3])),
+        # one state of 24 qubits (256 MiB) fits, and so does its run, in place; one of 25
+        # qubits (512 MiB) does not
+        "forward fits": lambda: float(qg.expect(ry_circuit(24), Z(24), np.array([0.3]))),
+        "forward": lambda: qg.expect(ry_circuit(25), Z(25), np.array([0.3])),
+        "state": lambda: qg.state(ry_circuit(25), np.array([0.3])),
         # 23 qubits: the value fits (2 x 128 MiB), the adjoint's four states do not; at 22 they do
         "adjoint": lambda: grad(lambda t: qg.expect(ry_circuit(23), Z(23), t, gradient="adjoint"))(np.array([0.3])),
         "adjoint fits": lambda: float(grad(lambda t: qg.expect(ry_circuit(22), Z(22), t, gradient="adjoint"))(np.array([0.3]))[0]),
         # the shifted circuits run in chunks that fit: the gradient completes
         "shift gradient fits": lambda: float(grad(lambda t: qg.expect(ry_circuit(22, 2), Z(22), t))(np.array([0.3, 0.2]))[0]),
-        "shift gradient": lambda: grad(lambda t: qg.expect(ry_circuit(24, 2), Z(24), t))(np.array([0.3, 0.2])),
+        "shift gradient": lambda: grad(lambda t: qg.expect(ry_circuit(25, 2), Z(25), t))(np.array([0.3, 0.2])),
         # four density matrices of 12 qubits (256 MiB each) do not fit; of 10 qubits they do
         "density": lambda: qg.expect(noisy(12), Z(12), np.array([0.3])),
         "density fits": lambda: float(qg.expect(noisy(10), Z(10), np.array([0.3]))),
@@ -267,5 +269,6 @@ def test_under_an_address_space_limit_what_fits_runs(limited):
     # <Z> after RY(0.3) is cos(0.3), its derivative -sin(0.3) (common practice); with
     # rho -> (1 - p) rho + p I/2 on that qubit, <Z> shrinks by 1 - p (common practice)
     assert limited["shift gradient fits"] == ["ok", round(-np.sin(0.3), 9)]
+    assert limited["forward fits"] == ["ok", round(np.cos(0.3), 9)]      # in place: one state
     assert limited["adjoint fits"] == ["ok", round(-np.sin(0.3), 9)]
     assert limited["density fits"] == ["ok", round((1 - 0.1) * np.cos(0.3), 9)]

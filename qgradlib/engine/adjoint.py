@@ -95,13 +95,15 @@ def _block_dots(lam, psi, n, cols, phases, qubits):
     imaginary (Y-type: RY, RYY, ...): then only ``Re <a|b>`` of blocks is needed, a plain
     dot product of float views. One read of each state, nothing written."""
     shape, pairs, expr = _block_plan(n, tuple(qubits), lam.shape[0])
-    lf = lam.view(np.float64).reshape(shape)
-    pf = psi.view(np.float64).reshape(shape)
+    fl = kernels.real_dtype(lam.dtype)
+    lf = lam.view(fl).reshape(shape)
+    pf = psi.view(fl).reshape(shape)
     index = dict(pairs)
     total = np.zeros(lam.shape[0])
     for i, idx in pairs:
-        # Im(g <a|b>) = Im(g) Re<a|b> for imaginary g
-        total += complex(phases[i]).imag * np.einsum(expr, lf[idx], pf[index[int(cols[i])]])
+        # Im(g <a|b>) = Im(g) Re<a|b> for imaginary g (single-precision dots summed in float64)
+        total += complex(phases[i]).imag * np.einsum(expr, lf[idx], pf[index[int(cols[i])]],
+                                                     dtype=np.float64)
     return 2 * total
 
 
@@ -179,7 +181,7 @@ def adjoint_states(rows: int, observable_scratch: float = 0.0) -> float:
 
 
 def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, observable_into=None,
-                     psi=None, fuse=None, observable_scratch=0.0) -> np.ndarray:
+                     psi=None, fuse=None, observable_scratch=0.0, dtype=np.complex128) -> np.ndarray:
     """dE/dphi for every row of ``phi`` (P, G), where ``E = <psi|O|psi>``.
 
     Parameters
@@ -200,6 +202,9 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
         Fusion of the gates between trainable ones (on by default).
     observable_scratch : float
         States a row that applying the observable allocates (for the memory guard).
+    dtype : {numpy.complex128, numpy.complex64}
+        Amplitude dtype of the bra and ket states (complex64: single precision; the
+        derivatives are still the exact adjoint rule, returned as float64).
 
     Returns
     -------
@@ -224,17 +229,20 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
     fuse = True if fuse is None else bool(fuse)
     # states handed in are released once copied (the caller passes its last reference)
     handed = P if psi is not None else 0
-    guard_states(n, adjoint_states(P, observable_scratch) - handed, f"the adjoint method on {P} row(s)")
-    both = np.empty((2 * P, N), dtype=complex)
+    dtype = np.dtype(dtype)
+    guard_states(n, adjoint_states(P, observable_scratch) - handed, f"the adjoint method on {P} row(s)",
+                 dtype.itemsize)
+    both = np.empty((2 * P, N), dtype=dtype)
     if psi is None:
-        run(circuit, phi, out=both[:P], fuse=fuse, keep=want)
+        run(circuit, phi, out=both[:P], fuse=fuse, keep=want, dtype=dtype)
     else:
         both[:P] = psi
     del psi  # the caller's copy can go now: at most four states from here on
     # (the BLAS limit starts here, not in a wrapper, whose arguments would keep psi alive)
     with engine_threads(n):
-        if fuse and small.eligible(circuit) and P * N < LEAN_AMPLITUDES:
-            # few qubits: the lean loop of qgradlib.engine.small (same layout, same memory)
+        if fuse and dtype == np.complex128 and small.eligible(circuit) and P * N < LEAN_AMPLITUDES:
+            # few qubits: the lean loop of qgradlib.engine.small (same layout, same memory;
+            # double precision only)
             return small.backward(circuit, both, phi, want, observable_into, apply_observable)
         prog = program(circuit, fuse, want)
         if prog.const_columns and not np.all(phi[:, list(prog.const_columns)] == prog.const_angles):
@@ -413,14 +421,15 @@ def _tail_overlaps(both, n, P):
     """``S[p, i, j] = sum_r conj(lam[p, r, i]) psi[p, r, j]`` over the last ``_TAIL`` qubits:
     one BLAS product per row (conjugate transpose in BLAS, no copy), after which
     ``<lam|G|psi> = sum_ij G_ij S_ij`` for any G inside that window."""
-    from scipy.linalg.blas import zgemm     # SciPy loads on first use, not at import
+    from scipy.linalg.blas import cgemm, zgemm     # SciPy loads on first use, not at import
 
+    gemm = cgemm if both.dtype == np.complex64 else zgemm
     D = 2 ** _TAIL
     out = np.empty((P, D, D), dtype=complex)
     for p in range(P):
         a = both[P + p].reshape(-1, D).T      # lam rows, Fortran-ordered (D, N/D)
         b = both[p].reshape(-1, D).T          # psi rows
-        out[p] = zgemm(1.0, b, a, trans_b=2).T
+        out[p] = gemm(1.0, b, a, trans_b=2).T
     return out
 
 

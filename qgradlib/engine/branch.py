@@ -79,12 +79,13 @@ def branched_states(rows: int) -> int:
 
 
 @limited
-def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2):
+def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2, dtype=np.complex128):
     """Final states (P, 2**n) of the rows of ``phi``, in their order, by branching from a
     shared trunk; None when branching would save less than ``min_saving`` of the work.
 
-    Parameters are those of `qgradlib.engine.statevector.run`. The work counted is kernel
-    steps: one trunk through the whole circuit plus each row from its branch point on.
+    Parameters (``dtype`` included) are those of `qgradlib.engine.statevector.run`. The work
+    counted is kernel steps: one trunk through the whole circuit plus each row from its
+    branch point on.
 
     Examples
     --------
@@ -138,7 +139,7 @@ def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2):
     if inserts is not None:
         rows_ins = [dict(ref_ins)] + [inserts[p] for p in order]
     M = rows_phi.shape[0]
-    cur = zero_states(n, M)
+    cur = zero_states(n, M, dtype)
     other = np.empty_like(cur)
     starts = start[order]
     full_shared = np.all(rows_phi == rows_phi[:1], axis=0)
@@ -173,7 +174,7 @@ def run_branched(circuit, phi, inserts=None, *, fuse=None, min_saving=0.2):
             sub_table = [(v if v.shape[1] == 1 else v[:, :a], sh) for v, sh in table]
             m = step_matrix(s, sub_table, a)
         cur, other = _fused_step(s, m, cur, other, a, n)
-    out = np.empty((P, 2 ** n), dtype=complex)
+    out = np.empty((P, 2 ** n), dtype=cur.dtype)
     out[order] = cur[1:active]
     out[is_ref] = cur[0]
     return out
@@ -274,7 +275,7 @@ def prefix_tree(phi):
     return node
 
 
-def run_prefix_tree(circuit, phi, *, fuse=None, min_saving=0.2):
+def run_prefix_tree(circuit, phi, *, fuse=None, min_saving=0.2, dtype=np.complex128):
     """Final states (P, 2**n) of the rows of ``phi`` through a tree of shared angle prefixes;
     None when it would save less than ``min_saving`` of the work.
 
@@ -339,7 +340,7 @@ def run_prefix_tree(circuit, phi, *, fuse=None, min_saving=0.2):
         rows_phi = phi
     splits, varying, node, count = tree[:4]
     n = circuit.n_qubits
-    cur = zero_states(n, count)
+    cur = zero_states(n, count, dtype)
     other = np.empty_like(cur)
     table = _table(prog, phi[:1], np.ones(G, dtype=bool))
     shared = np.all(rows_phi == rows_phi[:1], axis=0)

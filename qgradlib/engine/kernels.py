@@ -13,7 +13,14 @@ A state row reshaped to ``(2**lo, d, R)`` puts a gate on the contiguous qubits s
 - diagonal: in-place phase multiplies of strided views, skipping phases equal to one.
 
 Every kernel writes into a caller-given ``out`` (or in place), so a circuit run can
-alternate between two buffers instead of allocating a state per gate.
+alternate between two buffers instead of allocating a state per gate. Dense and monomial
+kernels given ``out=psi`` work in place instead (`in_place`): the state is cut into pieces
+along qubits the gate does not touch, each piece is a small state of its own, and only a
+piece-sized temporary (`PIECE` amplitudes) is ever held next to the state.
+
+The kernels follow the dtype of the state: complex128, or complex64 (``precision="single"``),
+to which matrices, phases and diagonals are cast; a real matrix acts on the float32 or
+float64 view.
 """
 from __future__ import annotations
 
@@ -22,12 +29,52 @@ from functools import lru_cache
 import numpy as np
 
 __all__ = ["sort_qubits", "widen", "apply_dense", "apply_monomial", "apply_diag",
-           "monomial_structure", "TAIL_STRIDE"]
+           "monomial_structure", "in_place", "in_place_scratch", "state_dtype", "real_dtype",
+           "PRECISIONS", "TAIL_STRIDE", "PIECE"]
 
 # below this stride (amplitudes) the slab products are too small for BLAS: use a tail block
 TAIL_STRIDE = 8
 # widest gap-filled block a non-adjacent gate is widened to (qubits)
 MAX_SPAN = 3
+# amplitudes of the pieces an in-place kernel works on (1 MiB of complex128: cache-sized)
+PIECE = 2 ** 16
+
+# the ``precision=`` option: amplitude dtype of the states
+PRECISIONS = {"double": np.dtype(np.complex128), "single": np.dtype(np.complex64)}
+
+
+def state_dtype(precision) -> np.dtype:
+    """The amplitude dtype of a ``precision`` ("double": complex128, "single": complex64).
+
+    Examples
+    --------
+    >>> state_dtype("single").name
+    'complex64'
+    """
+    dt = PRECISIONS.get(precision) if isinstance(precision, str) else None
+    if dt is None:
+        raise ValueError(f"precision must be one of {', '.join(map(repr, PRECISIONS))}; got {precision!r}")
+    return dt
+
+
+def real_dtype(dtype) -> np.dtype:
+    """float64 for complex128 states, float32 for complex64 (the dtype of their float view).
+
+    Examples
+    --------
+    >>> real_dtype(np.complex64).name
+    'float32'
+    """
+    return np.dtype(np.float32) if np.dtype(dtype) == np.complex64 else np.dtype(np.float64)
+
+
+def _cast(a, dtype):
+    """``a`` as ``dtype`` (complex64 states take complex64 matrices: a complex128 operand
+    would make NumPy compute, and allocate, in double precision)."""
+    a = np.asarray(a)
+    if dtype == np.complex128 or a.dtype == dtype:
+        return a
+    return a.astype(dtype)
 
 
 def sort_qubits(mat, qubits, diag=False):
@@ -121,10 +168,108 @@ def _is_real(mat):
     return not np.iscomplexobj(mat) or not np.any(mat.imag)
 
 
+def _split(n, qubits, N, B, piece):
+    """How `in_place` cuts a state: None (one temporary of the whole batch), ``("rows", r)``
+    (``r`` rows at a time), or ``("qubits", s, f)``: row by row, with the qubits
+    ``s .. s+f-1`` (a run no target touches) fixed in each piece, so a piece is a state of
+    ``n - f`` qubits."""
+    if B * N <= piece:
+        return None
+    if N <= piece:
+        return ("rows", max(1, piece // N))
+    sq = sorted(set(qubits))
+    runs = [(0, sq[0])] + [(a + 1, b - a - 1) for a, b in zip(sq, sq[1:])] + [(sq[-1] + 1, n - 1 - sq[-1])]
+    need = (N // piece).bit_length() - 1          # N / piece is a power of two
+    # the leading run gives contiguous pieces (no copy in): take it when it is long enough
+    s, a = runs[0] if runs[0][1] >= need else max(runs, key=lambda r: r[1])
+    if a == 0:
+        return None
+    return ("qubits", s, min(a, need))
+
+
+def in_place_scratch(n, qubits, B=1, piece=None) -> int:
+    """Amplitudes `in_place` holds besides the state for a gate on ``qubits`` (its input and
+    output pieces, and the two a kernel on far-apart qubits makes); an upper bound.
+
+    Examples
+    --------
+    >>> in_place_scratch(24, (0,)) / 2 ** 24        # four pieces of 2**16 next to 2**24
+    0.015625
+    """
+    piece = PIECE if piece is None else piece
+    N = 2 ** n
+    how = _split(n, qubits, N, B, piece)
+    if how is None:
+        size = B * N
+    elif how[0] == "rows":
+        size = min(B, how[1]) * N
+    else:
+        size = 2 ** (n - how[2])
+    return 4 * size
+
+
+def in_place(psi, n, qubits, kernel, piece=None):
+    """Apply a gate on ``qubits`` to ``psi`` (B, 2**n) in place, piece by piece.
+
+    ``kernel(src, m, qubits, out, rows)`` writes the gate applied to ``src`` (a C-ordered
+    (b, 2**m) state with the gate on ``qubits``) into ``out``; ``rows`` is the slice of the
+    batch ``src`` holds (for per-row matrices). A piece fixes the bits of qubits the gate
+    does not touch, so it is a state of its own and the gate acts on it alone; at most
+    `PIECE` amplitudes (``piece``) are held beside ``psi``, whatever its size.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> psi = np.arange(8, dtype=complex).reshape(1, 8)
+    >>> flip = lambda src, m, qs, out, rows: apply_monomial(src, m, [1, 0], [1, 1], qs, out)
+    >>> in_place(psi, 3, (1,), flip, piece=2).real.tolist()      # X on qubit 1
+    [[2.0, 3.0, 0.0, 1.0, 6.0, 7.0, 4.0, 5.0]]
+    """
+    piece = PIECE if piece is None else piece
+    B, N = psi.shape
+    qubits = tuple(qubits)
+    how = _split(n, qubits, N, B, piece)
+    if how is None:
+        res = np.empty_like(psi)
+        kernel(psi, n, qubits, res, slice(None))
+        psi[...] = res
+        return psi
+    if how[0] == "rows":
+        r = how[1]
+        buf = np.empty((min(r, B), N), dtype=psi.dtype)
+        for b0 in range(0, B, r):
+            b1 = min(B, b0 + r)
+            kernel(psi[b0:b1], n, qubits, buf[:b1 - b0], slice(b0, b1))
+            psi[b0:b1] = buf[:b1 - b0]
+        return psi
+    _, s, f = how
+    m = n - f
+    mapped = tuple(q if q < s else q - f for q in qubits)
+    out = np.empty((1, 2 ** m), dtype=psi.dtype)
+    src = None if s == 0 else np.empty_like(out)
+    shape = (2 ** s, 2 ** f, 2 ** (n - s - f))
+    for b in range(B):
+        row = psi[b].reshape(shape)
+        for j in range(2 ** f):
+            sub = row[:, j, :]          # contiguous when s == 0
+            if src is None:
+                kernel(sub.reshape(1, -1), m, mapped, out, slice(b, b + 1))
+            else:
+                src.reshape(sub.shape)[...] = sub
+                kernel(src, m, mapped, out, slice(b, b + 1))
+            sub[...] = out.reshape(sub.shape)
+    return psi
+
+
+def _rows(mat, rows, per_row):
+    return mat[rows] if per_row else mat
+
+
 def apply_dense(psi, n, mat, qubits, out, real=None):
     """``out = mat psi`` on ``qubits``; mat (d, d) shared or (B, d, d) per row.
 
-    ``psi`` and ``out`` are C-ordered complex128 arrays (B, 2**n) that do not overlap;
+    ``psi`` and ``out`` are C-ordered complex arrays (B, 2**n) of one dtype (complex128 or
+    complex64) that do not overlap, or ``out is psi`` to work in place (`in_place`);
     ``real`` says whether ``mat`` is real (computed when None).
 
     Examples
@@ -134,16 +279,38 @@ def apply_dense(psi, n, mat, qubits, out, real=None):
     >>> X = np.array([[0, 1], [1, 0]], dtype=complex)
     >>> apply_dense(psi, 2, X, (0,), np.empty_like(psi)).real.tolist()
     [[0.0, 0.0, 1.0, 0.0]]
+    >>> apply_dense(psi, 2, X, (1,), psi).real.tolist()            # in place
+    [[0.0, 1.0, 0.0, 0.0]]
     """
     mat, sq = sort_qubits(mat, qubits)
     k = len(sq)
     lo, hi = sq[0], sq[-1]
+    per_row = np.ndim(mat) == 3
     if hi - lo + 1 > k:
         if hi - lo + 1 > MAX_SPAN:
+            mat = _cast(mat, psi.dtype)
+            if out is psi:
+                return in_place(psi, n, sq, lambda src, m_, qs, o, rows: _dense_far(
+                    src, m_, _rows(mat, rows, per_row), qs, o))
             return _dense_far(psi, n, mat, sq, out)
         mat = widen(mat, [q - lo for q in sq], hi - lo + 1)
         sq = tuple(range(lo, hi + 1))
-        k = len(sq)
+    if real is None:
+        real = _is_real(mat)
+    mat = _cast(np.ascontiguousarray(mat.real) if real else mat,
+                real_dtype(psi.dtype) if real else psi.dtype)
+    if out is psi:
+        blocks = {}
+        return in_place(psi, n, sq, lambda src, m_, qs, o, rows: _dense_span(
+            src, m_, _rows(mat, rows, per_row), qs, o, real, blocks))
+    return _dense_span(psi, n, mat, sq, out, real, {})
+
+
+def _dense_span(psi, n, mat, sq, out, real, blocks):
+    """`apply_dense` on the contiguous qubits ``sq``; ``mat`` real (float) when ``real``.
+    ``blocks`` memoises the tail blocks of one gate over the pieces of an in-place call."""
+    k = len(sq)
+    lo, hi = sq[0], sq[-1]
     B = psi.shape[0]
     d = 2 ** k
     R = 2 ** (n - hi - 1)
@@ -152,26 +319,28 @@ def apply_dense(psi, n, mat, qubits, out, real=None):
     if R < TAIL_STRIDE and n > k and not (per_row and n - lo - k >= 2):
         # widen to a block over the last qubits: one product with (N/D, D) rows
         w = n - lo
-        blk = widen(mat, list(range(k)), w)
+        blk = None if per_row else blocks.get(w)
+        if blk is None:
+            blk = widen(mat.astype(psi.dtype), list(range(k)), w)
+            if not per_row:
+                blocks[w] = blk
         D = 2 ** w
         if per_row:
             np.matmul(psi.reshape(B, -1, D), np.swapaxes(blk, -1, -2), out=out.reshape(B, -1, D))
         else:
             np.matmul(psi.reshape(-1, D), blk.T, out=out.reshape(-1, D))
         return out
-    if real is None:
-        real = _is_real(mat)
     if real:
-        m = np.ascontiguousarray(mat.real)
-        v = psi.view(np.float64)
-        o = out.view(np.float64)
+        fl = real_dtype(psi.dtype)
+        v = psi.view(fl)
+        o = out.view(fl)
         R2 = 2 * R
     else:
-        m, v, o, R2 = mat, psi, out, R
+        v, o, R2 = psi, out, R
     if per_row:
-        np.matmul(m[:, None], v.reshape(B, 2 ** lo, d, R2), out=o.reshape(B, 2 ** lo, d, R2))
+        np.matmul(mat[:, None], v.reshape(B, 2 ** lo, d, R2), out=o.reshape(B, 2 ** lo, d, R2))
     else:
-        np.matmul(m, v.reshape(B * 2 ** lo, d, R2), out=o.reshape(B * 2 ** lo, d, R2))
+        np.matmul(mat, v.reshape(B * 2 ** lo, d, R2), out=o.reshape(B * 2 ** lo, d, R2))
     return out
 
 
@@ -193,7 +362,7 @@ def _dense_far(psi, n, mat, sq, out):
     t = psi.reshape((B,) + (2,) * n)
     axes = [1 + q for q in sq]
     front = np.moveaxis(t, axes, range(1, k + 1)).reshape(B, 2 ** k, -1)
-    res = (mat if mat.ndim == 2 else mat) @ front
+    res = mat @ front
     res = res.reshape((B,) + (2,) * n)
     out.reshape((B,) + (2,) * n)[...] = np.moveaxis(res, range(1, k + 1), axes)
     return out
@@ -222,7 +391,14 @@ def apply_monomial(psi, n, cols, phases, qubits, out):
     >>> out = apply_monomial(psi, 2, [1, 0], [1j, 1j], (1,), np.empty_like(psi))
     >>> out.tolist()
     [[0j, 1j, 0j, 0j]]
+    >>> apply_monomial(out, 2, [1, 0], [1, 1], (0,), out).tolist()   # in place (out is psi)
+    [[0j, 0j, 0j, 1j]]
     """
+    phases = _cast(phases, psi.dtype)
+    if out is psi:
+        per_row = phases.ndim == 2
+        return in_place(psi, n, qubits, lambda src, m, qs, o, rows: apply_monomial(
+            src, m, cols, _rows(phases, rows, per_row), qs, o))
     qubits = tuple(qubits)
     k = len(qubits)
     d = 2 ** k
@@ -231,7 +407,6 @@ def apply_monomial(psi, n, cols, phases, qubits, out):
     t, axes = _views(psi, n, sq)
     o, _ = _views(out, n, sq)
     ndim = t.ndim
-    phases = np.asarray(phases)
     per_row = phases.ndim == 2
     for i in range(d):
         bi = _bits(i, k)
@@ -281,12 +456,13 @@ def _broadcast_diag(psi, n, diag, sq):
         dshape.append(1)
     d = diag.reshape(dshape)
     if not np.any(d.imag):
-        d = d.real
+        d = _cast(d.real, real_dtype(psi.dtype))
         vshape[-1] *= 2
         if dshape[-1] > 1:
             d = np.repeat(d, 2, axis=-1)
-        v = psi.view(np.float64).reshape(vshape)
+        v = psi.view(real_dtype(psi.dtype)).reshape(vshape)
     else:
+        d = _cast(d, psi.dtype)
         v = psi.reshape(vshape)
     v *= d
     return psi
@@ -303,6 +479,8 @@ def apply_diag(psi, n, diag, qubits):
     [[0.5, 0.5, 0.5, -0.5]]
     """
     diag, sq = sort_qubits(np.asarray(diag), qubits, diag=True)
+    if psi.dtype != np.complex128:
+        diag = diag.astype(psi.dtype)
     k = len(sq)
     per_row = diag.ndim == 2
     if k > 2 or 2 ** (n - sq[-1] - 1) < TAIL_STRIDE or per_row:

@@ -4,6 +4,12 @@ For a Pauli word with X/Y letters on qubits ``x`` and Z/Y letters on qubits ``z`
 ``<psi|P|psi> = i**nY * sum_i conj(psi[i ^ x]) (-1)**popcount(i & z) psi[i]``. Flipping the
 bits of ``x`` is reversing those axes of the (2,)*n view, so no index array and no matrix is
 built; terms that flip the same bits share one product ``conj(psi[i ^ x]) * psi[i]``.
+
+A large state is read in pieces (`READ_PIECE` amplitudes): a piece fixes the bits of a few
+qubits the group's words do not flip, so ``i ^ x`` stays inside it and the Z letters on the
+fixed qubits are a sign; the products and ``|psi|**2`` are then piece-sized, not
+state-sized. Complex64 states (``precision="single"``) are read in their own precision and
+summed in float64.
 """
 from __future__ import annotations
 
@@ -16,7 +22,10 @@ from ..circuits.paulis import masks
 from .kernels import _views, apply_dense
 
 __all__ = ["pauli_expectation", "expectations", "probabilities", "expectation_scratch",
-           "observable_scratch"]
+           "observable_scratch", "READ_PIECE"]
+
+# amplitudes a piece of a state read out at once (its products are half of it)
+READ_PIECE = 2 ** 18
 
 
 def _flipped(t, xq):
@@ -43,21 +52,47 @@ def _signed_sum(prod, n, zq):
         prev = q + 1
     shape.append(2 ** (n - prev))
     v = prod.reshape(shape)
-    r = v.sum(axis=tuple(range(1, len(shape), 2)))      # (B, 2, ..., 2) over the Z qubits
+    acc = np.complex128 if np.iscomplexobj(v) else np.float64
+    r = v.sum(axis=tuple(range(1, len(shape), 2)), dtype=acc)   # (B, 2, ..., 2) over the Z qubits
     for _ in zq:
         r = r[:, 0, ...] - r[:, 1, ...]
     return r
 
 
 def _z_group(t, n, group, B):
-    p = t.reshape(B, -1, 1).view(np.float64)              # (B, N, 2): re, im
+    p = t.reshape(B, -1, 1)
+    p = p.view(p.real.dtype)                               # (B, N, 2): re, im
     p = np.einsum("bni,bni->bn", p, p)                     # |psi|^2, one pass, one array
     const, windows = _z_windows([(zq, c) for zq, ny, c in group], 1)
-    total = const[0] * p.sum(axis=1)
+    total = const[0] * p.sum(axis=1, dtype=np.float64)
     for lo, w, small in windows:
         # marginal of |psi|^2 on the window (one reduction pass), dotted with its signs
-        marg = p.reshape(B, 2 ** lo, 2 ** w, 2 ** (n - lo - w)).sum(axis=(1, 3))
+        marg = p.reshape(B, 2 ** lo, 2 ** w, 2 ** (n - lo - w)).sum(axis=(1, 3), dtype=np.float64)
         total = total + marg @ small[0]
+    return total
+
+
+def _pieces(t, n, xq, group, B, piece):
+    """A group's value summed over pieces of the (B, 2, ..., 2) view ``t``: each fixes the
+    bits of the first qubits outside ``xq`` (so no flip leaves the piece), its Z letters on
+    them become a sign of the coefficient, and the rest is a group on the other qubits."""
+    f = max(0, (B * 2 ** n // piece).bit_length() - 1)
+    fixed = [q for q in range(n) if q not in xq][:f]
+    if not fixed:
+        return _x_group(t, n, xq, group, B) if xq else _z_group(t, n, group, B)
+    rest = [q for q in range(n) if q not in fixed]
+    where = {q: i for i, q in enumerate(rest)}
+    sub_x = tuple(where[q] for q in xq)
+    total = np.zeros(B)
+    for bits in range(2 ** len(fixed)):
+        val = {q: (bits >> (len(fixed) - 1 - i)) & 1 for i, q in enumerate(fixed)}
+        idx = (slice(None),) + tuple(val[q] if q in val else slice(None) for q in range(n))
+        sub = []
+        for zq, ny, c in group:
+            sign = -1.0 if sum(val.get(q, 0) for q in zq) % 2 else 1.0
+            sub.append((tuple(where[q] for q in zq if q in where), ny, sign * c))
+        m = len(rest)
+        total += _x_group(t[idx], m, sub_x, sub, B) if xq else _z_group(t[idx], m, sub, B)
     return total
 
 
@@ -76,24 +111,26 @@ def _x_group(t, n, xq, group, B):
     for zq, ny, c in group:
         odd = len(set(zq) & set(xq)) % 2
         zh = [q - (q > x0) for q in zq if q != x0]       # Z qubits on the half (x0 removed)
-        val = _signed_sum(prod, m, zh) if zh else prod.reshape(B, -1).sum(axis=1)
+        val = _signed_sum(prod, m, zh) if zh else prod.reshape(B, -1).sum(axis=1, dtype=np.complex128)
         # sum over both halves: prod + (-1)^{|z & x|} conj(prod)
         full = 2j * val.imag if odd else 2 * val.real
         total += c * np.real((1j ** ny) * full)
     return total
 
 
-def pauli_terms_expectation(psi: np.ndarray, n: int, terms: dict) -> np.ndarray:
-    """sum_k c_k <psi|P_k|psi> for every row; returns (B,) float."""
+def pauli_terms_expectation(psi: np.ndarray, n: int, terms: dict, piece=None) -> np.ndarray:
+    """sum_k c_k <psi|P_k|psi> for every row; returns (B,) float64. A state of more than
+    ``piece`` (default `READ_PIECE`) amplitudes is read in pieces."""
     B = psi.shape[0]
     t = psi.reshape((B,) + (2,) * n)
     by_x = defaultdict(list)
     for word, c in terms.items():
         xq, zq, ny = masks(word)
         by_x[xq].append((zq, ny, c))
+    piece = READ_PIECE if piece is None else piece
     total = np.zeros(B)
     for xq, group in by_x.items():
-        total += _x_group(t, n, xq, group, B) if xq else _z_group(t, n, group, B)
+        total += _pieces(t, n, xq, group, B, piece)
     return total
 
 
@@ -165,7 +202,7 @@ def _read_values(psi, layout, K):
     out = np.zeros((B, K))
     for flip, W, _ in layout:
         if flip is None:
-            f = psi.reshape(B, -1, 1).view(np.float64)
+            f = psi.reshape(B, -1, 1).view(psi.real.dtype)
             out += np.einsum("bni,bni->bn", f, f) @ W          # |psi|**2, one array
             continue
         prod = np.take(psi, flip, axis=1)
@@ -237,11 +274,12 @@ def _z_window_scratch(n, observables):
 
 def expectation_scratch(n: int, observables) -> float:
     """States a row that `expectations` allocates beyond the states it reads: ``|psi|**2`` or
-    a half-size product with its reshaped copy (1), the Z windows' sign vectors, and for a
-    dense part the conjugate and the einsum's product (2). The memory guard's estimate
-    (`qgradlib.engine.memory`): change it with `expectations`."""
+    a half-size product with its reshaped copy (1, or a piece of `READ_PIECE` amplitudes for
+    a larger state), the Z windows' sign vectors, and for a dense part the conjugate and the
+    einsum's product (2). The memory guard's estimate (`qgradlib.engine.memory`): change it
+    with `expectations`."""
     dense = any(o.dense is not None for o in observables)
-    return 1.0 + _z_window_scratch(n, observables) + (2.0 if dense else 0.0)
+    return min(1.0, READ_PIECE / 2.0 ** n) + _z_window_scratch(n, observables) + (2.0 if dense else 0.0)
 
 
 def observable_scratch(n: int, observables) -> float:
@@ -374,7 +412,7 @@ def apply_observables(psi, n, observables, weights=None, out=None, scratch=None)
     if diag_terms:
         # all Z-only words as one real diagonal, built in the scratch memory
         N = 2 ** n
-        d = scratch.view(np.float64).reshape(B, 2 * N)[:, :N]
+        d = scratch.view(scratch.real.dtype).reshape(B, 2 * N)[:, :N]
         _z_diagonal(d, n, diag_terms, B)
         np.multiply(psi, d, out=out)
         written = True

@@ -1,9 +1,13 @@
 """Statevector kernels on batches of states, shape (B, 2**n), and circuit runs.
 
 Gates act on reshaped views (see `qgradlib.engine.kernels`); no full-size matrix is built.
-`run` compiles the circuit once (`qgradlib.engine.program`, with optional gate fusion) and
-alternates between two state buffers, so a run holds two batches of states whatever its
-length.
+`run` compiles the circuit once (`qgradlib.engine.program`, with optional gate fusion). A
+small batch alternates between two state buffers; a large one (at least `IN_PLACE`
+amplitudes) is updated in place, each kernel holding only a piece-sized temporary
+(`qgradlib.engine.kernels.in_place`), so the run holds one batch of states and a little.
+
+States are complex128, or complex64 with ``dtype=np.complex64`` (the ``precision="single"``
+option of the user-facing functions): every kernel then works in single precision.
 
 Fusion is on by default and switched per call (``run(..., fuse=False)``; the user-facing
 functions take ``fuse=`` and carry it in their `Spec`). It never changes a result by more than
@@ -24,20 +28,29 @@ from . import kernels, small
 from .memory import guard, guard_states
 from .program import program, step_matrix
 
-__all__ = ["zero_states", "apply_matrix", "apply_diagonal", "apply_gate", "run", "run_states"]
+__all__ = ["zero_states", "apply_matrix", "apply_diagonal", "apply_gate", "run", "run_states",
+           "IN_PLACE"]
+
+# a batch of at least this many amplitudes runs in place (one state a row, not two); below
+# it the two alternating buffers are cheaper than cutting the state into pieces
+IN_PLACE = 2 ** 20
 
 
-def zero_states(n_qubits: int, batch: int = 1) -> np.ndarray:
-    """``batch`` copies of ``|0...0>``, shape (batch, 2**n).
+def zero_states(n_qubits: int, batch: int = 1, dtype=np.complex128) -> np.ndarray:
+    """``batch`` copies of ``|0...0>``, shape (batch, 2**n), of ``dtype`` (complex128 or
+    complex64).
 
     Examples
     --------
     >>> zero_states(2, 1).tolist()
     [[(1+0j), 0j, 0j, 0j]]
+    >>> zero_states(2, 1, np.complex64).dtype.name
+    'complex64'
     """
-    nbytes = batch * (2 ** n_qubits) * 16
+    dtype = np.dtype(dtype)
+    nbytes = batch * (2 ** n_qubits) * dtype.itemsize
     guard(nbytes, f"a batch of {batch} state(s) of {n_qubits} qubits")
-    psi = np.zeros((batch, 2 ** n_qubits), dtype=complex)
+    psi = np.zeros((batch, 2 ** n_qubits), dtype=dtype)
     psi[:, 0] = 1.0
     return psi
 
@@ -57,12 +70,14 @@ def apply_matrix(psi: np.ndarray, n: int, mat: np.ndarray, qubits, out=None) -> 
     mat = np.asarray(mat)
     if mat.dtype != complex:
         mat = mat.astype(complex)
-    # the kernels work on reshaped and float views of C-ordered complex128 rows
-    psi = np.ascontiguousarray(psi, dtype=complex)
+    # the kernels work on reshaped and float views of C-ordered complex rows (complex64
+    # states stay single precision)
+    dtype = psi.dtype if getattr(psi, "dtype", None) == np.complex64 else np.dtype(complex)
+    psi = np.ascontiguousarray(psi, dtype=dtype)
     if out is None:
         out = np.empty_like(psi)
-    elif not (out.flags.c_contiguous and out.dtype == complex and out.shape == psi.shape):
-        raise ValueError(f"out must be a C-contiguous complex128 array of shape {psi.shape}")
+    elif not (out.flags.c_contiguous and out.dtype == dtype and out.shape == psi.shape):
+        raise ValueError(f"out must be a C-contiguous {dtype.name} array of shape {psi.shape}")
     return kernels.apply_dense(psi, n, mat, tuple(qubits), out)
 
 
@@ -77,7 +92,7 @@ def apply_diagonal(psi: np.ndarray, n: int, diag: np.ndarray, qubits) -> np.ndar
     >>> apply_diagonal(psi, 2, np.array([1.0, -1.0]), (1,)).real.tolist()   # Z on qubit 1
     [[0.5, -0.5, 0.5, -0.5]]
     """
-    if psi.flags.c_contiguous and psi.dtype == complex:
+    if psi.flags.c_contiguous and psi.dtype in (np.complex128, np.complex64):
         return kernels.apply_diag(psi, n, np.asarray(diag), tuple(qubits))
     # strided or non-complex input: work on a C-ordered complex copy and write it back
     if not np.iscomplexobj(psi) and np.any(np.imag(diag)):
@@ -135,7 +150,8 @@ def _table(prog, phi, shared):
 
 
 def _solo(step, cur, other, n, phi, inserts, shared):
-    """A gate that is never fused: Hamiltonian or function gates, wide gates, kept columns."""
+    """A gate that is never fused: Hamiltonian or function gates, wide gates, kept columns.
+    Returns ``(state, spare)``; with ``other is cur`` the gate is applied in place."""
     from ..circuits.gates import hamiltonian_matrices
 
     g = step.op.gate
@@ -167,7 +183,7 @@ def _external(step, cur, n):
                          f"{getattr(obj, 'kind', None)!r}) and has no apply_states(psi, n, qubits) "
                          "method: the statevector engine cannot apply it; a circuit with noise "
                          "channels has no pure state and runs on the density-matrix path")
-    return np.ascontiguousarray(fn(cur, n, tuple(step.op.qubits)), dtype=complex)
+    return np.ascontiguousarray(fn(cur, n, tuple(step.op.qubits)), dtype=cur.dtype)
 
 
 def _run_small(circuit, phi, psi, out):
@@ -180,20 +196,40 @@ def _run_small(circuit, phi, psi, out):
         raise ValueError(f"out must be a complex array of shape {(B, 2 ** n)}; got {out.shape} {out.dtype}")
     if psi is not None and np.shape(psi) != (B, 2 ** n):
         raise ValueError(f"psi must have shape {(B, 2 ** n)}; got {np.shape(psi)}")
-    guard_states(n, B * (run_states() - (out is not None)), f"a run of {B} row(s)")
+    guard_states(n, run_states(circuit, B) - B * (out is not None), f"a run of {B} row(s)")
     return small.run(circuit, phi, psi, out)
 
 
-def run_states() -> int:
-    """States per row that `run` keeps alive at its peak: its two alternating buffers (the
-    result is one of them; initial states ``psi``, when given, are the caller's on top).
-    The memory guard's estimate (`qgradlib.engine.memory`): change it with `run`."""
-    return 2
+def run_states(circuit, rows: int = 1) -> float:
+    """States that `run` keeps alive at its peak on ``rows`` rows: two alternating buffers a
+    row, or, for a batch run in place (`IN_PLACE`), one a row and the pieces of the widest
+    in-place kernel (`qgradlib.engine.kernels.in_place_scratch`). The result is one of them;
+    initial states ``psi``, when given, are the caller's on top. In states of the run's own
+    dtype. The memory guard's estimate (`qgradlib.engine.memory`): change it with `run`.
+
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> run_states(qg.Circuit(4).h(0)), run_states(qg.Circuit(24).h(0)) < 1.05
+    (2.0, True)
+    """
+    n = circuit.n_qubits
+    N = 2 ** n
+    if rows * N < IN_PLACE:
+        return 2.0 * rows
+    ops = len(circuit)
+    memo = circuit.__dict__.setdefault("_memo_run_scratch", {})
+    hit = memo.get(rows)
+    if hit is None or hit[0] != ops:
+        sets = {tuple(sorted(op.qubits)) for op in circuit.operations}
+        amps = max((kernels.in_place_scratch(n, q, rows) for q in sets), default=0)
+        hit = memo[rows] = (ops, rows + amps / N)
+    return hit[1]
 
 
 @limited
 def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=frozenset(),
-        out=None) -> np.ndarray:
+        out=None, dtype=np.complex128) -> np.ndarray:
     """Final states for gate angles ``phi`` of shape (B, G); returns (B, 2**n).
 
     Parameters
@@ -211,7 +247,10 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
     keep : set of int
         Columns not to fuse with their neighbours.
     out : ndarray, shape (B, 2**n), optional
-        Where to leave the final states (it is also used as one of the two buffers).
+        Where to leave the final states (it is also used as one of the two buffers, or as
+        the only one in place).
+    dtype : {numpy.complex128, numpy.complex64}
+        Amplitude dtype of the states (complex64: single precision throughout).
 
     Examples
     --------
@@ -220,6 +259,8 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
     >>> c = qg.Circuit(1).ry(0)
     >>> run(c, np.array([[np.pi]])).real.round(12).tolist()
     [[0.0, 1.0]]
+    >>> run(c, np.array([[np.pi]]), dtype=np.complex64).dtype.name
+    'complex64'
     """
     phi = np.asarray(phi, dtype=float)
     if phi.ndim != 2:
@@ -227,7 +268,11 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
     B = phi.shape[0]
     n = circuit.n_qubits
     fuse = True if fuse is None else bool(fuse)
-    if fuse and small.eligible(circuit, inserts):
+    dtype = np.dtype(dtype)
+    if dtype not in (np.complex128, np.complex64):
+        raise ValueError(f"dtype must be complex128 or complex64; got {dtype}")
+    if fuse and dtype == np.complex128 and small.eligible(circuit, inserts):
+        # the lean small-state loop is double precision; single precision takes the kernels
         return _run_small(circuit, phi, psi, out)
     solo = set(keep)
     if inserts is not None:
@@ -242,26 +287,31 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
         prog = program(circuit, fuse, frozenset(solo), bake_fixed_angles=False)
     shared = np.all(phi == phi[:1], axis=0) if B > 1 else np.ones(phi.shape[1], dtype=bool)
     N = 2 ** n
-    if out is not None and (out.shape != (B, N) or out.dtype != complex):
-        raise ValueError(f"out must be a complex array of shape {(B, N)}; got {out.shape} {out.dtype}")
-    # both buffers are allocated here unless the caller gives one of them
-    guard_states(n, B * (run_states() - (out is not None)), f"a run of {B} row(s)")
+    if out is not None and (out.shape != (B, N) or out.dtype != dtype):
+        raise ValueError(f"out must be a {dtype.name} array of shape {(B, N)}; got {out.shape} {out.dtype}")
+    # the buffers are allocated here unless the caller gives one of them
+    guard_states(n, run_states(circuit, B) - B * (out is not None), f"a run of {B} row(s)",
+                 dtype.itemsize)
     if psi is None:
-        cur = out if out is not None else zero_states(n, B)
+        cur = out if out is not None else zero_states(n, B, dtype)
         if out is not None:
             cur[...] = 0
             cur[:, 0] = 1
     else:
         if np.shape(psi) != (B, N):
             raise ValueError(f"psi must have shape {(B, N)}; got {np.shape(psi)}")
-        cur = np.array(psi, dtype=complex) if out is None else out
+        cur = np.array(psi, dtype=dtype) if out is None else out
         if out is not None:
             cur[...] = psi
-    other = None
+    # in place, `other` is `cur` itself: every kernel then writes into the state it reads
+    in_place = B * N >= IN_PLACE
+    other = cur if in_place else None
     table = _table(prog, phi, shared)
     for s in prog.steps:
         if s.kind == "external":
             cur = _external(s, cur, n)
+            if in_place:
+                other = cur
             continue
         if s.kind != "diag" and other is None:
             other = np.empty_like(cur)

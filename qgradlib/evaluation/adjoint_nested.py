@@ -32,6 +32,7 @@ from autograd.extend import defvjp, primitive
 from autograd.tracer import getval
 
 from ..engine.adjoint import adjoint_gradient
+from ..engine.kernels import state_dtype
 from ..engine.measure import apply_observables, observable_scratch
 from ..engine.statevector import apply_diagonal
 from ..rules.plans import first_order_points
@@ -86,7 +87,8 @@ def adjoint_vjp(phi, spec, g):
     scratch = observable_scratch(spec.circuit.n_qubits, spec.observables) if spec.kind == "expect" else 0.0
     return adjoint_gradient(spec.circuit, phi, columns=spec.columns,
                             observable_into=_weighted_observable(spec, g),
-                            psi=_take_states(spec, phi), fuse=spec.fuse, observable_scratch=scratch)
+                            psi=_take_states(spec, phi), fuse=spec.fuse, observable_scratch=scratch,
+                            dtype=state_dtype(spec.precision))
 
 
 def check_nested(spec):

@@ -36,6 +36,7 @@ from . import distribute, ledger
 from ..circuits.circuit import Circuit, check_inputs, check_theta
 from ..circuits.transform import qubit_sequence
 from ..engine import memory
+from ..engine.kernels import state_dtype
 from .adjoint_nested import adjoint_jacobian, adjoint_vjp, check_nested, keep_states
 from ..engine.density import density_states, run_density
 from ..engine.statevector import run, run_states
@@ -78,6 +79,7 @@ class Spec:
     executor: object = None        # where the unique rows run (qgradlib.evaluation.distribute); None: here
     chunk: int | None = None       # rows per task on the executor
     timeout: float | None = None   # seconds to wait for the executor's chunks of one batch
+    precision: str = "double"      # amplitudes complex128 ("double") or complex64 ("single")
 
     @property
     def n_out(self):
@@ -267,6 +269,10 @@ def _fd_jacobian(ans, phi, spec, inserts):
         h = check_step(spec.step, order)
     elif spec.shots is not None:
         h = 0.1
+    elif spec.precision == "single":
+        # single-precision values round at ~1e-7: the step that balances rounding and
+        # truncation is eps**(1/3) (central, first order), about 5e-3
+        h = float(np.finfo(np.float32).eps ** (1.0 / (order + 2)))
     else:
         h = 1e-5 if order == 1 else float(np.finfo(float).eps ** (1.0 / (order + 2)))
     steps = (h, -h) if spec.stencil == "central" else (h,)
@@ -365,6 +371,16 @@ def _check_fuse(fuse):
     return bool(fuse)
 
 
+def _check_precision(precision, circuit):
+    """``precision`` checked: "double" or "single" (single: the statevector engine only)."""
+    state_dtype(precision)
+    if precision == "single" and circuit.has_noise:
+        raise ValueError("precision='single' is for pure states: a circuit with noise channels "
+                         "runs on the density-matrix path, in double precision only; use "
+                         "precision='double'")
+    return precision
+
+
 def _check_shots(shots):
     if shots is None:
         return None
@@ -435,7 +451,8 @@ def _check_qubits(qubits, n):
 
 def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, gradient="shift",
           shift=None, step=None, stencil="central", splits=1, memory_budget=None,
-          allocation="uniform", readout=None, fuse=True, executor=None, chunk=None, timeout=None):
+          allocation="uniform", readout=None, fuse=True, executor=None, chunk=None, timeout=None,
+          precision="double"):
     """The `Spec` of one call, its options checked; refuses a circuit that cannot fit.
 
     Exact evaluations here (no shots, executor or readout model) reuse the checked `Spec`
@@ -446,7 +463,7 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
     key = None
     if shots is None and executor is None and readout is None:
         opts = (kind, qubits, gradient, shift, step, stencil, splits, memory_budget, allocation,
-                fuse, chunk, timeout)
+                fuse, chunk, timeout, precision)
         try:
             # the type beside each value: True == 1 as dict keys, but only one is valid
             key = (tuple(id(o) for o in observables),) + tuple((type(v), v) for v in opts)
@@ -461,7 +478,8 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
         hit = memo.get(key)
         if hit is not None and all(a is b for a, b in zip(hit[0], observables)):
             template, peak = hit[1], hit[2]
-            memory.guard_states(snap.n_qubits, peak, "evaluating 1 circuit(s)", density=snap.has_noise)
+            memory.guard_states(snap.n_qubits, peak, "evaluating 1 circuit(s)",
+                                state_dtype(template.precision).itemsize, density=snap.has_noise)
             fresh = object.__new__(Spec)
             fresh.__dict__.update(template.__dict__)
             return fresh
@@ -469,7 +487,7 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
                              seed=None, gradient=gradient, shift=shift, step=step, stencil=stencil,
                              splits=splits, memory_budget=memory_budget, allocation=allocation,
                              readout=readout, fuse=fuse, executor=executor, chunk=chunk,
-                             timeout=timeout)
+                             timeout=timeout, precision=precision)
         if len(memo) >= 8:      # a few observables and option sets a circuit
             memo.clear()
         memo[key] = (tuple(observables), spec, peak_states(spec, 1))
@@ -480,12 +498,12 @@ def _spec(circuit, kind, *, observables=(), qubits=None, shots=None, seed=None, 
                          seed=seed, gradient=gradient, shift=shift, step=step, stencil=stencil,
                          splits=splits, memory_budget=memory_budget, allocation=allocation,
                          readout=readout, fuse=fuse, executor=executor, chunk=chunk,
-                         timeout=timeout)
+                         timeout=timeout, precision=precision)
 
 
 def _checked_spec(circuit, kind, *, observables, qubits, shots, seed, gradient, shift, step,
                   stencil, splits, memory_budget, allocation, readout, fuse, executor, chunk,
-                  timeout):
+                  timeout, precision):
     if not isinstance(gradient, str):
         raise TypeError(f"gradient must be a string, one of {METHODS}; got {type(gradient).__name__}")
     if gradient not in METHODS:
@@ -534,16 +552,17 @@ def _checked_spec(circuit, kind, *, observables, qubits, shots, seed, gradient, 
     spec = Spec(circuit, kind, observables, qubits, shots,
                 rng if shots is not None else None, gradient, shift, step, stencil,
                 int(splits), memory_budget, columns, max(1, settings), allocation, readout, plan,
-                _check_fuse(fuse), executor=executor, chunk=chunk, timeout=timeout)
+                _check_fuse(fuse), executor=executor, chunk=chunk, timeout=timeout,
+                precision=_check_precision(precision, circuit))
     # a guard at the call that asks for the work, not deep inside the engine: one circuit
     # must fit (batches are then cut into chunks that fit)
     guard_rows(spec, 1, "evaluating")
     return spec
 
 
-def _guard(circuit):
+def _guard(circuit, dtype):
     """Refuse a final state (`state`) that cannot be computed here."""
-    memory.guard_states(circuit.n_qubits, run_states(), "the final state")
+    memory.guard_states(circuit.n_qubits, run_states(circuit), "the final state", dtype.itemsize)
 
 
 def _run(spec, theta, inputs=None):
@@ -570,7 +589,8 @@ def _traced(spec, theta, inputs):
 # -- public functions ---------------------------------------------------------------------------
 def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, gradient="shift",
            shift=None, step=None, stencil="central", splits=1, memory=None, allocation="uniform",
-           readout=None, fuse=True, executor=None, chunk=None, timeout=None, initial=None):
+           readout=None, fuse=True, executor=None, chunk=None, timeout=None, initial=None,
+           precision="double"):
     """Expectation value(s) of ``observables`` after ``circuit`` at parameters ``theta``.
 
     Differentiable with autograd (`grad`, `jacobian`, `hessian`, ...); the derivative is
@@ -611,6 +631,12 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
         sampled bits carry it; without, the exact value under that readout model.
     fuse : bool
         Gate fusion in the engine (on by default; it changes results by rounding only).
+    precision : {"double", "single"}
+        Amplitudes of the simulated states: complex128 (default) or complex64, which halves
+        the memory (a 30-qubit state in 8 GiB). Values and derivatives (exact rules, run on
+        single-precision states) are returned as float64 computed from those states; they
+        differ from double precision by rounding, about ``sqrt(gates) * 6e-8`` times the
+        observable's norm (see docs/performance.md). Pure states only (no noise channels).
     executor : concurrent.futures.Executor or dask.distributed.Client, optional
         Where the distinct circuits of every evaluation (values and shift plans) run, in
         chunks (see `qgradlib.evaluation.distribute`); results equal the serial ones.
@@ -662,7 +688,8 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
         vals = expect(circuit, inner, theta, shots=shots, seed=seed, gradient=gradient,
                       shift=shift, step=step, stencil=stencil, splits=splits, memory=memory,
                       allocation=allocation, readout=readout, fuse=fuse, executor=executor,
-                      chunk=chunk, timeout=timeout, initial=initial, inputs=inputs)
+                      chunk=chunk, timeout=timeout, initial=initial, inputs=inputs,
+                      precision=precision)
         out = [sum(w * vals[..., j] for j, w in row) for row in weights]
         return out[0] if single else anp.stack(out, axis=-1)
     circuit = prepared(circuit, initial)
@@ -672,7 +699,7 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
     spec = _spec(circuit, "expect", observables=obs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
                  allocation=allocation, readout=readout, fuse=fuse, executor=executor, chunk=chunk,
-                 timeout=timeout)
+                 timeout=timeout, precision=precision)
     vals, batched = _run(spec, theta, inputs)
     if single:
         vals = vals[:, 0]
@@ -682,13 +709,13 @@ def expect(circuit, observables, theta, *, inputs=None, shots=None, seed=None, g
 def probabilities(circuit, theta, qubits=None, *, inputs=None, shots=None, seed=None,
                   gradient="shift", shift=None, step=None, stencil="central", splits=1,
                   memory=None, readout=None, fuse=True, executor=None, chunk=None, timeout=None,
-                  initial=None):
+                  initial=None, precision="double"):
     """Probabilities of the outcomes on ``qubits`` (first listed = most significant bit).
 
     Differentiable like `expect`. Returns shape (2**k,) or (B, 2**k) (or (N, 2**k) for a data
     set ``inputs``). ``readout`` (per-qubit flip probabilities) is applied to the outcome
-    distribution before any sampling; the other options (``initial=`` included) are those
-    of `expect`.
+    distribution before any sampling; the other options (``initial=`` and ``precision=``
+    included) are those of `expect`.
 
     Examples
     --------
@@ -705,12 +732,14 @@ def probabilities(circuit, theta, qubits=None, *, inputs=None, shots=None, seed=
     inputs = check_inputs(circuit, inputs, theta)
     spec = _spec(circuit, "probs", qubits=qs, shots=shots, seed=seed, gradient=gradient,
                  shift=shift, step=step, stencil=stencil, splits=splits, memory_budget=memory,
-                 readout=readout, fuse=fuse, executor=executor, chunk=chunk, timeout=timeout)
+                 readout=readout, fuse=fuse, executor=executor, chunk=chunk, timeout=timeout,
+                 precision=precision)
     vals, batched = _run(spec, theta, inputs)
     return vals if batched else vals[0]
 
 
-def state(circuit, theta, *, inputs=None, fuse=True, initial=None) -> np.ndarray:
+def state(circuit, theta, *, inputs=None, fuse=True, initial=None,
+          precision="double") -> np.ndarray:
     """The final statevector, complex128 of shape (2**n,) or (B, 2**n). Not differentiable.
 
     ``inputs`` (n_inputs,) or (N, n_inputs) is the data point or set the circuit reads, as in
@@ -718,7 +747,8 @@ def state(circuit, theta, *, inputs=None, fuse=True, initial=None) -> np.ndarray
 
     A circuit with noise channels has no pure state: use `density_matrix`. ``fuse`` switches
     gate fusion in the engine (results agree to rounding); ``initial`` is the starting state,
-    as in `expect`.
+    as in `expect`. With ``precision="single"`` the state is simulated and returned as
+    complex64 (half the memory; amplitudes within rounding of double precision).
 
     Examples
     --------
@@ -726,18 +756,21 @@ def state(circuit, theta, *, inputs=None, fuse=True, initial=None) -> np.ndarray
     >>> import qgradlib as qg
     >>> qg.state(qg.Circuit(1).h(0), np.zeros(0)).round(4).tolist()
     [(0.7071+0j), (0.7071+0j)]
+    >>> qg.state(qg.Circuit(1).h(0), np.zeros(0), precision="single").dtype.name
+    'complex64'
     """
     _check_circuit(circuit)
     circuit = prepared(circuit, initial)
     if circuit.has_noise:
         raise ValueError("circuit has noise channels, so its final state is mixed: use "
                          "qgradlib.density_matrix(circuit, theta) instead of state()")
+    dtype = state_dtype(_check_precision(precision, circuit))
     phi = _plain_angles(circuit, theta, inputs)
-    _guard(circuit)
+    _guard(circuit, dtype)
     fuse = _check_fuse(fuse)
     if phi.ndim == 2 and phi.shape[0] == 0:     # an empty batch has an empty result
-        return np.zeros((0, 2 ** circuit.n_qubits), dtype=complex)
-    psi = run(circuit, np.atleast_2d(phi), fuse=fuse)
+        return np.zeros((0, 2 ** circuit.n_qubits), dtype=dtype)
+    psi = run(circuit, np.atleast_2d(phi), fuse=fuse, dtype=dtype)
     return psi if phi.ndim == 2 else psi[0]
 
 
@@ -775,12 +808,14 @@ def density_matrix(circuit, theta, *, inputs=None, initial=None) -> np.ndarray:
 
 
 def sample(circuit, theta, shots, seed=None, *, inputs=None, readout=None,
-           initial=None) -> np.ndarray:
+           initial=None, precision="double") -> np.ndarray:
     """Basis-state indices of ``shots`` readouts of all qubits (big-endian), shape (shots,)
     or (B, shots) (or (N, shots) for a data set ``inputs``, as in `expect`).
 
     Noisy circuits are sampled from the diagonal of their density matrix. ``readout``
     (per-qubit flip probabilities in [0, 0.5]) flips the read bits with those probabilities.
+    ``precision="single"`` simulates the state in complex64 (see `expect`); the outcome
+    probabilities are computed from it in float64.
 
     Examples
     --------
@@ -797,10 +832,11 @@ def sample(circuit, theta, shots, seed=None, *, inputs=None, readout=None,
     rng = make_rng(seed)
     flips = check_readout(readout, circuit.n_qubits)
     n = circuit.n_qubits
+    _check_precision(precision, circuit)
     if circuit.has_noise:
         states = density_matrix(circuit, theta, inputs=inputs).reshape(-1, 4 ** n)
     else:
-        states = np.atleast_2d(state(circuit, theta, inputs=inputs))
+        states = np.atleast_2d(state(circuit, theta, inputs=inputs, precision=precision))
     p = apply_readout(outcome_distribution(states, n, density=circuit.has_noise), n, flips)
     # a row's draw holds a float and an int a shot, the drawn rows and their stack an int a
     # shot each: refuse what cannot fit

@@ -8,6 +8,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..engine import memory
+from ..engine.kernels import state_dtype
 from ..engine.branch import branched_states, run_branched, run_prefix_tree
 from ..engine.density import density_expectations, density_states, marginal, run_density
 from ..engine.measure import expectation_scratch, expectations
@@ -40,22 +41,27 @@ def peak_states(spec, rows: int) -> float:
     else:
         scratch = 0.0 if noisy else expectation_scratch(n, spec.observables)
     engine = rows * density_states() if noisy else (
-        branched_states(rows) if rows > 1 else run_states())
+        branched_states(rows) if rows > 1 else run_states(spec.circuit))
     return max(engine, rows * (1.0 + scratch))
+
+
+def _amplitude_bytes(spec):
+    """Bytes of one amplitude of the states this spec runs (complex128 or complex64)."""
+    return state_dtype(spec.precision).itemsize
 
 
 def guard_rows(spec, rows: int, what: str = "evaluating") -> int:
     """Refuse (`qgradlib.engine.memory.StateTooLarge`) a chunk of ``rows`` rows that cannot fit."""
     c = spec.circuit
     return memory.guard_states(c.n_qubits, peak_states(spec, rows), f"{what} {rows} circuit(s)",
-                               density=c.has_noise)
+                               _amplitude_bytes(spec), density=c.has_noise)
 
 
 def _chunk(spec, total):
     """Rows per chunk: as many as fit in ``spec.memory`` (default a quarter of what is
     available), at least one, and never more than fit in what is available."""
     per_row = memory.state_bytes(spec.circuit.n_qubits, peak_states(spec, 2) / 2,
-                                 density=spec.circuit.has_noise) - memory.OVERHEAD
+                                 _amplitude_bytes(spec), density=spec.circuit.has_noise) - memory.OVERHEAD
     # a batch far below what was available a moment ago needs no new reading of the limits
     avail = memory.recent_available(per_row * total + memory.OVERHEAD)
     budget = min(avail, spec.memory) if spec.memory is not None else avail // 4
@@ -88,16 +94,17 @@ def _measure_rows(phi, spec, inserts, errors, keep):
             # of one trunk; a device would still run each circuit (the ledger counted them).
             # Small states run as one batch instead: there the trunk's bookkeeping costs more
             # than the gates it saves.
+            dtype = state_dtype(spec.precision)
             lean = (spec.fuse and ins is None and spec.circuit.n_qubits <= BATCH_QUBITS
                     and (hi - lo) * len(spec.circuit) < BRANCH_WORK
                     and small.eligible(spec.circuit))
             if not lean:
-                states = run_branched(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse)
+                states = run_branched(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse, dtype=dtype)
             if states is None and ins is None and (spec.circuit.n_inputs or not lean):
                 # rows of many data points: a tree of shared prefixes, one per point
-                states = run_prefix_tree(spec.circuit, phi[lo:hi], fuse=spec.fuse)
+                states = run_prefix_tree(spec.circuit, phi[lo:hi], fuse=spec.fuse, dtype=dtype)
             if states is None:
-                states = run(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse)
+                states = run(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse, dtype=dtype)
         out[lo:hi], var[lo:hi] = _readout(states, spec, noisy)
     res = (out, var) if errors else out
     if keep:

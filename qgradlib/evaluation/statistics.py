@@ -48,7 +48,8 @@ def variance(circuit, observable, theta, **options):
     return vals[..., 0] - vals[..., 1] ** 2
 
 
-def counts(circuit, theta, shots, seed=None, *, inputs=None, readout=None, initial=None):
+def counts(circuit, theta, shots, seed=None, *, inputs=None, readout=None, initial=None,
+           precision="double"):
     """Bitstring counts of ``shots`` readouts of all qubits: ``{"0110": 12, ...}``.
 
     Qubit 0 is the leftmost character. The draws are those of `sample` with the same
@@ -56,6 +57,7 @@ def counts(circuit, theta, shots, seed=None, *, inputs=None, readout=None, initi
     order and only those seen appear. For theta of shape (B, n_params) (or a data set
     ``inputs`` of N points), a list of dicts, one per row.
     Simulated shots, not a device's: the counts follow the exact distribution.
+    ``precision`` is that of `sample` ("double" or "single").
 
     Examples
     --------
@@ -65,7 +67,8 @@ def counts(circuit, theta, shots, seed=None, *, inputs=None, readout=None, initi
     >>> sorted(qg.counts(c, np.zeros(0), shots=100, seed=3))
     ['00', '11']
     """
-    idx = sample(circuit, theta, shots, seed, inputs=inputs, readout=readout, initial=initial)
+    idx = sample(circuit, theta, shots, seed, inputs=inputs, readout=readout, initial=initial,
+                 precision=precision)
     n = circuit.n_qubits
 
     def table(row):
