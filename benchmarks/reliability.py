@@ -92,7 +92,7 @@ _CHILD = textwrap.dedent("""
     cases = {
         "forward": lambda: qg.expect(ry(25), Z(25), np.array([0.3])),
         "adjoint": lambda: grad(lambda t: qg.expect(ry(23), Z(23), t, gradient="adjoint"))(np.array([0.3])),
-        "shift": lambda: grad(lambda t: qg.expect(ry(24, 2), Z(24), t))(np.array([0.3, 0.2])),
+        "shift": lambda: grad(lambda t: qg.expect(ry(25, 2), Z(25), t))(np.array([0.3, 0.2])),
         "density": lambda: qg.expect(noisy(12), Z(12), np.array([0.3])),
         "fits": lambda: grad(lambda t: qg.expect(ry(22, 2), Z(22), t))(np.array([0.3, 0.2]))[0],
     }
@@ -128,7 +128,7 @@ def _guard(name):
 
 for _key, _text in [("forward", "forward pass of 25 qubits (one 512 MiB state, in place, does not fit)"),
                     ("adjoint", "adjoint gradient of 23 qubits (the value fits, its four states do not)"),
-                    ("shift", "shift-rule gradient of 24 qubits"),
+                    ("shift", "shift-rule gradient of 25 qubits"),
                     ("density", "density matrix of 12 qubits (noise channel)")]:
     case("memory guard under RLIMIT_AS", _text)(lambda _key=_key: _guard(_key))
 
