@@ -83,7 +83,7 @@ def adjoint_forward(sz, repeats):
     adj = lambda: grad(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)  # noqa: E731
     t, b = paired(adj, fwd, repeats, sz["min_time"])
     return _result("adjoint_forward", f"adjoint gradient / forward value, n = {n}, {L} layers "
-                   f"(m = {c.n_params})", 4.0, "<=", t / b, seconds=t, m=c.n_params,
+                   f"(m = {c.n_params})", 3.0, "<=", t / b, seconds=t, m=c.n_params,
                    seconds_adjoint=float(np.median(t)), seconds_forward=float(np.median(b)))
 
 

@@ -18,7 +18,7 @@ from functools import lru_cache
 import numpy as np
 
 from .threads import engine_threads
-from . import kernels, small
+from . import kernels, overlaps, small
 from .memory import guard_states
 from .program import DIAG_WIDTH, program, step_matrix
 from .statevector import _table, run
@@ -292,17 +292,19 @@ def _backward(prog, both, phi, n, P, G, want, observable_into, apply_observable)
         if len(phases) < 2 or len({q for b in phases for q in b.op.qubits}) > DIAG_WIDTH:
             phases = []
         rest = [b for b in block if b not in phases]
-        tail = [b for b in rest if _in_tail(b, n)]
-        S = _tail_overlaps(both, n, P) if len(tail) > 1 else None
-        for b in rest:
-            if S is not None and b in tail:
-                _tail_derivative(b, S, n, grad)
-            else:
-                _derivative(b, both, buf, n, phi, P, grad)
+        # constant diagonal steps right before the block (CZ ladders): their phases go into
+        # the block's window products where they fit, instead of passes of their own
+        after = []
+        while j >= 0 and _constant_diagonal(steps[j]):
+            after.append(steps[j])
+            j -= 1
+        plan = _undo_plan(rest, phi, shared, n, after)
+        for b in _window_derivatives(rest, both, n, P, grad, skip=plan["fused"]):
+            _derivative(b, both, buf, n, phi, P, grad)
         if phases:
             _phase_derivatives(phases, both, buf, n, P, grad)
             _undo_phases(phases, both, n, phi, shared, P)
-        both, buf = _undo_block(rest, both, buf, n, phi, shared, table, P)
+        both, buf = _undo_block(rest, both, buf, n, phi, shared, table, P, plan, grad)
         i = j
     return grad
 
@@ -433,6 +435,61 @@ def _tail_overlaps(both, n, P):
     return out
 
 
+def _window_plan(s, n):
+    """``(lo, w, kind, Gw)`` of a trainable step whose derivative an overlap matrix of its
+    window can give: kind "real" (a generator with purely imaginary entries, read from
+    ``Re S``) or "tail" (any generator, in the last window, from the complex S); None when
+    neither applies. ``Gw`` is the generator laid out on the window (memoised on the step)."""
+    hit = s.__dict__.get("_memo_window")
+    if hit is not None and hit[0] == n:
+        return hit[1]
+    plan = None
+    g = s.op.gate
+    if g.kind == "generator" and not g.diagonal:
+        qs = tuple(s.op.qubits)
+        lo, w = overlaps.window_of(n, max(qs))
+        if min(qs) >= lo:
+            G, sq = kernels.sort_qubits(np.asarray(g.generator, dtype=complex), qs)
+            Gw = kernels.widen(G, [q - lo for q in sq], w)
+            if lo + w == n and w > 1:
+                plan = (lo, w, "tail", Gw)
+            elif not np.any(np.real(G)) and 2 ** (n - lo - w) >= overlaps.MIN_STRIDE:
+                plan = (lo, w, "real", np.ascontiguousarray(np.imag(Gw)))
+    s.__dict__["_memo_window"] = (n, plan)
+    return plan
+
+
+def _window_derivatives(block, both, n, P, grad, skip=()):
+    """Derivatives of the block's gates that share a window with another, from one overlap
+    matrix a window (`qgradlib.engine.overlaps`); returns the gates left to `_derivative`.
+    The block's gates commute, so all are read from the same bra and ket. Gates in the
+    windows ``skip`` are left out (their undo reads them, `_undo_block`)."""
+    by_window: dict = {}
+    left = []
+    for b in block:
+        plan = _window_plan(b, n)
+        if plan is None:
+            left.append(b)
+        elif plan[:2] not in skip:
+            by_window.setdefault(plan[:3], []).append((b, plan[3]))
+    lam, psi = both[P:], both[:P]
+    for (lo, w, kind), members in by_window.items():
+        if len(members) < 2:
+            left.extend(b for b, _ in members)   # one gate: its own dot products read less
+            continue
+        if kind == "tail":
+            S = overlaps.tail_overlap(lam, psi, n, w)
+            for b, Gw in members:
+                # <lam|G|psi> = sum_ij G_ij S_ij
+                grad[:, b.column] = 2 * np.imag(np.einsum("ij,pij->p", Gw, S))
+        else:
+            S = overlaps.real_overlap(lam, psi, n, lo, w)
+            for b, Gi in members:
+                # Im sum_ij G_ij S_ij = sum_ij Im(G_ij) Re(S_ij) for purely imaginary G
+                grad[:, b.column] = 2 * np.einsum("ij,pij->p", Gi, S)
+    return left
+
+
 def _tail_derivative(s, S, n, grad):
     g = s.op.gate
     G, sq = kernels.sort_qubits(np.asarray(g.generator), s.op.qubits)
@@ -489,32 +546,184 @@ def _inverses(block, phi, shared):
     return out
 
 
-def _undo_block(block, both, buf, n, phi, shared, table, P):
+def _constant_diagonal(s):
+    """A fused diagonal step whose phases do not depend on the angles."""
+    return s.kind == "diag" and s.matrix is not None and not s.varies
+
+
+def _undo_plan(block, phi, shared, n, after):
+    """How `_undo_block` undoes ``block`` and the constant diagonal steps ``after``: the
+    single-qubit matrices, the windows undone as one product (and their realness), the
+    phases moved into them, what is left, and the windows whose derivatives the undo reads
+    (``fused``: {(lo, w): [(step, Im G on the window)]})."""
     pairable = {b.op.qubits[0]: b for b in block
                 if len(b.op.qubits) == 1 and b.op.gate.kind == "generator" and not b.op.gate.diagonal}
     inv = _inverses(list(pairable.values()), phi, shared)
-    both, buf = _undo_qubits({q: inv[id(b)] for q, b in pairable.items()}, both, buf, n, P)
+    mats = {q: inv[id(b)] for q, b in pairable.items()}
+    left, phases = list(after), {}
+    found, real = _undo_windows(mats, n)
+    if after and len(pairable) == len(block):
+        # only single-qubit gates in the block: a phase inside a window of them may be
+        # applied right after that window's product (nothing else there acts before it)
+        phases, left = _absorb_phases(found, real, after, n)
+    fused = {}
+    for (lo, w), r in zip(found, real):
+        members = [(b, _window_plan(b, n)) for q, b in pairable.items() if lo <= q < lo + w]
+        if r and lo + w < n and all(pl is not None and pl[:3] == (lo, w, "real") for _, pl in members):
+            fused[(lo, w)] = [(b, pl[3]) for b, pl in members]
+    return {"pairable": pairable, "mats": mats, "found": found, "phases": phases, "left": left,
+            "fused": fused}
+
+
+def _undo_block(block, both, buf, n, phi, shared, table, P, plan, grad):
+    """Undo a block of commuting trainable gates, then the constant diagonal steps after it
+    (the ones just before the block in the circuit), as `_undo_plan` says; the derivatives
+    of the fused windows' gates are read on the way (into ``grad``)."""
+    pairable, mats, left = plan["pairable"], plan["mats"], plan["left"]
+    found = []
+    for lo, w in plan["found"]:
+        members = plan["fused"].get((lo, w))
+        if members is None:
+            found.append((lo, w))
+            continue
+        # the window's derivatives from its input (the other windows' products act on other
+        # qubits and commute with its generators), in the same read as its product
+        m = _window_matrix(mats, lo, w, both.dtype, plan["phases"].get((lo, w)))
+        S = overlaps.real_overlap_and_apply(both, P, n, lo, w, m.real, buf)
+        both, buf = buf, both
+        for b, Gi in members:
+            grad[:, b.column] = 2 * np.einsum("ij,pij->p", Gi, S)
+        for q in range(lo, lo + w):
+            mats.pop(q, None)
+    both, buf = _undo_qubits(mats, both, buf, n, P, plan["phases"], found)
     # the block's gates commute: the others may be undone after the single-qubit ones
     for b in block:
         if pairable.get(b.op.qubits[0]) is not b or len(b.op.qubits) != 1:
             both, buf = _undo_step(b, both, buf, n, phi, shared, table, P)
+    for f in left:
+        if isinstance(f, tuple):       # phases of several steps, merged (they commute)
+            kernels.apply_diag(both, n, f[1], f[0])
+        else:
+            both, buf = _undo_step(f, both, buf, n, phi, shared, table, P)
     return both, buf
 
 
-def _undo_qubits(mats, both, buf, n, P):
+def _absorb_phases(found, real, after, n):
+    """Move the factors of the constant diagonal steps ``after`` that lie inside a window of
+    `_undo_windows` into that window's product. Returns ``({(lo, w): (D,) phases}, left)``
+    (the phases undone: conjugated) with ``left`` what remains to apply after the windows:
+    the steps untouched, or their other factors merged into ``(qubits, phases)`` diagonals."""
+    # the same steps and windows come back on every backward pass: memoised on the latest step
+    key = (n, tuple(map(id, after)), tuple(found), real)
+    hit = after[0].__dict__.get("_memo_absorb")
+    if hit is not None and hit[0] == key:
+        return hit[1]
+    out = _absorbed(after, n, found, dict(zip((lo for lo, _ in found), real)))
+    after[0].__dict__["_memo_absorb"] = (key, out)
+    return out
+
+
+def _absorbed(after, n, found, real):
+    windows = {}
+    for lo, w in found:
+        windows.update({q: (lo, w) for q in range(lo, lo + w)})
+    absorbed = {}
+    rest = []
+    for s in after:
+        for f in s.factors:
+            d = np.conj(np.asarray(f.cached))
+            d, sq = kernels.sort_qubits(d, f.qubits, diag=True)
+            home = {windows.get(q) for q in sq}
+            lo_w = home.pop() if len(home) == 1 else None
+            # a complex phase would make a real window product complex (four times the
+            # flops); the last window's product is complex anyway
+            if lo_w is None or (np.any(np.imag(d)) and real[lo_w[0]] and lo_w[0] + lo_w[1] < n):
+                rest.append((d, sq))
+                continue
+            lo, w = lo_w
+            shape = [2 if lo + i in sq else 1 for i in range(w)]
+            full = np.broadcast_to(d.reshape(shape), (2,) * w).reshape(-1)
+            absorbed[lo_w] = absorbed.get(lo_w, 1) * full
+    if not absorbed:
+        return {}, list(after)
+    # the other factors, merged into as few diagonals of at most DIAG_WIDTH qubits as go
+    groups = []
+    for d, sq in rest:
+        if groups and len(set(groups[-1][0]) | set(sq)) <= DIAG_WIDTH:
+            groups[-1][0].update(sq)
+            groups[-1][1].append((d, sq))
+        else:
+            groups.append((set(sq), [(d, sq)]))
+    left = []
+    for qs, members in groups:
+        union = tuple(sorted(qs))
+        total = np.ones((2,) * len(union), dtype=complex)
+        for d, sq in members:
+            total = total * d.reshape([2 if q in sq else 1 for q in union])
+        left.append((union, total.reshape(-1)))
+    return absorbed, left
+
+
+_EYE = np.eye(2)
+
+
+def _undo_windows(mats, n):
+    """``(windows, real)``: the windows ``(lo, w)`` undone as one product and whether each
+    product is real; see `_window_choice`."""
+    if not mats:
+        return [], ()
+    qs = sorted(mats)
+    # one realness test for all the matrices (one per matrix costs more than the product)
+    imag = np.any(np.imag(np.concatenate([mats[q].reshape(-1, 4) for q in qs])) != 0, axis=1)
+    sizes = [mats[q].reshape(-1, 4).shape[0] for q in qs]
+    complex_q = {q for q, part in zip(qs, np.split(imag, np.cumsum(sizes)[:-1])) if part.any()}
+    found = _window_choice(mats, n, complex_q)
+    return found, tuple(not any(q in complex_q for q in range(lo, lo + w)) for lo, w in found)
+
+
+def _window_choice(mats, n, complex_q):
+    """Windows ``(lo, w)`` (`qgradlib.engine.overlaps.window_of`) whose single-qubit matrices
+    are undone as one product: the last window when all four are shared (pair products are
+    slow there), any other when at least two are, all shared and real (a real product of
+    16 x 16 on the float view costs less than two pair passes; a complex one would not)."""
+    out = []
+    seen = set()
+    for q in sorted(mats):
+        lo, w = overlaps.window_of(n, q)
+        if (lo, w) in seen or w < 2:
+            continue
+        seen.add((lo, w))
+        inside = [mats[r] for r in range(lo, lo + w) if r in mats]
+        if any(m.ndim != 2 for m in inside):
+            continue
+        if lo + w == n and n > 4:
+            if len(inside) == w:
+                out.append((lo, w))
+        elif len(inside) >= 2 and not any(q in complex_q for q in range(lo, lo + w)):
+            out.append((lo, w))
+    return out
+
+
+def _window_matrix(mats, lo, w, dtype, phases=None):
+    """The product of the window's single-qubit matrices (identity where a qubit has none),
+    then ``diag(phases)`` when given."""
+    m = np.ones((1, 1), dtype=dtype)
+    for q in range(lo, lo + w):
+        u = mats.get(q, _EYE)
+        m = (m[:, None, :, None] * u[None, :, None, :]).reshape(2 * m.shape[0], 2 * m.shape[1])
+    return m if phases is None else phases[:, None] * m
+
+
+def _undo_qubits(mats, both, buf, n, P, phases=None, found=None):
     """Apply single-qubit matrices ``{qubit: (2, 2) or (P, 2, 2)}`` to every stacked row
     (they commute): the last four qubits as one 16 x 16 block where all are shared (pair
     products are slow there), neighbours as pairs, the rest one by one."""
     done = set()
-    tail = list(range(n - 4, n))
-    if n > 4 and all(q in mats and mats[q].ndim == 2 for q in tail):
-        m = np.ones((1, 1), dtype=both.dtype)
-        for q in tail:
-            u = mats[q]
-            m = (m[:, None, :, None] * u[None, :, None, :]).reshape(2 * m.shape[0], 2 * m.shape[1])
-        kernels.apply_dense(both, n, m, tuple(tail), buf)
+    for lo, w in (_undo_windows(mats, n)[0] if found is None else found):
+        m = _window_matrix(mats, lo, w, both.dtype, (phases or {}).get((lo, w)))
+        kernels.apply_dense(both, n, m, tuple(range(lo, lo + w)), buf)
         both, buf = buf, both
-        done.update(tail)
+        done.update(range(lo, lo + w))
     for q in sorted(mats):
         if q in done:
             continue
