@@ -533,17 +533,22 @@ def _inverses(block, phi, shared):
     for b in block:
         by_gate.setdefault(id(b.op.gate), (b.op.gate, []))[1].append(b)
     out = {}
+    complex_ids = set()
     for gate, members in by_gate.values():
         cols = [b.column for b in members]
         if np.all(shared[cols]):
             mats = gate._matrices(-phi[0, cols])
             for b, m in zip(members, mats):
                 out[id(b)] = m
+            imag = np.any(mats.imag != 0, axis=(1, 2))
         else:
             mats = gate._matrices(-phi[:, cols].T.reshape(-1)).reshape((len(cols), phi.shape[0], 2, 2))
             for j, b in enumerate(members):
                 out[id(b)] = mats[j, 0] if shared[b.column] else mats[j]
-    return out
+            imag = np.any(mats.imag != 0, axis=(1, 2, 3))
+        # which are complex, tested once a gate type (a test a matrix costs more than it saves)
+        complex_ids.update(id(b) for b, c in zip(members, imag) if c)
+    return out, complex_ids
 
 
 def _constant_diagonal(s):
@@ -558,10 +563,10 @@ def _undo_plan(block, phi, shared, n, after):
     (``fused``: {(lo, w): [(step, Im G on the window)]})."""
     pairable = {b.op.qubits[0]: b for b in block
                 if len(b.op.qubits) == 1 and b.op.gate.kind == "generator" and not b.op.gate.diagonal}
-    inv = _inverses(list(pairable.values()), phi, shared)
+    inv, complex_ids = _inverses(list(pairable.values()), phi, shared)
     mats = {q: inv[id(b)] for q, b in pairable.items()}
     left, phases = list(after), {}
-    found, real = _undo_windows(mats, n)
+    found, real = _undo_windows(mats, n, {q for q, b in pairable.items() if id(b) in complex_ids})
     if after and len(pairable) == len(block):
         # only single-qubit gates in the block: a phase inside a window of them may be
         # applied right after that window's product (nothing else there acts before it)
@@ -581,15 +586,16 @@ def _undo_block(block, both, buf, n, phi, shared, table, P, plan, grad):
     of the fused windows' gates are read on the way (into ``grad``)."""
     pairable, mats, left = plan["pairable"], plan["mats"], plan["left"]
     found = []
+    fused = plan["fused"]
+    products = _window_matrices(mats, list(fused), both.dtype, plan["phases"]) if fused else {}
     for lo, w in plan["found"]:
-        members = plan["fused"].get((lo, w))
+        members = fused.get((lo, w))
         if members is None:
             found.append((lo, w))
             continue
         # the window's derivatives from its input (the other windows' products act on other
         # qubits and commute with its generators), in the same read as its product
-        m = _window_matrix(mats, lo, w, both.dtype, plan["phases"].get((lo, w)))
-        S = overlaps.real_overlap_and_apply(both, P, n, lo, w, m.real, buf)
+        S = overlaps.real_overlap_and_apply(both, P, n, lo, w, products[(lo, w)].real, buf)
         both, buf = buf, both
         for b, Gi in members:
             grad[:, b.column] = 2 * np.einsum("ij,pij->p", Gi, S)
@@ -667,16 +673,14 @@ def _absorbed(after, n, found, real):
 _EYE = np.eye(2)
 
 
-def _undo_windows(mats, n):
+def _undo_windows(mats, n, complex_q=None):
     """``(windows, real)``: the windows ``(lo, w)`` undone as one product and whether each
-    product is real; see `_window_choice`."""
+    product is real; see `_window_choice`. ``complex_q``: the qubits whose matrices are
+    complex (tested here when not given)."""
     if not mats:
         return [], ()
-    qs = sorted(mats)
-    # one realness test for all the matrices (one per matrix costs more than the product)
-    imag = np.any(np.imag(np.concatenate([mats[q].reshape(-1, 4) for q in qs])) != 0, axis=1)
-    sizes = [mats[q].reshape(-1, 4).shape[0] for q in qs]
-    complex_q = {q for q, part in zip(qs, np.split(imag, np.cumsum(sizes)[:-1])) if part.any()}
+    if complex_q is None:
+        complex_q = {q for q, m in mats.items() if np.any(m.imag != 0)}
     found = _window_choice(mats, n, complex_q)
     return found, tuple(not any(q in complex_q for q in range(lo, lo + w)) for lo, w in found)
 
@@ -704,14 +708,26 @@ def _window_choice(mats, n, complex_q):
     return out
 
 
-def _window_matrix(mats, lo, w, dtype, phases=None):
-    """The product of the window's single-qubit matrices (identity where a qubit has none),
-    then ``diag(phases)`` when given."""
-    m = np.ones((1, 1), dtype=dtype)
-    for q in range(lo, lo + w):
-        u = mats.get(q, _EYE)
-        m = (m[:, None, :, None] * u[None, :, None, :]).reshape(2 * m.shape[0], 2 * m.shape[1])
-    return m if phases is None else phases[:, None] * m
+def _window_matrices(mats, windows, dtype, phases):
+    """``{(lo, w): (D, D)}``: the Kronecker product of each window's single-qubit matrices
+    (identity where a qubit has none), then ``diag(phases)`` where ``phases`` has an entry;
+    one einsum for all windows of a width."""
+    out = {}
+    by_width: dict = {}
+    for lo, w in windows:
+        by_width.setdefault(w, []).append(lo)
+    for w, starts in by_width.items():
+        U = np.empty((w, len(starts), 2, 2), dtype=dtype)
+        for k in range(w):
+            for i, lo in enumerate(starts):
+                U[k, i] = mats.get(lo + k, _EYE)
+        rows, cols = "abcdefgh"[:w], "ijklmnop"[:w]
+        expr = ",".join(f"z{r}{c}" for r, c in zip(rows, cols)) + f"->z{rows}{cols}"
+        prods = np.einsum(expr, *U).reshape(len(starts), 2 ** w, 2 ** w)
+        for i, lo in enumerate(starts):
+            d = phases.get((lo, w)) if phases else None
+            out[(lo, w)] = prods[i] if d is None else d[:, None] * prods[i]   # the phases act after
+    return out
 
 
 def _undo_qubits(mats, both, buf, n, P, phases=None, found=None):
@@ -719,9 +735,10 @@ def _undo_qubits(mats, both, buf, n, P, phases=None, found=None):
     (they commute): the last four qubits as one 16 x 16 block where all are shared (pair
     products are slow there), neighbours as pairs, the rest one by one."""
     done = set()
-    for lo, w in (_undo_windows(mats, n)[0] if found is None else found):
-        m = _window_matrix(mats, lo, w, both.dtype, (phases or {}).get((lo, w)))
-        kernels.apply_dense(both, n, m, tuple(range(lo, lo + w)), buf)
+    found = _undo_windows(mats, n)[0] if found is None else found
+    products = _window_matrices(mats, found, both.dtype, phases)
+    for lo, w in found:
+        kernels.apply_dense(both, n, products[(lo, w)], tuple(range(lo, lo + w)), buf)
         both, buf = buf, both
         done.update(range(lo, lo + w))
     for q in sorted(mats):
