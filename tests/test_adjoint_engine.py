@@ -181,3 +181,51 @@ def test_runs_of_rotations_on_one_qubit_fuse_with_derivatives_at_the_end(n, rows
     single = np.stack([grad(lambda t: qg.expect(c, H, t, inputs=x, gradient="adjoint"))(theta[0])
                        for x in X])
     assert np.allclose(batch.reshape(single.shape), single, atol=1e-12)
+
+
+def _window_case(kind):
+    """Circuits of 13 qubits (the general engine) whose layers take the window paths: RY
+    layers with CZ ladders (real window products with the ladder's phases inside), partial
+    layers (identity inside a window), S/T phases in the ladder (complex phases, kept out of
+    real products), RX layers (complex: pairs) and a two-qubit gate in the block."""
+    n = 13
+    if kind == "ladder":
+        return _chain_layers(n, 3, lambda layer: ["ry"], "cz")
+    c = qg.Circuit(n)
+    for layer in range(3):
+        for q in range(n):
+            if kind == "partial" and (q + layer) % 3 == 0:
+                continue
+            (c.rx if kind == "rx" and layer == 1 else c.ry)(q)
+        if kind == "crx":
+            c.crx(4, 5)
+        for q in range(n - 1):
+            c.cz(q, q + 1)
+            if kind == "phases" and q % 4 == 1:
+                c.s(q).t(q + 1)
+    return c
+
+
+@pytest.mark.parametrize("kind", ["ladder", "partial", "phases", "rx", "crx"])
+@pytest.mark.parametrize("rows", [1, 2])
+def test_window_products_and_overlaps_on_thirteen_qubits(kind, rows):
+    c = _window_case(kind)
+    # reference: the shift rule, a different algorithm on the same engine
+    _adjoint_equals_shift_exactly(c, rows, seed=12)
+
+
+def _adjoint_equals_shift_exactly(c, rows, seed):
+    rng = np.random.default_rng(seed)
+    H = _random_observable(c.n_qubits, rng, 4)
+    theta = rng.normal(size=(rows, c.n_params))
+    adj = jacobian(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)
+    shift = jacobian(lambda t: qg.expect(c, H, t))(theta)
+    assert np.max(np.abs(adj - shift)) <= 1e-12 * max(1.0, np.max(np.abs(shift)))
+
+
+def test_window_paths_pass_autograd_check_grads():
+    c = _window_case("phases")
+    H = qg.Observable({"Z" * 2 + "I" * 11: 1.0, "I" * 6 + "X" + "I" * 6: -0.5, "I" * 11 + "YY": 0.3})
+    theta = np.random.default_rng(13).normal(size=c.n_params)
+    # reference: autograd.test_util.check_grads (numerical VJP checks)
+    check_grads(lambda t: qg.expect(c, H, t, gradient="adjoint"), modes=["rev"], order=1)(theta)

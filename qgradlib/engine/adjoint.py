@@ -9,6 +9,13 @@ The bra and ket rows are stacked in one array and undone together, one batched k
 per step. Gates between trainable ones are fused as in a forward run (each trainable gate
 stays a step of its own). Memory: the stacked pair and one buffer of the same size, so about
 four states for one row, whatever the circuit.
+
+A block of trainable gates on disjoint qubits (a layer of rotations) commutes, so all its
+derivatives are read from the same bra and ket. The register is cut into windows of four
+qubits (`qgradlib.engine.overlaps`): a window's single-qubit gates are undone as one 16 x 16
+product (real for RY, on the float view), its derivatives come from one overlap matrix read
+in the same sweep, and the constant phases just before the block (a CZ ladder) that lie
+inside a window join its product instead of taking passes of their own.
 """
 from __future__ import annotations
 
@@ -169,6 +176,9 @@ def _undo_step(s, both, buf, n, phi, shared, table, P):
 # a batch of at least this many amplitudes (rows x 2**n) takes the general backward pass even
 # on few qubits: its fused runs cost less than the lean loop's gate-by-gate steps there
 LEAN_AMPLITUDES = 2 ** 14
+# and above this many qubits the general pass, whatever the batch: at 12 its window products
+# and overlaps (qgradlib.engine.overlaps) beat the lean loop's gate-by-gate steps
+LEAN_QUBITS = 11
 
 
 def adjoint_states(rows: int, observable_scratch: float = 0.0) -> float:
@@ -240,7 +250,8 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
     del psi  # the caller's copy can go now: at most four states from here on
     # (the BLAS limit starts here, not in a wrapper, whose arguments would keep psi alive)
     with engine_threads(n):
-        if fuse and dtype == np.complex128 and small.eligible(circuit) and P * N < LEAN_AMPLITUDES:
+        if (fuse and dtype == np.complex128 and n <= LEAN_QUBITS and small.eligible(circuit)
+                and P * N < LEAN_AMPLITUDES):
             # few qubits: the lean loop of qgradlib.engine.small (same layout, same memory;
             # double precision only)
             return small.backward(circuit, both, phi, want, observable_into, apply_observable)
@@ -413,26 +424,11 @@ def _undo_phases(block, both, n, phi, shared, P):
 _TAIL = 3   # qubits of the window whose overlap matrix serves all derivatives inside it
 
 
-def _in_tail(s, n):
-    """A generator gate inside the last few qubits, where strided block dots are slow."""
-    return (s.op.gate.kind == "generator" and n > _TAIL and min(s.op.qubits) >= n - _TAIL
-            and 2 ** (n - max(s.op.qubits) - 1) < kernels.TAIL_STRIDE)
-
-
 def _tail_overlaps(both, n, P):
     """``S[p, i, j] = sum_r conj(lam[p, r, i]) psi[p, r, j]`` over the last ``_TAIL`` qubits:
     one BLAS product per row (conjugate transpose in BLAS, no copy), after which
     ``<lam|G|psi> = sum_ij G_ij S_ij`` for any G inside that window."""
-    from scipy.linalg.blas import cgemm, zgemm     # SciPy loads on first use, not at import
-
-    gemm = cgemm if both.dtype == np.complex64 else zgemm
-    D = 2 ** _TAIL
-    out = np.empty((P, D, D), dtype=complex)
-    for p in range(P):
-        a = both[P + p].reshape(-1, D).T      # lam rows, Fortran-ordered (D, N/D)
-        b = both[p].reshape(-1, D).T          # psi rows
-        out[p] = gemm(1.0, b, a, trans_b=2).T
-    return out
+    return overlaps.tail_overlap(both[P:], both[:P], n, _TAIL)
 
 
 def _window_plan(s, n):
@@ -488,13 +484,6 @@ def _window_derivatives(block, both, n, P, grad, skip=()):
                 # Im sum_ij G_ij S_ij = sum_ij Im(G_ij) Re(S_ij) for purely imaginary G
                 grad[:, b.column] = 2 * np.einsum("ij,pij->p", Gi, S)
     return left
-
-
-def _tail_derivative(s, S, n, grad):
-    g = s.op.gate
-    G, sq = kernels.sort_qubits(np.asarray(g.generator), s.op.qubits)
-    Gw = kernels.widen(G, [q - (n - _TAIL) for q in sq], _TAIL)
-    grad[:, s.column] = 2 * np.imag(np.einsum("ij,pij->p", Gw, S))
 
 
 def _trainable(s, want):

@@ -74,11 +74,27 @@ def real_overlap(lam, psi, n: int, lo: int, w: int) -> np.ndarray:
     L = 2 ** lo
     R2 = 2 * 2 ** (n - lo - w)            # float entries of a slab below the window
     fl = real_dtype(lam.dtype)
-    a = lam.view(fl).reshape(P * L, D, R2)
-    b = psi.view(fl).reshape(P * L, D, R2)
-    # one BLAS product a slab (float32 states are summed in float64 over the slabs)
-    s = np.matmul(a, np.swapaxes(b, -1, -2))
-    return s.reshape(P, L, D, D).sum(axis=1, dtype=np.float64)
+    a = lam.view(fl).reshape(P, L, D, R2)
+    b = psi.view(fl).reshape(P, L, D, R2)
+    S = np.zeros((P, D, D))
+    # one BLAS product a slab, summed over slabs a chunk at a time (the (D, D) products of
+    # all slabs at once would be as large as the states); float32 states sum in float64
+    for rows, cols in _chunks(L, D, R2):
+        S += np.matmul(a[:, rows, :, cols], np.swapaxes(b[:, rows, :, cols], -1, -2)).sum(
+            axis=1, dtype=np.float64)
+    return S
+
+
+def _chunks(L, D, R2):
+    """Index pairs (slabs, columns) cutting a (., L, D, R2) view into pieces of about `CHUNK`
+    floats a row: whole slabs when they are short, column blocks of a slab when long."""
+    if R2 >= CHUNK // D:
+        # a slab at a time, in column blocks (a product may buffer a strided output: it stays
+        # chunk-sized, never state-sized)
+        step = max(1, CHUNK // D)
+        return [(slice(l, l + 1), slice(c, c + step)) for l in range(L) for c in range(0, R2, step)]
+    step = max(1, CHUNK // (D * R2))
+    return [(slice(l, l + step), slice(None)) for l in range(0, L, step)]
 
 
 def real_overlap_and_apply(both, P: int, n: int, lo: int, w: int, mat, out) -> np.ndarray:
@@ -109,14 +125,7 @@ def real_overlap_and_apply(both, P: int, n: int, lo: int, w: int, mat, out) -> n
     v = both.view(fl).reshape(2 * P, L, D, R2)
     o = out.view(fl).reshape(2 * P, L, D, R2)
     S = np.zeros((P, D, D))
-    if R2 >= CHUNK // D:
-        # long slabs: chunks of columns (each slab stays a BLAS operand with a row stride)
-        step = max(1, CHUNK // D)
-        cuts = [(slice(None), slice(c, c + step)) for c in range(0, R2, step)]
-    else:
-        step = max(1, CHUNK // (D * R2))
-        cuts = [(slice(l, l + step), slice(None)) for l in range(0, L, step)]
-    for rows, cols in cuts:
+    for rows, cols in _chunks(L, D, R2):
         a = v[:, rows, :, cols]
         S += np.matmul(a[P:], np.swapaxes(a[:P], -1, -2)).sum(axis=1, dtype=np.float64)
         np.matmul(mat, a, out=o[:, rows, :, cols])
