@@ -187,7 +187,8 @@ def _window_case(kind):
     """Circuits of 13 qubits (the general engine) whose layers take the window paths: RY
     layers with CZ ladders (real window products with the ladder's phases inside), partial
     layers (identity inside a window), S/T phases in the ladder (complex phases, kept out of
-    real products), RX layers (complex: pairs) and a two-qubit gate in the block."""
+    real products), RX layers (complex: pairs), a two-qubit gate in the block, and runs of RY
+    and RZ on each qubit at the start (the backward pass ends without undoing them)."""
     n = 13
     if kind == "ladder":
         return _chain_layers(n, 3, lambda layer: ["ry"], "cz")
@@ -197,6 +198,8 @@ def _window_case(kind):
             if kind == "partial" and (q + layer) % 3 == 0:
                 continue
             (c.rx if kind == "rx" and layer == 1 else c.ry)(q)
+            if kind == "runs" and layer == 0:
+                c.rz(q)        # a run of two trainable gates a qubit, the first in the circuit
         if kind == "crx":
             c.crx(4, 5)
         for q in range(n - 1):
@@ -206,7 +209,7 @@ def _window_case(kind):
     return c
 
 
-@pytest.mark.parametrize("kind", ["ladder", "partial", "phases", "rx", "crx"])
+@pytest.mark.parametrize("kind", ["ladder", "partial", "phases", "rx", "crx", "runs"])
 @pytest.mark.parametrize("rows", [1, 2])
 def test_window_products_and_overlaps_on_thirteen_qubits(kind, rows):
     c = _window_case(kind)

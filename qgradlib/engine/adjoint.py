@@ -272,8 +272,10 @@ def _backward(prog, both, phi, n, P, G, want, observable_into, apply_observable)
     table = _table(prog, phi, shared)
     grad = np.zeros((P, G))
     steps = prog.steps
+    # the earliest trainable step: nothing before it needs undoing
+    first = next((k for k, s in enumerate(steps) if _trainable(s, want)), len(steps))
     i = len(steps) - 1
-    while i >= 0:
+    while i >= first:
         s = steps[i]
         if not _trainable(s, want):
             both, buf = _undo_step(s, both, buf, n, phi, shared, table, P)
@@ -287,7 +289,7 @@ def _backward(prog, both, phi, n, P, G, want, observable_into, apply_observable)
                 j -= 1
             qs = [b.op.qubits[0] for b in run]
             if len(set(qs)) < len(qs):
-                both, buf = _undo_run(run, both, buf, n, phi, shared, P, grad)
+                both, buf = _undo_run(run, both, buf, n, phi, shared, P, grad, then_undo=j >= first)
                 i = j
                 continue
         # a block of trainable gates on disjoint qubits commutes: every derivative in it can
@@ -303,6 +305,13 @@ def _backward(prog, both, phi, n, P, G, want, observable_into, apply_observable)
         if len(phases) < 2 or len({q for b in phases for q in b.op.qubits}) > DIAG_WIDTH:
             phases = []
         rest = [b for b in block if b not in phases]
+        if j < first:
+            # the last block: its derivatives, and no undo (no derivative is left to need it)
+            for b in _window_derivatives(rest, both, n, P, grad):
+                _derivative(b, both, buf, n, phi, P, grad)
+            if phases:
+                _phase_derivatives(phases, both, buf, n, P, grad)
+            break
         # constant diagonal steps right before the block (CZ ladders): their phases go into
         # the block's window products where they fit, instead of passes of their own
         after = []
@@ -325,7 +334,7 @@ def _single(s, want):
     return _trainable(s, want) and s.op.gate.kind == "generator" and len(s.op.qubits) == 1
 
 
-def _undo_run(run, both, buf, n, phi, shared, P, grad):
+def _undo_run(run, both, buf, n, phi, shared, P, grad, then_undo=True):
     """A run of trainable single-qubit gates (``run`` latest first; a qubit may carry several,
     RY then RZ): each qubit's gates fuse into one 2 x 2 matrix, and every derivative is taken
     at the run's end, ``2 Im <lam|A G A^dag|psi>`` with ``A`` the qubit's gates after it (the
@@ -348,6 +357,8 @@ def _undo_run(run, both, buf, n, phi, shared, P, grad):
                                                       M, S[q]))
             A = A @ U
         undo[q] = np.conj(np.swapaxes(A, -1, -2))
+    if not then_undo:                  # the last trainable gates: no derivative needs the undo
+        return both, buf
     return _undo_qubits(undo, both, buf, n, P)
 
 
