@@ -49,11 +49,15 @@ def one_column(phi):
     off = phi != ref
     minority = np.flatnonzero(2 * np.count_nonzero(off, axis=0) > P)
     if minority.size:
-        # row 0 is itself a shifted point there (a plan's first row): the most common angle
-        for j in minority.tolist():
-            vals, counts = np.unique(phi[:, j], return_counts=True)
-            ref[j] = vals[np.argmax(counts)]
+        # row 0 is itself a shifted point there (a plan's first row): the last row's angle,
+        # or where that does not fit every row, the most common one
+        ref[minority] = phi[-1, minority]
         off = phi != ref
+        if np.any(np.count_nonzero(off, axis=1) > 1):
+            for j in minority.tolist():
+                vals, counts = np.unique(phi[:, j], return_counts=True)
+                ref[j] = vals[np.argmax(counts)]
+            off = phi != ref
     count = np.count_nonzero(off, axis=1)
     if np.any(count > 1):
         return None
@@ -236,7 +240,14 @@ def _program(comp, plan):
     for s in comp.steps:
         if s[0] == small._ONE and s[5] <= small._BLOCK_R:
             narrow.setdefault((s[1], s[5]), []).append(s[2])
-    blocks = tuple((gi, R, np.array(pos)) for (gi, R), pos in narrow.items())
+    # per group: the positions of its narrow steps, their strides, and each stride's rows
+    blocks = []
+    for gi in sorted({gi for gi, _ in narrow}):
+        Rs = sorted(R for g2, R in narrow if g2 == gi)
+        pos = np.concatenate([narrow[(gi, R)] for R in Rs])
+        sizes = np.cumsum([0] + [len(narrow[(gi, R)]) for R in Rs])
+        blocks.append((gi, Rs, pos, [slice(a, b) for a, b in zip(sizes[:-1], sizes[1:])]))
+    blocks = tuple(blocks)
     prog = _Program(born_groups, blocks, plan, [])
     plan.programs.clear()
     plan.programs[id(comp)] = prog
@@ -257,8 +268,10 @@ def _tables(comp, prog, ref, angle):
         tables[("born", gi)] = vals[gcols.size:]
         if not diag:
             tables[("real", gi)] = np.ascontiguousarray(vals[:gcols.size].real)
-    for gi, R, pos in prog.blocks:
-        tables[("block", gi, R)] = small._real_blocks(tables[("main", gi)][pos], R)
+    for gi, Rs, pos, at in prog.blocks:
+        parts = small._block_parts(tables[("main", gi)][pos])
+        for R, sl in zip(Rs, at):
+            tables[("block", gi, R)] = small._real_blocks(parts[sl], R)
     return tables
 
 
@@ -296,7 +309,8 @@ def _workspace(comp, prog):
                 ops.append((_MATMUL, (("born", gi), bk), True, x[0].reshape(L, 2, R), y[a].reshape(L, 2, R)))
             f, o = x[:a].view(float), y[:a].view(float)
             if R <= small._BLOCK_R:
-                k = int(np.flatnonzero(next(p for g2, R2, p in prog.blocks if g2 == gi and R2 == R) == pos)[0])
+                k = next(pos_list[sl] for g2, Rs, pos_list, ats in prog.blocks if g2 == gi
+                         for R2, sl in zip(Rs, ats) if R2 == R).tolist().index(pos)
                 ops.append((_MATMUL, (("block", gi, R), k), False, f.reshape(-1, 4 * R), o.reshape(-1, 4 * R)))
             elif not np.any(np.asarray(s[7]).real):
                 # a generator with imaginary entries only: real matrices at every angle
@@ -312,6 +326,7 @@ def _workspace(comp, prog):
                 x, y = y, x
         a += nb
     return A, x, tuple(ops)
+
 
 
 def _born(code, s, cur, other, a, nb, m, n):

@@ -263,11 +263,11 @@ def _one(psi, out, m, L, R, wide):
 def _real_block(m, R):
     """The real (4R, 4R) matrix that maps a row of ``2R`` amplitudes, read as ``4R`` floats
     (real and imaginary parts interleaved), through ``kron(m, I_R)``, for a row times it."""
-    return _real_blocks(m[None], R)[0]
+    return _real_blocks(_block_parts(m[None]), R)[0]
 
 
-def _real_blocks(m, R):
-    """`_real_block` of every matrix of ``m`` (k, 2, 2): (k, 4R, 4R)."""
+def _block_parts(m):
+    """The real parts of the matrices ``m`` (k, 2, 2) that `_real_blocks` spreads out."""
     re, im = np.swapaxes(m.real, 1, 2), np.swapaxes(m.imag, 1, 2)
     # [., j, t, i, s]: input amplitude j (part t) to output amplitude i (part s)
     parts = np.empty((m.shape[0], 2, 2, 2, 2))
@@ -275,10 +275,15 @@ def _real_blocks(m, R):
     parts[:, :, 1, :, 1] = re
     parts[:, :, 1, :, 0] = -im
     parts[:, :, 0, :, 1] = im
+    return parts
+
+
+def _real_blocks(parts, R):
+    """`_real_block` (k, 4R, 4R) of every matrix, from its `_block_parts` (k, 2, 2, 2, 2)."""
     eye = _EYES.get(R)
     if eye is None:
         eye = _EYES.setdefault(R, np.eye(R)[None, None, :, None, None, :, None])
-    return (parts[:, :, None, :, :, None, :] * eye).reshape(m.shape[0], 4 * R, 4 * R)
+    return (parts[:, :, None, :, :, None, :] * eye).reshape(parts.shape[0], 4 * R, 4 * R)
 
 
 def _diag(psi, d, shape, dshape, perm):

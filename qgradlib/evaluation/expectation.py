@@ -126,7 +126,7 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value", distinct=False):
     if isinstance(purposes, str):
         labels = {purposes: len(rows)}
     else:
-        labels = Counter(purposes[r] for r in rows)
+        labels = Counter(purposes if distinct else [purposes[r] for r in rows])
     ledger.record(len(rows), spec.settings, spec.shots or 0, labels)
     ins = None if inserts is None else [inserts[r] for r in rows]
     keep = (spec.gradient == "adjoint" and inserts is None and spec.shots is None
