@@ -14,7 +14,8 @@ from hypothesis import given, strategies as st
 import qgradlib as qg
 from qgradlib.engine import growing, small
 from qgradlib.engine.statevector import run
-from qgradlib.rules.plans import first_order_points
+from qgradlib.evaluation.expectation import _unique_rows
+from qgradlib.rules.plans import distinct_points, first_order_points
 from test_fusion import circuits
 from reference import circuit_ops, dense_state
 
@@ -103,3 +104,24 @@ def test_ledger_counts_every_shifted_circuit():
     with qg.Ledger() as book:
         grad(lambda t: qg.expect(c, H, t))(np.linspace(0.1, 3.0, c.n_params))
     assert book.circuits == 2 * c.n_params + 1
+
+
+@given(circuits(max_n=4), st.integers(0, 2 ** 31), st.sampled_from([None, 0.3, np.pi / 2]))
+def test_points_distinct_by_construction_are_distinct(c, seed, shift):
+    # the general search for repeated points (`_unique_rows`, on the grid of ticks modulo
+    # each gate's period) finds none where the plan says its points are distinct
+    G = len(c.parametric_operations)
+    cols = tuple(j for j in range(G) if c.parametric_operations[j].param is not None)
+    phi = np.random.default_rng(seed).uniform(-4, 4, size=(1, G))
+    points = np.asarray(first_order_points(c, phi, None, cols, shift=shift)[0])
+    if distinct_points(c, cols, shift=shift) and points.shape[0]:
+        assert len(_unique_rows(points, c, None)[0]) == points.shape[0]
+
+
+def test_shifts_a_whole_period_apart_are_not_distinct():
+    # common practice: RX has period 4 pi, so shifts of pi/2 and pi/2 + 4 pi are one circuit
+    from qgradlib.rules import plans
+    pops = qg.Circuit(1).rx(0).parametric_operations
+    assert not plans._distinct(np.array([[np.pi / 2], [np.pi / 2 + 4 * np.pi]]), pops)
+    assert not plans._distinct(np.array([[4 * np.pi]]), pops)
+    assert plans._distinct(np.array([[np.pi / 2], [-np.pi / 2]]), pops)

@@ -6,7 +6,10 @@ are born where they leave the reference: row 0 carries the reference state, and 
 deviates at gate k is made from it just before gate k and from there on follows the
 reference's angles. Gate j then acts on the reference and the rows born before j only, one
 kernel call on a leading slice of a preallocated buffer: half the work of the full batch,
-with no bookkeeping per row.
+with no bookkeeping per row. The steps are laid out once per pattern of moved columns (a
+training loop repeats it) as products on fixed views of two buffers, which are kept for the
+next call up to `_POOL_BYTES` each; a one-qubit gate on a narrow stride acts on the float
+view of the amplitudes as one real block matrix (`qgradlib.engine.small._real_blocks`).
 
 Pauli rotations (generators that square to ``w**2 I``) need one born row per column, not one
 per shifted point: ``U(a + d) = cos(d w) U(a) + sin(d w) U(a + pi / (2 w))``, so every point

@@ -185,18 +185,23 @@ def _distinct(delta, pops):
     """`distinct_points` of the displacements ``delta`` (T, G) of a fixed plan."""
     if delta.size == 0:
         return True
+    if not np.all(np.count_nonzero(delta, axis=1) == 1):
+        return False
     cols = np.argmax(delta != 0, axis=1)
-    shifts = delta[np.arange(delta.shape[0]), cols]
-    for j in np.unique(cols).tolist():
-        s = shifts[cols == j]
-        per = pops[j].gate.period
-        # 1e-9 rad: far above the grid on which repeated points are recognised
-        d = np.abs(np.concatenate([s, (s[:, None] - s[None, :])[np.triu_indices(s.size, 1)]]))
-        if per is not None:
-            d = np.minimum(np.mod(d, per), per - np.mod(d, per))
-        if np.any(d <= 1e-9):
-            return False
-    return bool(np.all(np.count_nonzero(delta, axis=1) == 1))
+    per = np.array([np.inf if pops[j].gate.period is None else pops[j].gate.period
+                    for j in cols.tolist()])
+    s = np.where(np.isinf(per), delta[np.arange(cols.size), cols], np.mod(delta[np.arange(cols.size), cols], per))
+    # 1e-9 rad: far above the grid on which repeated points are recognised. Per column, in
+    # order around its period: every shift away from zero, and from its neighbours
+    order = np.lexsort((s, cols))
+    c, s, per = cols[order], s[order], per[order]
+    near_zero = np.minimum(np.abs(s), np.where(np.isinf(per), np.inf, per - s))
+    same = c[1:] == c[:-1]
+    gaps = np.where(same, s[1:] - s[:-1], np.inf)
+    first = np.concatenate([[True], ~same])
+    last = np.concatenate([~same, [True]])
+    wrap = per[first] - (s[last] - s[first])      # the last shift of a column to its first
+    return bool(np.all(near_zero > 1e-9) and np.all(gaps > 1e-9) and np.all(wrap > 1e-9))
 
 
 def _layout(terms, G):
