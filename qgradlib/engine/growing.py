@@ -208,7 +208,7 @@ def _grow(comp, ref, plan, born_angle, cb, cr):
 
 
 # workspaces up to this size (each of its two buffers) are kept for the next call
-_POOL_BYTES = 2 ** 20
+_POOL_BYTES = 2 ** 18
 
 
 _MATMUL, _CONST, _GENERAL = range(3)
