@@ -193,7 +193,9 @@ def test_one_batch_per_vjp_and_memory_chunks_agree():
         g = grad(lambda t: qg.expect(c, Z0, t))(theta)
     assert book.calls == 2                    # the value, then one batch of 8 shifted circuits
     g_small = grad(lambda t: qg.expect(c, Z0, t, memory=1))(theta)
-    np.testing.assert_array_equal(g, g_small)
+    # to rounding: in one batch the two shifts of a gate come from one shared row
+    # (qgradlib.engine.growing), in chunks of one row each runs alone
+    np.testing.assert_allclose(g, g_small, rtol=0, atol=1e-12)
 
 
 def test_a_ledger_nested_in_itself_counts_once():

@@ -35,6 +35,9 @@ DENSE_QUBITS = 6
 _TAIL = 8
 # and only on batches of at least this many amplitudes (below, the strided product is cheaper)
 _TAIL_MIN = 256
+# shared one-qubit matrices on many rows act as a real block matrix up to this stride
+_BLOCK_R = 8
+_EYES = {}
 
 _CONST_DIAG, _CONST_MONO, _CONST_DENSE, _FIXED, _ONE, _DIAG, _OTHER = range(7)
 
@@ -230,6 +233,18 @@ def _apply(code, s, cur, other, m, n):
 def _one(psi, out, m, L, R, wide):
     """``out = m psi`` on one qubit; m (2, 2) shared or (B, 2, 2) per row."""
     B = psi.shape[0]
+    if m.ndim == 2 and B > 1:
+        # many rows, one matrix: a broadcast (2, 2) product over (B, L, 2, R) runs one tiny
+        # product per (row, L) pair; on the float view of the amplitudes the same work is one
+        # real matrix product, a block of kron(m, I_R) for narrow R, m itself where m is real
+        f = psi.view(psi.real.dtype)
+        o = out.view(psi.real.dtype)
+        if R <= _BLOCK_R:
+            np.matmul(f.reshape(-1, 4 * R), _real_block(m, R), out=o.reshape(-1, 4 * R))
+            return out
+        if not np.any(m.imag):
+            np.matmul(m.real, f.reshape(B * L, 2, 2 * R), out=o.reshape(B * L, 2, 2 * R))
+            return out
     if wide and psi.size >= _TAIL_MIN:
         eye = np.eye(R)
         if m.ndim == 2:
@@ -243,6 +258,32 @@ def _one(psi, out, m, L, R, wide):
     o = out.reshape(B, L, 2, R)
     np.matmul(m if m.ndim == 2 else m[:, None], v, out=o)
     return out
+
+
+def _real_block(m, R):
+    """The real (4R, 4R) matrix that maps a row of ``2R`` amplitudes, read as ``4R`` floats
+    (real and imaginary parts interleaved), through ``kron(m, I_R)``, for a row times it."""
+    return _real_blocks(_block_parts(m[None]), R)[0]
+
+
+def _block_parts(m):
+    """The real parts of the matrices ``m`` (k, 2, 2) that `_real_blocks` spreads out."""
+    re, im = np.swapaxes(m.real, 1, 2), np.swapaxes(m.imag, 1, 2)
+    # [., j, t, i, s]: input amplitude j (part t) to output amplitude i (part s)
+    parts = np.empty((m.shape[0], 2, 2, 2, 2))
+    parts[:, :, 0, :, 0] = re
+    parts[:, :, 1, :, 1] = re
+    parts[:, :, 1, :, 0] = -im
+    parts[:, :, 0, :, 1] = im
+    return parts
+
+
+def _real_blocks(parts, R):
+    """`_real_block` (k, 4R, 4R) of every matrix, from its `_block_parts` (k, 2, 2, 2, 2)."""
+    eye = _EYES.get(R)
+    if eye is None:
+        eye = _EYES.setdefault(R, np.eye(R)[None, None, :, None, None, :, None])
+    return (parts[:, :, None, :, :, None, :] * eye).reshape(parts.shape[0], 4 * R, 4 * R)
 
 
 def _diag(psi, d, shape, dshape, perm):
@@ -260,22 +301,28 @@ def _forward(comp, cur, other, table, n):
     """Apply every step; returns (final buffer, spare)."""
     for s in comp.steps:
         code = s[0]
-        if code == _CONST_DIAG:
-            cur *= s[1]
-        elif code == _CONST_MONO:
-            np.take(cur, s[1], axis=1, out=other, mode="clip")
-            if s[2] is not None:
-                other *= s[2]
-            cur, other = other, cur
-        elif code == _CONST_DENSE:
-            np.matmul(cur, s[1], out=other)
-            cur, other = other, cur
-        elif code == _FIXED:
-            kernels.apply_dense(cur, n, s[1], s[2], other)
-            cur, other = other, cur
+        if code < _ONE:
+            cur, other = _constant(s, cur, other, n)
         else:
             cur, other = _apply(code, s, cur, other, _value(table, s[1], s[2]), n)
     return cur, other
+
+
+def _constant(s, cur, other, n):
+    """Apply a constant step (a code below ``_ONE``); returns (current, spare)."""
+    code = s[0]
+    if code == _CONST_DIAG:
+        cur *= s[1]
+        return cur, other
+    if code == _CONST_MONO:
+        np.take(cur, s[1], axis=1, out=other, mode="clip")
+        if s[2] is not None:
+            other *= s[2]
+    elif code == _CONST_DENSE:
+        np.matmul(cur, s[1], out=other)
+    else:
+        kernels.apply_dense(cur, n, s[1], s[2], other)
+    return other, cur
 
 
 def _invert(m, diag, rows):

@@ -45,7 +45,7 @@ from ..engine.measurement import (ALLOCATIONS, apply_readout, check_readout, mak
 from .rows import guard_rows, measure_rows_here, peak_states
 from ..circuits.observables import Observable
 from ..circuits.preparation import prepared
-from ..rules.plans import first_order_points
+from ..rules.plans import distinct_points, first_order_points
 from ..rules.stencils import check_step
 
 __all__ = ["expect", "probabilities", "state", "density_matrix", "sample", "evaluate", "METHODS",
@@ -95,11 +95,13 @@ class Spec:
 
 # -- the primitive and its derivative rules ---------------------------------------------------
 @primitive
-def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
+def evaluate(phi, spec: Spec, inserts=None, purposes="value", distinct=False):
     """Measured values (P, K) at gate angles ``phi`` (P, G); identical rows run once.
 
     The autograd primitive behind `expect` and every derivative: ``spec`` says what to
-    measure and how to differentiate (built by `expect` from its keywords).
+    measure and how to differentiate (built by `expect` from its keywords). ``distinct``
+    says the rows are distinct circuits by construction (`qgradlib.rules.plans.distinct_points`),
+    so none is looked for among them.
 
     Examples
     --------
@@ -117,11 +119,14 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value"):
     P = phi.shape[0]
     if P == 0:              # an empty batch: an empty result, nothing run or counted
         return np.zeros((0, spec.n_out))
-    rows, inverse = _unique_rows(phi, spec.circuit, inserts)
+    if distinct:
+        rows, inverse = np.arange(P), np.arange(P)
+    else:
+        rows, inverse = _unique_rows(phi, spec.circuit, inserts)
     if isinstance(purposes, str):
         labels = {purposes: len(rows)}
     else:
-        labels = Counter(purposes[r] for r in rows)
+        labels = Counter(purposes if distinct else [purposes[r] for r in rows])
     ledger.record(len(rows), spec.settings, spec.shots or 0, labels)
     ins = None if inserts is None else [inserts[r] for r in rows]
     keep = (spec.gradient == "adjoint" and inserts is None and spec.shots is None
@@ -197,12 +202,12 @@ def _periods(circuit):
     return hit[1]
 
 
-def _jacobian(points, new_inserts, coeff, names, spec, P):
+def _jacobian(points, new_inserts, coeff, names, spec, P, distinct=False):
     """(P, K, G) Jacobian from a plan's points; differentiable when ``points`` is a box."""
     T = coeff.shape[1]
     if T == 0:
         return np.zeros((P, spec.n_out, coeff.shape[0]))
-    vals = anp.reshape(evaluate(points, spec, new_inserts, names), (P, T, spec.n_out))
+    vals = anp.reshape(evaluate(points, spec, new_inserts, names, distinct), (P, T, spec.n_out))
     return anp.einsum("gt,ptk->pkg", coeff, vals)
 
 
@@ -238,7 +243,11 @@ def _shift_jacobian(phi, spec, inserts):
             f"{n:,} circuits in one plan, and the count multiplies with every order: "
             "qgradlib.curvature.derivatives(circuit, observable, theta, order=k) builds one "
             "merged plan for all orders and needs far fewer"), stacklevel=2)
-    return _jacobian(points, new_inserts, coeff, names, spec, np.shape(getval(phi))[0])
+    P = np.shape(getval(phi))[0]
+    # the points around one row of a fixed plan are distinct by construction: no search
+    distinct = P == 1 and inserts is None and distinct_points(
+        spec.circuit, spec.columns, **spec.rule_options())
+    return _jacobian(points, new_inserts, coeff, names, spec, P, distinct)
 
 
 def _fd_jacobian(ans, phi, spec, inserts):
@@ -314,7 +323,7 @@ def _adjoint_vjp(phi, spec, g, cache):
     return adjoint_vjp(phi, spec, g)
 
 
-def _evaluate_vjp(ans, phi, spec, inserts=None, purposes="value"):
+def _evaluate_vjp(ans, phi, spec, inserts=None, purposes="value", distinct=False):
     cache = {}
 
     def jac():
@@ -338,7 +347,7 @@ def _evaluate_vjp(ans, phi, spec, inserts=None, purposes="value"):
 defvjp(evaluate, _evaluate_vjp)
 
 
-def _evaluate_jvp(g, ans, phi, spec, inserts=None, purposes="value"):
+def _evaluate_jvp(g, ans, phi, spec, inserts=None, purposes="value", distinct=False):
     """Forward mode: the Jacobian over the columns the tangent ``g`` (P, G) moves, times g."""
     moving = np.any(np.asarray(getval(g)) != 0, axis=0)
     cols = tuple(j for j in spec.columns if moving[j])

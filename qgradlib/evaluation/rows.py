@@ -16,7 +16,7 @@ from ..engine.measurement import (apply_readout, measure, measure_scratch, outco
                                   point_generators, probability_scratch)
 from ..engine.statevector import run, run_states
 from ..engine.threads import engine_threads
-from ..engine import small
+from ..engine import growing, small
 
 # at or below this many qubits, rows of small circuits run as one batch, not as branches
 BATCH_QUBITS = 8
@@ -95,10 +95,15 @@ def _measure_rows(phi, spec, inserts, errors, keep):
             # Small states run as one batch instead: there the trunk's bookkeeping costs more
             # than the gates it saves.
             dtype = state_dtype(spec.precision)
+            if (spec.fuse and ins is None and spec.circuit.n_qubits <= BATCH_QUBITS
+                    and dtype == np.complex128 and hi - lo > 2 and small.eligible(spec.circuit)):
+                # a shift plan's rows: a batch that grows a row where each leaves the
+                # reference (None for other rows)
+                states = growing.run_grown(spec.circuit, phi[lo:hi])
             lean = (spec.fuse and ins is None and spec.circuit.n_qubits <= BATCH_QUBITS
                     and (hi - lo) * len(spec.circuit) < BRANCH_WORK
                     and small.eligible(spec.circuit))
-            if not lean:
+            if not lean and states is None:
                 states = run_branched(spec.circuit, phi[lo:hi], ins, fuse=spec.fuse, dtype=dtype)
             if states is None and ins is None and (spec.circuit.n_inputs or not lean):
                 # rows of many data points: a tree of shared prefixes, one per point

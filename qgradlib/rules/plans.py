@@ -25,7 +25,7 @@ import numpy as np
 from .shift_rules import warn_approximate
 from .variance import least_variance_rule, rule_variance
 
-__all__ = ["Term", "column_terms", "first_order_points", "quadrature_nodes"]
+__all__ = ["Term", "column_terms", "first_order_points", "distinct_points", "quadrature_nodes"]
 
 
 @dataclass(frozen=True)
@@ -135,7 +135,7 @@ def first_order_points(circuit, phi, inserts, columns, **rule_options):
     P, G = raw.shape
     fixed = _fixed_plan(circuit, columns, inserts, rule_options)
     if fixed is not None:
-        delta, coeff, names = fixed
+        delta, coeff, names = fixed[:3]
         T = delta.shape[0]
         points = anp.reshape(phi[:, None, :] + delta[None, :, :], (P * T, G))
         return points, None, coeff, list(names) * P
@@ -160,6 +160,50 @@ def first_order_points(circuit, phi, inserts, columns, **rule_options):
     return points, new_inserts, coeff, names
 
 
+def distinct_points(circuit, columns, **rule_options) -> bool:
+    """Whether the points of `first_order_points` around one row are distinct circuits by
+    construction: a plan that depends on no angle (generator gates, no inserts) whose
+    shifts of each column differ from one another and from zero modulo the gate's period.
+
+    Each point moves one column, so two of them coincide only where one column's shifts
+    coincide, or where two shifts are whole periods. Callers may then skip looking for
+    repeated points (the count of circuits is the number of points either way).
+
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> distinct_points(qg.Circuit(1).ry(0).rx(0), (0, 1))
+    True
+    """
+    if rule_options.get("least_variance") is not None:
+        return False
+    fixed = _fixed_plan(circuit, columns, None, rule_options)
+    return fixed is not None and fixed[3]
+
+
+def _distinct(delta, pops):
+    """`distinct_points` of the displacements ``delta`` (T, G) of a fixed plan."""
+    if delta.size == 0:
+        return True
+    if not np.all(np.count_nonzero(delta, axis=1) == 1):
+        return False
+    cols = np.argmax(delta != 0, axis=1)
+    per = np.array([np.inf if pops[j].gate.period is None else pops[j].gate.period
+                    for j in cols.tolist()])
+    s = np.where(np.isinf(per), delta[np.arange(cols.size), cols], np.mod(delta[np.arange(cols.size), cols], per))
+    # 1e-9 rad: far above the grid on which repeated points are recognised. Per column, in
+    # order around its period: every shift away from zero, and from its neighbours
+    order = np.lexsort((s, cols))
+    c, s, per = cols[order], s[order], per[order]
+    near_zero = np.minimum(np.abs(s), np.where(np.isinf(per), np.inf, per - s))
+    same = c[1:] == c[:-1]
+    gaps = np.where(same, s[1:] - s[:-1], np.inf)
+    first = np.concatenate([[True], ~same])
+    last = np.concatenate([~same, [True]])
+    wrap = per[first] - (s[last] - s[first])      # the last shift of a column to its first
+    return bool(np.all(near_zero > 1e-9) and np.all(gaps > 1e-9) and np.all(wrap > 1e-9))
+
+
 def _layout(terms, G):
     """The displacements (T, G) and coefficients (G, T) of a list of terms."""
     T = len(terms)
@@ -172,7 +216,8 @@ def _layout(terms, G):
 
 
 def _fixed_plan(circuit, columns, inserts, options):
-    """``(delta, coeff, names)`` of a plan that depends on no angle, memoised on the circuit.
+    """``(delta, coeff, names, distinct)`` of a plan that depends on no angle, memoised on
+    the circuit (``distinct``: `distinct_points`).
 
     Generator gates' rules depend on the gate and the ``shift`` option only (not on the
     angles, the shots or the random generator), so a gradient in a training loop lays out
@@ -195,7 +240,7 @@ def _fixed_plan(circuit, columns, inserts, options):
     delta, coeff = _layout(terms, len(pops))
     for a in (delta, coeff):
         a.setflags(write=False)
-    hit = (delta, coeff, tuple(pops[t.column].gate.name for t in terms))
+    hit = (delta, coeff, tuple(pops[t.column].gate.name for t in terms), _distinct(delta, pops))
     if len(memo) > 32:          # a few column sets a circuit: keep the memo small
         memo.clear()
     memo[key] = hit

@@ -1,0 +1,363 @@
+"""Rows that differ from one point in one angle each, as a batch that grows gate by gate.
+
+The points of a first-order shift plan agree with the unshifted angles ``a`` everywhere but in
+one column. On a few qubits (`qgradlib.engine.small`) such rows run as one batch whose rows
+are born where they leave the reference: row 0 carries the reference state, and a row that
+deviates at gate k is made from it just before gate k and from there on follows the
+reference's angles. Gate j then acts on the reference and the rows born before j only, one
+kernel call on a leading slice of a preallocated buffer: half the work of the full batch,
+with no bookkeeping per row. The steps are laid out once per pattern of moved columns (a
+training loop repeats it) as products on fixed views of two buffers, which are kept for the
+next call up to `_POOL_BYTES` each; a one-qubit gate on a narrow stride acts on the float
+view of the amplitudes as one real block matrix (`qgradlib.engine.small._real_blocks`).
+
+Pauli rotations (generators that square to ``w**2 I``) need one born row per column, not one
+per shifted point: ``U(a + d) = cos(d w) U(a) + sin(d w) U(a + pi / (2 w))``, so every point
+shifted at that gate ends in ``cos(d w)`` times the reference's final state plus ``sin(d w)``
+times the final state of the one row born with the angle ``a + pi / (2 w)`` (both shifts of a
+two-term rule from one row). The identity is exact; the states agree with separate runs to
+rounding. A device would still run every circuit: the ledger counted them before the engine.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from . import kernels, small
+from .branch import _scale
+
+__all__ = ["one_column", "run_grown"]
+
+
+def one_column(phi):
+    """``(reference, column)`` when every row of ``phi`` (P, G) equals one reference point
+    but in at most one column; ``column[p]`` is that column (-1 for the reference itself).
+    None for other batches.
+
+    The reference takes, column by column, the first row's angle, or the most common one
+    where most rows differ from the first; every row is then checked against it, exactly.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> ref, col = one_column(np.array([[0.5, 1.0], [0.0, 2.0], [0.0, 1.0], [0.0, 1.0]]))
+    >>> ref.tolist(), col.tolist()
+    ([0.0, 1.0], [0, 1, -1, -1])
+    >>> one_column(np.array([[0.0, 1.0], [0.5, 2.0], [0.0, 1.0]])) is None
+    True
+    """
+    P, G = phi.shape
+    ref = phi[0].copy()
+    off = phi != ref
+    minority = np.flatnonzero(2 * np.count_nonzero(off, axis=0) > P)
+    if minority.size:
+        # row 0 is itself a shifted point there (a plan's first row): the last row's angle,
+        # or where that does not fit every row, the most common one
+        ref[minority] = phi[-1, minority]
+        off = phi != ref
+        if np.any(np.count_nonzero(off, axis=1) > 1):
+            for j in minority.tolist():
+                vals, counts = np.unique(phi[:, j], return_counts=True)
+                ref[j] = vals[np.argmax(counts)]
+            off = phi != ref
+    count = np.count_nonzero(off, axis=1)
+    if np.any(count > 1):
+        return None
+    return ref, np.where(count == 1, np.argmax(off, axis=1), -1)
+
+
+def run_grown(circuit, phi):
+    """Final states (P, 2**n) of the rows of ``phi`` (P, G) of a `small.eligible` circuit,
+    started from ``|0...0>``, by the growing batch; None unless the rows differ from one
+    reference in one column each (`one_column`).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.engine.statevector import run
+    >>> c = qg.Circuit(2).ry(0).rx(1).cz(0, 1).ry(0).ry(1)
+    >>> base = np.array([0.1, 0.2, 0.3, 0.4])
+    >>> rows = base + np.vstack([np.eye(4), -np.eye(4)]) * np.pi / 2
+    >>> bool(np.allclose(run_grown(c, rows), run(c, rows, fuse=False), rtol=0, atol=1e-14))
+    True
+    """
+    phi = np.asarray(phi, dtype=float)
+    dev = one_column(phi)
+    if dev is None:
+        return None
+    ref, col = dev
+    comp = small.compiled(circuit)
+    plan = _schedule(circuit, col)
+    # the born rows' angles: a quarter period on from the reference (twin columns), or the
+    # point's own angle
+    born_angle = np.where(plan.own, phi[plan.point, plan.column], ref[plan.column] + plan.quarter)
+    # each point: cos(d w) x the reference's final state + sin(d w) x its born row's (twin
+    # columns), its born row's (others), the reference's (the reference itself)
+    dw = (phi[plan.moved, plan.at] - ref[plan.at]) * plan.w
+    cb = np.ones(col.size)
+    cr = np.zeros(col.size)
+    cb[plan.moved] = np.where(plan.paired, np.cos(dw), 0.0)
+    cr[plan.moved] = np.where(plan.paired, np.sin(dw), 1.0)
+    return _grow(comp, ref, plan, born_angle, cb, cr)
+
+
+@dataclass(frozen=True, eq=False)
+class _Schedule:
+    """Which rows are born where, for one pattern of moved columns (the angles aside)."""
+
+    moved: np.ndarray     # the points that leave the reference
+    at: np.ndarray        # ... their columns
+    paired: np.ndarray    # ... whether their column is a twin column
+    w: np.ndarray         # ... its generator's scale there (0 where not paired)
+    row: np.ndarray       # (P,) every point's born row in the buffer (0: the reference)
+    column: np.ndarray    # per born row, in buffer order: its column,
+    own: np.ndarray       # ... whether it is one point's own row (else a twin column's),
+    point: np.ndarray     # ... that point (0 for twin rows),
+    quarter: np.ndarray   # ... pi / (2 w) for twin rows (0 for own rows)
+    start: np.ndarray     # (G + 1,) rows born at column c: 1 + start[c] : 1 + start[c + 1]
+    programs: dict        # the `_Program` of this schedule on the circuit's compiled form
+
+
+def _schedule(circuit, col):
+    """The memoised `_Schedule` of the moved columns ``col`` (a training loop's plans repeat)."""
+    memo = circuit.__dict__.setdefault("_memo_grown", {})
+    key = (len(circuit), col.tobytes())
+    hit = memo.get(key)
+    if hit is not None:
+        return hit
+    G = len(circuit.parametric_operations)
+    scales = _column_scales(circuit)
+    moved = np.flatnonzero(col >= 0)
+    at = col[moved]
+    cols, counts = np.unique(at, return_counts=True)
+    twin = ~np.isnan(scales[cols]) & (counts > 1)
+    paired = twin[np.searchsorted(cols, at)]
+    own = moved[~paired]
+    tw = cols[twin]
+    # born rows: one per twin column, one per other moved point; in the buffer in the order
+    # of their columns, which is the order of the gates
+    column = np.concatenate([tw, col[own]])
+    is_own = np.concatenate([np.zeros(tw.size, dtype=bool), np.ones(own.size, dtype=bool)])
+    point = np.concatenate([np.zeros(tw.size, dtype=np.intp), own])
+    quarter = np.concatenate([np.pi / (2 * scales[tw]), np.zeros(own.size)])
+    order = np.argsort(column, kind="stable")
+    slot = np.empty(order.size, dtype=np.intp)
+    slot[order] = np.arange(order.size)
+    row = np.zeros(col.size, dtype=np.intp)
+    twin_slot = np.zeros(G, dtype=np.intp)
+    twin_slot[tw] = slot[:tw.size]
+    row[moved[paired]] = 1 + twin_slot[at[paired]]
+    row[own] = 1 + slot[tw.size:]
+    column = column[order]
+    hit = _Schedule(moved, at, paired, np.where(paired, scales[at], 0.0), row, column,
+                    is_own[order], point[order], quarter[order],
+                    np.searchsorted(column, np.arange(G + 1)), {})
+    if len(memo) > 16:
+        memo.clear()
+    memo[key] = hit
+    return hit
+
+
+def _column_scales(circuit):
+    """Per column the generator's scale ``w`` where it squares to ``w**2 I`` (NaN where not),
+    memoised per circuit (columns only grow)."""
+    pops = circuit.parametric_operations
+    hit = circuit.__dict__.get("_memo_scales")
+    if hit is None or hit[0] != len(pops):
+        hit = (len(pops), np.array([_scale(op.gate) for op in pops], dtype=float))
+        circuit.__dict__["_memo_scales"] = hit
+    return hit[1]
+
+
+def _grow(comp, ref, plan, born_angle, cb, cr):
+    """Final states (P, 2**n) ``cb * final[0] + cr * final[plan.row]`` of the buffer whose
+    row 0 carries the reference and row 1 + i is born just before the gate of column
+    ``plan.column[i]`` with angle ``born_angle[i]`` there."""
+    prog = _program(comp, plan)
+    n = comp.n
+    tables = _tables(comp, prog, ref, born_angle)
+    # a workspace of this program's buffers and their views, taken from its pool (another
+    # thread running the same program takes another)
+    try:
+        work = prog.pool.pop()
+    except IndexError:
+        work = _workspace(comp, prog)
+    cur0 = work[0]
+    cur0[0] = 0
+    cur0[0, 0] = 1
+    for op in work[2]:
+        kind = op[0]
+        if kind == _MATMUL:             # one real (or complex) product: (operand, input, output)
+            np.matmul(*_operands(tables, op), out=op[4])
+        elif kind == _CONST:
+            small._constant(op[1], op[2], op[3], n)
+        else:                           # a step kept general: born rows, then the alive rows
+            _, s, code, x, y, a, nb, key, k, bkey, bk = op
+            if nb:
+                bm = tables[bkey][bk] if nb == 1 else tables[bkey][bk:bk + nb]
+                _born(code, s, x, y, a, nb, bm, n)
+            small._apply(code, s, x[:a], y[:a], tables[key][k], n)
+    final = work[1]
+    out = np.multiply.outer(cb, final[0])
+    out += cr[:, None] * final[plan.row]
+    if final.nbytes <= _POOL_BYTES:
+        prog.pool.append(work)
+    return out
+
+
+# workspaces up to this size (each of its two buffers) are kept for the next call
+_POOL_BYTES = 2 ** 18
+
+
+_MATMUL, _CONST, _GENERAL = range(3)
+
+
+def _operands(tables, op):
+    """``(first, second)`` factors of a `_MATMUL` op: ``op[1]`` names the table and row of
+    the matrix, ``op[2]`` whether it multiplies from the left (``m @ x``) or the right."""
+    key, k = op[1]
+    m = tables[key][k]
+    return (m, op[3]) if op[2] else (op[3], m)
+
+
+@dataclass(frozen=True, eq=False)
+class _Program:
+    """The steps of a growing batch for one circuit and one `_Schedule`: the born rows'
+    positions in the gate groups, the real blocks to build, and a pool of workspaces."""
+
+    born_groups: tuple    # per gate group: indices of the born rows of its gates
+    blocks: tuple         # (group, stride R, positions in the group) of the real blocks
+    plan: _Schedule
+    pool: list
+
+
+def _program(comp, plan):
+    """The memoised `_Program` of ``plan`` on ``comp`` (kept on the schedule)."""
+    hit = plan.programs.get(id(comp))
+    if hit is not None and hit.plan is plan:
+        return hit
+    born_groups = tuple(np.flatnonzero(np.isin(plan.column, gcols)) for _, gcols, _ in comp.groups)
+    narrow = {}
+    for s in _gate_steps(comp):
+        if s[0] == small._ONE and s[5] <= small._BLOCK_R:
+            narrow.setdefault((s[1], s[5]), []).append(s[2])
+    # per group: the positions of its narrow steps, their strides, and each stride's rows
+    blocks = []
+    for gi in sorted({gi for gi, _ in narrow}):
+        Rs = sorted(R for g2, R in narrow if g2 == gi)
+        pos = np.concatenate([narrow[(gi, R)] for R in Rs])
+        sizes = np.cumsum([0] + [len(narrow[(gi, R)]) for R in Rs])
+        blocks.append((gi, Rs, pos, [slice(a, b) for a, b in zip(sizes[:-1], sizes[1:])]))
+    blocks = tuple(blocks)
+    prog = _Program(born_groups, blocks, plan, [])
+    plan.programs.clear()
+    plan.programs[id(comp)] = prog
+    return prog
+
+
+_KINDS = (small._CONST_DIAG, small._CONST_MONO, small._CONST_DENSE, small._FIXED, small._ONE,
+          small._DIAG, small._OTHER)
+
+
+def _gate_steps(comp):
+    """The compiled steps, one gate or constant run a step: a step of another kind holds a
+    run of steps taken together for the forward pass (its ``[1]``); rows are born between
+    the gates of such a run, so it is taken apart here."""
+    for s in comp.steps:
+        if s[0] in _KINDS:
+            yield s
+        else:
+            yield from s[1]
+
+
+def _tables(comp, prog, ref, angle):
+    """The angle-dependent operands: per gate group ``("main", gi)`` the reference's
+    matrices (diagonals), ``("born", gi)`` the born rows' at their angles (one vectorised
+    call per group), ``("real", gi)`` the real parts, ``("block", gi, R)`` the real blocks
+    of the narrow one-qubit steps (`qgradlib.engine.small._real_blocks`)."""
+    tables = {}
+    for gi, (g, gcols, diag) in enumerate(comp.groups):
+        idx = prog.born_groups[gi]
+        vals = (g.diagonal_values if diag else g._matrices)(
+            np.concatenate([ref[gcols], angle[idx]]) if idx.size else ref[gcols])
+        tables[("main", gi)] = vals[:gcols.size]
+        tables[("born", gi)] = vals[gcols.size:]
+        if not diag:
+            tables[("real", gi)] = np.ascontiguousarray(vals[:gcols.size].real)
+    for gi, Rs, pos, at in prog.blocks:
+        parts = small._block_parts(tables[("main", gi)][pos])
+        for R, sl in zip(Rs, at):
+            tables[("block", gi, R)] = small._real_blocks(parts[sl], R)
+    return tables
+
+
+def _workspace(comp, prog):
+    """``(first buffer, buffer of the final states, ops)``: two buffers (1 + born rows,
+    2**n) and every step as an op on views of them, worked out once."""
+    plan = prog.plan
+    n = comp.n
+    N = 2 ** n
+    A = np.empty((1 + plan.column.size, N), dtype=complex)
+    B = np.empty_like(A)
+    x, y = A, B
+    start = plan.start
+    # where each born row sits among its group's born rows
+    born_pos = np.zeros(plan.column.size, dtype=np.intp)
+    for idx in prog.born_groups:
+        born_pos[idx] = np.arange(idx.size)
+    ops = []
+    a = 1
+    for s in _gate_steps(comp):
+        code = s[0]
+        if code < small._ONE:
+            ops.append((_CONST, s, x[:a], y[:a]))
+            if code != small._CONST_DIAG:
+                x, y = y, x
+            continue
+        gi, pos, c = s[1], s[2], s[3]
+        lo, hi = start[c], start[c + 1]
+        nb = int(hi - lo)
+        bk = int(born_pos[lo]) if nb else 0
+        if code == small._ONE and nb <= 1:
+            L, R = s[4], s[5]
+            if nb:
+                # the born row: its matrix on the reference's state, into the output buffer
+                ops.append((_MATMUL, (("born", gi), bk), True, x[0].reshape(L, 2, R), y[a].reshape(L, 2, R)))
+            f, o = x[:a].view(float), y[:a].view(float)
+            if R <= small._BLOCK_R:
+                k = next(pos_list[sl] for g2, Rs, pos_list, ats in prog.blocks if g2 == gi
+                         for R2, sl in zip(Rs, ats) if R2 == R).tolist().index(pos)
+                ops.append((_MATMUL, (("block", gi, R), k), False, f.reshape(-1, 4 * R), o.reshape(-1, 4 * R)))
+            elif not np.any(np.asarray(s[7]).real):
+                # a generator with imaginary entries only: real matrices at every angle
+                ops.append((_MATMUL, (("real", gi), pos), True, f.reshape(a * L, 2, 2 * R),
+                            o.reshape(a * L, 2, 2 * R)))
+            else:
+                ops.append((_MATMUL, (("main", gi), pos), True, x[:a].reshape(a, L, 2, R),
+                            y[:a].reshape(a, L, 2, R)))
+            x, y = y, x
+        else:
+            ops.append((_GENERAL, s, code, x, y, a, nb, ("main", gi), pos, ("born", gi), bk))
+            if code != small._DIAG:
+                x, y = y, x
+        a += nb
+    return A, x, tuple(ops)
+
+
+
+def _born(code, s, cur, other, a, nb, m, n):
+    """Rows ``a:a+nb`` of the buffer the step writes: ``m`` (shared, or one a row) applied to
+    the reference's state (row 0 of ``cur``) before the step."""
+    if code == small._DIAG:             # in place, so in the current buffer
+        dest = cur[a:a + nb]
+        dest[...] = cur[0]
+        small._diag(dest, m, s[4], s[5], s[6])
+        return
+    src = cur[:1] if nb == 1 else np.repeat(cur[:1], nb, axis=0)
+    dest = other[a:a + nb]
+    if code == small._ONE:
+        small._one(src, dest, m, s[4], s[5], s[6])
+    else:
+        kernels.apply_dense(src, n, m, s[4], dest)
