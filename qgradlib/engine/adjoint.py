@@ -30,7 +30,7 @@ from .memory import guard_states
 from .program import DIAG_WIDTH, program, step_matrix
 from .statevector import _table, run
 
-__all__ = ["adjoint_gradient", "adjoint_states", "hamiltonian_derivative"]
+__all__ = ["adjoint_gradient", "adjoint_states", "hamiltonian_derivative", "lean_backward"]
 
 
 def hamiltonian_derivative(gate, a: float) -> np.ndarray:
@@ -181,6 +181,13 @@ LEAN_AMPLITUDES = 2 ** 14
 LEAN_QUBITS = 11
 
 
+def lean_backward(circuit, rows: int, dtype=np.complex128, fuse=True) -> bool:
+    """Whether the backward pass of ``rows`` rows runs in the lean loop of
+    `qgradlib.engine.small` (few qubits, few amplitudes, double precision, fusion on)."""
+    return (fuse and np.dtype(dtype) == np.complex128 and circuit.n_qubits <= LEAN_QUBITS
+            and small.eligible(circuit) and rows * 2 ** circuit.n_qubits < LEAN_AMPLITUDES)
+
+
 def adjoint_states(rows: int, observable_scratch: float = 0.0) -> float:
     """States alive at the peak of `adjoint_gradient` on ``rows`` rows: the stacked bra and
     ket rows and their spare buffer (4 a row; the forward run inside needs only 3), plus what
@@ -250,8 +257,7 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
     del psi  # the caller's copy can go now: at most four states from here on
     # (the BLAS limit starts here, not in a wrapper, whose arguments would keep psi alive)
     with engine_threads(n):
-        if (fuse and dtype == np.complex128 and n <= LEAN_QUBITS and small.eligible(circuit)
-                and P * N < LEAN_AMPLITUDES):
+        if lean_backward(circuit, P, dtype, fuse):
             # few qubits: the lean loop of qgradlib.engine.small (same layout, same memory;
             # double precision only)
             return small.backward(circuit, both, phi, want, observable_into, apply_observable)

@@ -12,6 +12,13 @@ module. A circuit is compiled once (memoised on it by its length, as programs ar
   Their matrices (or diagonals) come from one vectorised call per gate type per run
   (`_table`), for every row at once.
 
+- *block steps* (up to `BLOCK_QUBITS` qubits): a run of parametric single-qubit gates on
+  distinct qubits is one whole-register matrix, the Kronecker product of their 2 x 2
+  matrices built per call, applied by one product. In the backward pass the gates of a
+  block commute, so all their derivatives ``2 Im <lam|G_k|psi>`` are read at the block's
+  output from one product with the stacked whole-register generators, and the block is
+  undone by one product. Where rows differ in a block's angles, its gates run one by one.
+
 The forward run alternates two buffers; the backward pass of the adjoint method walks the
 same steps in reverse on the stacked bra and ket rows (the layout and memory of
 `qgradlib.engine.adjoint`). Results agree with the general engine to rounding.
@@ -25,7 +32,7 @@ import numpy as np
 from . import kernels
 from .program import is_gate
 
-__all__ = ["SMALL_QUBITS", "DENSE_QUBITS", "eligible", "compiled", "run", "backward"]
+__all__ = ["SMALL_QUBITS", "DENSE_QUBITS", "BLOCK_QUBITS", "eligible", "compiled", "run", "backward"]
 
 # at or below this many qubits the lean loop is used
 SMALL_QUBITS = 12
@@ -39,7 +46,14 @@ _TAIL_MIN = 256
 _BLOCK_R = 8
 _EYES = {}
 
-_CONST_DIAG, _CONST_MONO, _CONST_DENSE, _FIXED, _ONE, _DIAG, _OTHER = range(7)
+# runs of single-qubit parametric gates become one whole-register block up to this many
+# qubits (above, the (N, N) product costs more than the gates one by one)
+BLOCK_QUBITS = 6
+# bytes of stacked block generators one compiled circuit may hold (blocks of one qubit
+# pattern share theirs)
+_BLOCK_BYTES = 2 ** 23
+
+_CONST_DIAG, _CONST_MONO, _CONST_DENSE, _FIXED, _ONE, _DIAG, _OTHER, _BLOCK = range(8)
 
 
 @dataclass(frozen=True, eq=False)
@@ -96,8 +110,66 @@ def _compile(circuit):
         steps.append(_gate_step(g, tuple(op.qubits), n, gi, pos, col))
         col += 1
     steps.extend(_constant_steps(run_ops, n))
+    if n <= BLOCK_QUBITS:
+        steps = _blocks(steps, n)
     glist = tuple((g, np.array(cols, dtype=np.intp), bool(g.diagonal)) for g, cols in groups.values())
     return Compiled(n, tuple(steps), glist, col)
+
+
+def _blocks(steps, n):
+    """Runs of `_ONE` steps on distinct qubits as `_BLOCK` steps (two gates or more)."""
+    out, run, shared, used = [], [], {}, [0]
+
+    def close():
+        if len(run) < 2:
+            out.extend(run)
+        else:
+            key = tuple((id(s[7]), _qubit(s, n)) for s in run)
+            if key not in shared:
+                N = 2 ** n
+                if used[0] + 16 * len(run) * N * N > _BLOCK_BYTES:
+                    out.extend(run)
+                    run.clear()
+                    return
+                used[0] += 16 * len(run) * N * N
+                # row form: (G_k psi) as a row is psi @ G_k.T, every k side by side
+                full = [_kron({_qubit(s, n): s[7].T}, n) for s in run]
+                shared[key] = np.ascontiguousarray(np.concatenate(full, axis=1))
+            out.append((_BLOCK, tuple(run), tuple(_qubit(s, n) for s in run), shared[key],
+                        np.array([s[3] for s in run], dtype=np.intp)))
+        run.clear()
+
+    for s in steps:
+        if s[0] == _ONE and _qubit(s, n) not in {_qubit(r, n) for r in run}:
+            run.append(s)
+            continue
+        close()
+        if s[0] == _ONE:
+            run.append(s)
+        else:
+            out.append(s)
+    close()
+    return out
+
+
+def _qubit(s, n):
+    """The qubit of a `_ONE` step (from its strides L = 2**q)."""
+    return s[4].bit_length() - 1
+
+
+def _kron(mats, n):
+    """The whole-register matrix of 2 x 2 matrices ``{qubit: m}`` (identity elsewhere),
+    qubit 0 the leftmost factor."""
+    out = np.ones((1, 1), dtype=complex)
+    for q in range(n):
+        m = mats.get(q)
+        if m is None:
+            m = _EYE2
+        out = (out[:, None, :, None] * m[None, :, None, :]).reshape(2 * out.shape[0], 2 * out.shape[1])
+    return out
+
+
+_EYE2 = np.eye(2, dtype=complex)
 
 
 def _constant_steps(ops, n):
@@ -303,6 +375,15 @@ def _forward(comp, cur, other, table, n):
         code = s[0]
         if code < _ONE:
             cur, other = _constant(s, cur, other, n)
+        elif code == _BLOCK:
+            mats = _block_values(s, table)
+            if mats is None:          # rows differ: the gates one by one
+                for b in s[1]:
+                    cur, other = _apply(_ONE, b, cur, other, _value(table, b[1], b[2]), n)
+            else:
+                # row form: psi -> psi @ U.T, U.T the Kronecker product of the transposes
+                np.matmul(cur, _kron({q: m.T for q, m in zip(s[2], mats)}, n), out=other)
+                cur, other = other, cur
         else:
             cur, other = _apply(code, s, cur, other, _value(table, s[1], s[2]), n)
     return cur, other
@@ -323,6 +404,14 @@ def _constant(s, cur, other, n):
     else:
         kernels.apply_dense(cur, n, s[1], s[2], other)
     return other, cur
+
+
+def _block_values(s, table):
+    """The 2 x 2 matrices of a block's gates when every row shares them, else None."""
+    mats = [_value(table, b[1], b[2]) for b in s[1]]
+    if all(type(m) is np.ndarray and m.ndim == 2 for m in mats):
+        return mats
+    return None
 
 
 def _invert(m, diag, rows):
@@ -401,10 +490,34 @@ def backward(circuit, both, phi, want, observable_into=None, apply_observable=No
     cur, other = both, buf
     for s in reversed(comp.steps):
         code = s[0]
+        if code == _BLOCK:
+            cur, other = _undo_block(s, cur, other, table, n, P, grad, want)
+            continue
         if code in (_DIAG, _ONE, _OTHER) and s[3] in want:
             _derivative(s, cur, other, n, P, grad)
         cur, other = _undo(s, cur, other, table, n)
     return grad
+
+
+def _undo_block(s, cur, other, table, n, P, grad, want):
+    """Derivatives of a block's gates, read at its output, then the block undone."""
+    mats = _block_values(s, table)
+    if mats is None:
+        for b in reversed(s[1]):
+            if b[3] in want:
+                _derivative(b, cur, other, n, P, grad)
+            cur, other = _undo(b, cur, other, table, n)
+        return cur, other
+    # the gates act on distinct qubits and commute: 2 Im <lam|G_k|psi> at the block's output
+    k = len(s[1])
+    v = (cur[:P] @ s[3]).reshape(P, k, -1)                  # rows of G_k psi
+    d = 2 * np.imag(np.einsum("pkn,pn->pk", v, cur[P:].conj()))
+    for j, c in enumerate(s[4]):
+        if c in want:
+            grad[:, c] = d[:, j]
+    # undo: row form psi -> psi @ conj(U), conj(U) the Kronecker product of the conjugates
+    np.matmul(cur, _kron({q: np.conj(m) for q, m in zip(s[2], mats)}, n), out=other)
+    return other, cur
 
 
 def _derivative(s, both, buf, n, P, grad):

@@ -1,0 +1,202 @@
+"""The lean lane: exact `expect` calls on small circuits with one autograd primitive.
+
+The common call of a training loop, ``grad(lambda t: expect(c, H, t, gradient="adjoint"))``
+on a few qubits, spends more time in thin layers (argument checks, the spec, the angle map
+as three autograd operations, the memory guard's text, BLAS thread limits, the ledger's
+bookkeeping) than in arithmetic. After one call has gone the general way and succeeded,
+`Lane` memoises on the circuit's snapshot what that call worked out, and later calls with the
+same circuit, observables and options go straight from ``theta`` to the value:
+
+- one primitive, `lane_value`, from ``theta`` (m,) to the value(s); its VJP (registered
+  below it) runs the adjoint backward pass of `qgradlib.engine.small` from the forward
+  call's final state and applies the angle map's transpose ``A.T`` itself;
+- the angle map as index and scale arrays, ``phi = theta[idx] * scale + b``;
+- the memory guard's byte counts and messages (the guard itself still runs every call);
+- the BLAS thread limit (`qgradlib.engine.threads`) only from `LIMIT_QUBITS` qubits on:
+  on four qubits one row's products are too small for a second OpenBLAS thread to matter
+  (measured the same with one thread and two), while the limit costs about 15 us a call,
+  a tenth of the whole call there; from five qubits on the whole-register products of
+  `qgradlib.engine.small` ran several times slower with two threads next to a busy process.
+
+Values and derivatives equal those of the general path to rounding, and the ledger counts the
+same circuits. Anything else (shots, readout, executors, data inputs, initial states, single
+precision, a batch of theta, nested or forward-mode derivatives, shift and difference
+gradients under autograd) takes the general path.
+
+Examples
+--------
+>>> import numpy as np
+>>> import qgradlib as qg
+>>> from autograd import grad
+>>> c = qg.Circuit(2).ry(0).cnot(0, 1).ry(1)
+>>> Z = qg.Observable({"ZZ": 1.0})
+>>> f = lambda t: qg.expect(c, Z, t, gradient="adjoint")
+>>> first = grad(f)(np.array([0.3, 0.5]))       # the general path; the lane is kept
+>>> again = grad(f)(np.array([0.3, 0.5]))       # the lane
+>>> bool(np.allclose(first, again, rtol=1e-12, atol=1e-15))
+True
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from autograd.core import VJPNode
+from autograd.extend import defvjp, primitive
+from autograd.tracer import Box
+
+from . import ledger
+from ..circuits.circuit import MAX_ANGLE
+from ..engine import memory, small
+from ..engine.adjoint import adjoint_gradient, adjoint_states, lean_backward
+from ..engine.threads import engine_threads
+from ..engine.measure import apply_observables, expectations, observable_scratch
+from .rows import peak_states
+
+__all__ = ["Lane", "lane_for", "lane_value", "LANE_QUBITS", "LIMIT_QUBITS"]
+
+# circuits of at most this many qubits take the lane (the small-state loop's limit)
+LANE_QUBITS = small.SMALL_QUBITS
+# from this many qubits on, the lane's engine calls run inside the BLAS thread limit
+LIMIT_QUBITS = 5
+
+
+@dataclass(frozen=True, eq=False)
+class Lane:
+    """What one exact call on a small circuit needs, worked out once.
+
+    ``circuit`` is the frozen snapshot the general call evaluated; ``observables`` the
+    tuple of `Observable` values (held, so that their ids stay theirs); ``adjoint`` whether
+    autograd may differentiate through the lane (``gradient="adjoint"``).
+    """
+
+    circuit: object
+    observables: tuple
+    single: bool
+    adjoint: bool
+    idx: np.ndarray          # (G,) the parameter each gate angle reads (0 for fixed angles)
+    scale: np.ndarray        # (G,) its scale (0 for fixed angles and gates read by no parameter)
+    offset: np.ndarray       # (G,) the offset, or the fixed angle
+    n_params: int
+    want: frozenset          # columns the adjoint differentiates (trainable, scale != 0)
+    settings: int            # measurement settings a device would use (for the ledger)
+    forward_bytes: int
+    forward_what: str
+    adjoint_bytes: int
+    adjoint_what: str
+    scratch: float           # states a row that applying the observables allocates
+
+    def angles(self, theta):
+        """Gate angles (1, G) of a plain theta (m,), or None when one is out of range
+        (the general path then names the problem)."""
+        phi = theta[self.idx] * self.scale + self.offset
+        if phi.size and not np.abs(phi).max() < MAX_ANGLE:
+            return None
+        return phi.reshape(1, -1)
+
+    def forward(self, phi):
+        """(values (K,), final state (1, 2**n)) at gate angles ``phi`` (1, G)."""
+        memory.guard(self.forward_bytes, self.forward_what)
+        if self.circuit.n_qubits >= LIMIT_QUBITS:
+            with engine_threads(self.circuit.n_qubits):
+                psi = small.run(self.circuit, phi)
+        else:
+            psi = small.run(self.circuit, phi)
+        vals = expectations(psi, self.circuit.n_qubits, self.observables)[0]
+        ledger.record(1, self.settings, 0, {"value": 1})
+        return vals, psi
+
+    def gradient(self, phi, psi, g):
+        """``sum_k g[k] dE_k/dtheta`` (m,) from the final state ``psi`` (1, 2**n) at ``phi``."""
+        n = self.circuit.n_qubits
+        w = np.reshape(np.asarray(g, dtype=float), (1, -1))
+
+        def into(kets, out, scratch):
+            apply_observables(kets, n, self.observables, w, out, scratch)
+
+        if not lean_backward(self.circuit, 1):
+            # the general backward pass (with its own guard and thread limit), from the state
+            dphi = adjoint_gradient(self.circuit, phi, columns=self.want, observable_into=into,
+                                    psi=psi, observable_scratch=self.scratch)[0]
+        else:
+            memory.guard(self.adjoint_bytes, self.adjoint_what)
+            both = np.empty((2, psi.shape[1]), dtype=complex)
+            both[0] = psi[0]
+            if n >= LIMIT_QUBITS:
+                with engine_threads(n):
+                    dphi = small.backward(self.circuit, both, phi, self.want, observable_into=into)[0]
+            else:
+                dphi = small.backward(self.circuit, both, phi, self.want, observable_into=into)[0]
+        # the chain rule through phi = A theta + b: A.T @ dE/dphi, A one entry a row
+        return np.bincount(self.idx, weights=self.scale * dphi, minlength=self.n_params)
+
+
+def lane_for(spec, single):
+    """The `Lane` of an exact call described by ``spec`` (a checked `Spec` of kind "expect"),
+    or None when the call does not fit one."""
+    c = spec.circuit
+    if (spec.kind != "expect" or spec.shots is not None or spec.readout is not None
+            or spec.executor is not None or spec.memory is not None or not spec.fuse
+            or spec.precision != "double" or c.n_inputs or c.has_noise
+            or c.n_qubits > LANE_QUBITS or not small.eligible(c)
+            or any(o.dense is not None for o in spec.observables)):
+        return None
+    n = c.n_qubits
+    c.angle_map()
+    _, b, idx, scale = c._cache[:4]
+    scale = np.where([op.param is not None for op in c.parametric_operations], scale, 0.0) \
+        if scale.size else scale
+    # the guards of the general path (`guard_rows`, `adjoint_gradient`), bytes and text ready
+    fwd = _guarded(n, peak_states(spec, 1), "evaluating 1 circuit(s)")
+    scratch = observable_scratch(n, spec.observables)
+    adj = _guarded(n, adjoint_states(1, scratch), "the adjoint method on 1 row(s)")
+    return Lane(c, tuple(spec.observables), bool(single), spec.gradient == "adjoint",
+                np.asarray(idx, dtype=np.intp), np.asarray(scale, dtype=float),
+                np.asarray(b, dtype=float), c.n_params, frozenset(spec.columns), spec.settings,
+                *fwd, *adj, scratch)
+
+
+def _guarded(n, states, what):
+    """``(bytes, message)`` of `qgradlib.engine.memory.guard_states` for ``states`` states."""
+    count = f"{int(states):,}" if float(states).is_integer() else f"{states:.3g}"
+    return memory.state_bytes(n, states), f"{what} ({count} states of {n} qubits at once)"
+
+
+def plain(theta, lane):
+    """Whether ``theta`` suits the lane: a float64 array (n_params,) of finite values, given
+    as it is or traced by one reverse-mode derivative (when the lane may be differentiated)."""
+    x = theta
+    if isinstance(x, Box):
+        if not lane.adjoint or type(x._node) is not VJPNode:
+            return False
+        x = x._value
+    return (type(x) is np.ndarray and x.dtype == np.float64 and x.shape == (lane.n_params,)
+            and bool(np.isfinite(x).all()))
+
+
+@primitive
+def lane_value(theta, lane, held):
+    """The value(s) of ``lane``'s observables at ``theta`` (m,): a float for one observable,
+    else (K,). ``held`` is ``[phi]``, the gate angles (1, G) of ``theta`` from
+    `Lane.angles`; the final state is appended to it for the VJP."""
+    vals, psi = lane.forward(held[0])
+    held.append(psi)
+    return vals[0] if lane.single else vals
+
+
+def _lane_value_vjp(ans, theta, lane, held):
+    phi, psi = held
+
+    def vjp(g):
+        if isinstance(g, Box):
+            # a derivative of this VJP in its cotangent: it is linear in g, with the Jacobian
+            # (a plain array, theta being traced once) as the coefficients
+            import autograd.numpy as anp
+            K = len(lane.observables)
+            J = np.stack([lane.gradient(phi, psi, np.eye(K)[k]) for k in range(K)])
+            return anp.dot(anp.reshape(g, (K,)), J)
+        return lane.gradient(phi, psi, np.reshape(g, (-1,)))
+    return vjp
+
+
+defvjp(lane_value, _lane_value_vjp)
