@@ -36,6 +36,7 @@ from . import distribute, lean, ledger
 from ..circuits.circuit import Circuit, check_inputs, check_theta
 from ..circuits.transform import qubit_sequence
 from ..engine import memory
+from ..engine.heisenberg import deviations
 from ..engine.kernels import state_dtype
 from .adjoint_nested import adjoint_jacobian, adjoint_vjp, check_nested, keep_states
 from ..engine.density import density_states, run_density
@@ -142,6 +143,8 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value", distinct=False):
 
 
 _TICK = 2.0 ** 44      # angles are compared on a grid of 2**-44 rad (about 6e-14)
+# angles in a batch from which rows that differ in one column are keyed by that column alone
+ONE_COLUMN_KEYS = 2 ** 14
 
 
 def _unique_rows(phi, circuit, inserts):
@@ -150,8 +153,8 @@ def _unique_rows(phi, circuit, inserts):
     P = phi.shape[0]
     if P == 1 or (phi.shape[1] == 0 and not inserts):
         return [0], np.zeros(P, dtype=int)
-    ticks = _angle_ticks(phi, circuit)
     if inserts:
+        ticks = _angle_ticks(phi, circuit)
         keys = [ticks[p].tobytes() + repr(sorted(inserts[p].items())).encode() for p in range(P)]
         first, inverse, rows = {}, np.empty(P, dtype=int), []
         for p, key in enumerate(keys):
@@ -160,6 +163,9 @@ def _unique_rows(phi, circuit, inserts):
                 rows.append(p)
             inverse[p] = first[key]
         return rows, inverse
+    ticks = _one_column_ticks(phi, circuit) if phi.size >= ONE_COLUMN_KEYS else None
+    if ticks is None:
+        ticks = _angle_ticks(phi, circuit)
     # one comparison key per row (its bytes), sorted once; unique keeps the first index
     t = np.ascontiguousarray(ticks)
     keys = t.view(np.dtype((np.void, t.dtype.itemsize * t.shape[1]))).reshape(P)
@@ -170,14 +176,41 @@ def _unique_rows(phi, circuit, inserts):
     return first[order].tolist(), rank[inv.reshape(-1)]
 
 
+def _one_column_ticks(phi, circuit):
+    """Keys (P, 2) that tell rows apart as `_angle_ticks` would, for rows that equal one
+    reference but in one column each (`qgradlib.engine.heisenberg.deviations`; None for
+    other rows): (column, tick of its angle), or (G, 0) where the tick is the reference's.
+    Only the deviating angles are put on the grid, not every angle of every row."""
+    dev = deviations(phi)
+    if dev is None:
+        return None
+    ref, col = dev
+    P, G = phi.shape
+    periods = _periods(circuit)
+    on = np.flatnonzero(col < G)
+    c = col[on]
+    # the deviating angles as one row whose columns carry their own gates' periods
+    tick = _ticks(phi[on, c][None], periods[c])[0]
+    moved = tick != _ticks(ref[None], periods)[0][c]
+    keys = np.zeros((P, 2))
+    keys[:, 0] = G
+    keys[on[moved], 0] = c[moved]
+    keys[on[moved], 1] = tick[moved]
+    return keys
+
+
 def _angle_ticks(phi, circuit):
     """Angles on a fine grid, reduced modulo each gate's period where it has one.
 
     Shifted points such as ``(a + pi/2) - pi/2`` or ``a + 2 pi`` differ from ``a`` only by
     rounding or by a period: they are the same circuit, run once and counted once.
     """
+    return _ticks(phi, _periods(circuit))
+
+
+def _ticks(phi, periods):
+    """`_angle_ticks` of the rows ``phi`` (P, G) whose columns have ``periods`` (G,)."""
     t = np.array(phi, dtype=float)
-    periods = _periods(circuit)
     has = ~np.isnan(periods)
     if np.any(has):
         # reduce first, round after: a point just below a period rounds onto it, hence mod again.

@@ -16,13 +16,17 @@ from ..engine.measurement import (apply_readout, measure, measure_scratch, outco
                                   point_generators, probability_scratch)
 from ..engine.statevector import run, run_states
 from ..engine.threads import engine_threads
-from ..engine import growing, small
+from ..engine import growing, heisenberg, small
 
 # at or below this many qubits, rows of small circuits run as one batch, not as branches
 BATCH_QUBITS = 8
 # ... unless rows x operations reach this: long circuits with many rows branch after all (a
 # deep narrow circuit's shifted rows skip about half of its gates)
 BRANCH_WORK = 2 ** 20
+
+# rows x operations from which a shift plan's rows of a small circuit take the carried rest of
+# the circuit (`qgradlib.engine.heisenberg`); below, setting it up costs more than the lean batch
+CARRY_WORK = 2 ** 14
 
 __all__ = ["measure_rows_here", "peak_states", "guard_rows"]
 
@@ -77,9 +81,39 @@ def measure_rows_here(phi, spec, inserts, errors=False, keep=False):
         return _measure_rows(phi, spec, inserts, errors, keep)
 
 
+def _one_column(phi, spec, inserts, keep, chunk):
+    """`qgradlib.engine.heisenberg.deviations` of rows that each differ from one reference
+    point in one angle (a first-order shift plan), when their states are to come from the
+    carried rest of the circuit; None where that does not apply: only exact expectation
+    values of a small pure-state circuit without inserts, in double precision and fused, when
+    it costs less than the branches. Its fixed part (the reference's matrices) must fit in a
+    quarter of what is available, as a chunk of rows does by default; the rows themselves
+    follow the chunks of ``spec.memory``."""
+    c = spec.circuit
+    P, G = phi.shape
+    if (keep or inserts is not None or c.has_noise or spec.kind != "expect"
+            or spec.shots is not None or spec.readout is not None or spec.precision != "double"
+            or not spec.fuse or P < 2 or G == 0 or P * len(c) < CARRY_WORK
+            # not even if every row branched at the first gate
+            or not heisenberg.worthwhile(c.n_qubits, np.zeros(P), G)
+            or not small.eligible(c)):
+        return None
+    dev = heisenberg.deviations(phi)
+    if dev is None or not heisenberg.worthwhile(c.n_qubits, dev[1], G):
+        return None
+    need = heisenberg.peak_bytes(c.n_qubits, chunk, G) + heisenberg.layout_bytes(c.n_qubits, G)
+    if need > memory.recent_available(need) // 4:
+        return None
+    return dev
+
+
 def _measure_rows(phi, spec, inserts, errors, keep):
     noisy = spec.circuit.has_noise
     chunk = _chunk(spec, phi.shape[0])
+    # a shift plan's rows on a few qubits: the rest of the circuit after each shifted gate
+    # as one carried matrix, instead of a branch per row (a device still runs every row);
+    # every chunk against the same reference, so chunks change no number
+    carried = _one_column(phi, spec, inserts, keep, chunk)
     out = np.empty((phi.shape[0], spec.n_out))
     var = np.zeros_like(out)
     states = None
@@ -87,7 +121,10 @@ def _measure_rows(phi, spec, inserts, errors, keep):
         hi = min(lo + chunk, phi.shape[0])
         ins = None if inserts is None else inserts[lo:hi]
         states = None           # the last chunk's states go before the next chunk's come
-        if noisy:
+        if carried is not None:
+            states = heisenberg.one_column_states(spec.circuit, phi[lo:hi],
+                                                  (carried[0], carried[1][lo:hi]))
+        elif noisy:
             states = run_density(spec.circuit, phi[lo:hi], ins)
         else:
             # rows that share a prefix of angles (the points of a shift plan) run as branches
