@@ -349,3 +349,22 @@ def test_memory_chunks_change_no_state(calls):
     g_small = grad(lambda t: qg.expect(c, H, t, memory=1))(theta)
     assert len(calls) > before + 1                         # one call a chunk, on this path
     assert np.max(np.abs(g - g_small)) <= 1e-14
+
+
+@pytest.mark.parametrize("n", [3, 4, 5])
+def test_layers_of_one_qubit_gates_on_distinct_qubits(calls, n):
+    """Layers of RY on every qubit (whole-register blocks of the small-state loop) with CZ
+    chains between: the carried path takes the blocks apart into their gates."""
+    c = qg.Circuit(n)
+    for _ in range(3):
+        for q in range(n):
+            c.ry(q)
+        for q in range(n - 1):
+            c.cz(q, q + 1)
+    H = qg.Observable({"ZZ" + "I" * (n - 2): 1.0, "X" + "I" * (n - 1): 0.5})
+    theta = np.random.default_rng(n).uniform(-3, 3, size=c.n_params)
+    g = grad(lambda t: qg.expect(c, H, t))(theta)
+    assert calls
+    # reference: exact derivatives of the dense simulator (scipy.linalg.expm_frechet)
+    want = theta_gradient(c, theta, observable_dense(H.terms, n))
+    assert np.max(np.abs(g - want)) <= 1e-10

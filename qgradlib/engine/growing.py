@@ -240,7 +240,7 @@ def _program(comp, plan):
         return hit
     born_groups = tuple(np.flatnonzero(np.isin(plan.column, gcols)) for _, gcols, _ in comp.groups)
     narrow = {}
-    for s in _gate_steps(comp):
+    for s in small.gate_steps(comp):
         if s[0] == small._ONE and s[5] <= small._BLOCK_R:
             narrow.setdefault((s[1], s[5]), []).append(s[2])
     # per group: the positions of its narrow steps, their strides, and each stride's rows
@@ -255,21 +255,6 @@ def _program(comp, plan):
     plan.programs.clear()
     plan.programs[id(comp)] = prog
     return prog
-
-
-_KINDS = (small._CONST_DIAG, small._CONST_MONO, small._CONST_DENSE, small._FIXED, small._ONE,
-          small._DIAG, small._OTHER)
-
-
-def _gate_steps(comp):
-    """The compiled steps, one gate or constant run a step: a step of another kind holds a
-    run of steps taken together for the forward pass (its ``[1]``); rows are born between
-    the gates of such a run, so it is taken apart here."""
-    for s in comp.steps:
-        if s[0] in _KINDS:
-            yield s
-        else:
-            yield from s[1]
 
 
 def _tables(comp, prog, ref, angle):
@@ -309,7 +294,7 @@ def _workspace(comp, prog):
         born_pos[idx] = np.arange(idx.size)
     ops = []
     a = 1
-    for s in _gate_steps(comp):
+    for s in small.gate_steps(comp):
         code = s[0]
         if code < small._ONE:
             ops.append((_CONST, s, x[:a], y[:a]))

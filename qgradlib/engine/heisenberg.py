@@ -149,7 +149,7 @@ def _layout(circuit) -> _Layout:
     runs = np.empty((G + 1, N, N), dtype=complex)
     run = np.eye(N, dtype=complex)
     k = 0
-    for s in comp.steps:
+    for s in small.gate_steps(comp):
         if s[0] in (small._DIAG, small._ONE, small._OTHER):
             runs[k] = run
             run = np.eye(N, dtype=complex)

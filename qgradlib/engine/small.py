@@ -32,7 +32,7 @@ import numpy as np
 from . import kernels
 from .program import is_gate
 
-__all__ = ["SMALL_QUBITS", "DENSE_QUBITS", "BLOCK_QUBITS", "eligible", "compiled", "run", "backward"]
+__all__ = ["SMALL_QUBITS", "DENSE_QUBITS", "BLOCK_QUBITS", "eligible", "compiled", "gate_steps", "run", "backward"]
 
 # at or below this many qubits the lean loop is used
 SMALL_QUBITS = 12
@@ -114,6 +114,18 @@ def _compile(circuit):
         steps = _blocks(steps, n)
     glist = tuple((g, np.array(cols, dtype=np.intp), bool(g.diagonal)) for g, cols in groups.values())
     return Compiled(n, tuple(steps), glist, col)
+
+
+def gate_steps(comp):
+    """The compiled steps of ``comp``, one gate or constant run a step: a `_BLOCK` step holds
+    a run of gate steps taken together for the forward pass (its ``[1]``); callers that need
+    the gates one by one (rows born between them, a carried rest of the circuit) get them
+    taken apart here."""
+    for s in comp.steps:
+        if s[0] == _BLOCK:
+            yield from s[1]
+        else:
+            yield s
 
 
 def _blocks(steps, n):
