@@ -169,19 +169,11 @@ def _layout(circuit) -> _Layout:
 
 
 def _constant_matrix(s, n):
-    """The dense (N, N) matrix of one constant step of `qgradlib.engine.small`."""
+    """The dense (N, N) matrix of one constant step of `qgradlib.engine.small`, by applying
+    it to the basis with the loop's own code (row i of the result is the step on e_i)."""
     N = 2 ** n
-    code = s[0]
-    if code == small._CONST_DIAG:
-        return np.diag(s[1].astype(complex))
-    if code == small._CONST_MONO:
-        # out[i] = ph[i] * psi[src[i]]
-        m = np.zeros((N, N), dtype=complex)
-        m[np.arange(N), s[1]] = 1.0 if s[2] is None else s[2]
-        return m
-    if code == small._CONST_DENSE:
-        return s[1].T            # rows times s[1] is U psi: s[1] is U transposed
-    return _embedded(s[1][None], s[2], n)[0]          # a fixed gate of its own
+    res, _ = small._constant(s, np.eye(N, dtype=complex), np.empty((N, N), dtype=complex), n)
+    return res.T.copy()
 
 
 def _embedded(mats, qubits, n):
