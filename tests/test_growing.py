@@ -13,6 +13,7 @@ from hypothesis import given, strategies as st
 
 import qgradlib as qg
 from qgradlib.engine import growing, small
+from qgradlib.engine.heisenberg import deviations
 from qgradlib.engine.statevector import run
 from qgradlib.evaluation.expectation import _unique_rows
 from qgradlib.rules.plans import distinct_points, first_order_points
@@ -52,15 +53,21 @@ def test_rows_of_many_moved_columns_are_refused():
     # common practice: a row moved in two angles is no one-column deviation
     c = qg.Circuit(2).ry(0).ry(1)
     assert growing.run_grown(c, np.array([[0.0, 0.0], [0.5, 0.5], [0.0, 0.0]])) is None
-    assert growing.one_column(np.array([[0.1, 0.2], [0.3, 0.4]])) is None
-    ref, col = growing.one_column(np.array([[0.1, 0.2], [0.1, 0.4]]))   # either row is the reference
-    assert ref.tolist() == [0.1, 0.2] and col.tolist() == [-1, 1]
+    # the growing batch finds its reference with heisenberg.deviations (G: the reference itself)
+    assert deviations(np.array([[0.1, 0.2], [0.3, 0.4]])) is None
+    ref, col = deviations(np.array([[0.1, 0.2], [0.1, 0.4]]))   # either row is the reference
+    assert ref.tolist() == [0.1, 0.2] and col.tolist() == [2, 1]
 
 
 def test_reference_found_when_the_first_row_is_moved():
     phi = np.array([[9.0, 2.0, 3.0], [1.0, 2.0, 3.0], [1.0, 7.0, 3.0], [1.0, 2.0, 3.0]])
-    ref, col = growing.one_column(phi)
-    assert ref.tolist() == [1.0, 2.0, 3.0] and col.tolist() == [0, -1, 1, -1]
+    ref, col = deviations(phi)
+    assert ref.tolist() == [1.0, 2.0, 3.0] and col.tolist() == [0, 3, 1, 3]
+    # and the growing batch runs from it: the states equal separate runs
+    c = qg.Circuit(2).ry(0).ry(1).cz(0, 1).rx(1)
+    got = growing.run_grown(c, phi)
+    assert got is not None
+    assert np.max(np.abs(got - run(c, phi, fuse=False))) <= 1e-12
 
 
 def _mixed(n, layers):

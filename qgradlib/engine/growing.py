@@ -26,51 +26,15 @@ import numpy as np
 
 from . import kernels, small
 from .branch import _scale
+from .heisenberg import deviations
 
-__all__ = ["one_column", "run_grown"]
-
-
-def one_column(phi):
-    """``(reference, column)`` when every row of ``phi`` (P, G) equals one reference point
-    but in at most one column; ``column[p]`` is that column (-1 for the reference itself).
-    None for other batches.
-
-    The reference takes, column by column, the first row's angle, or the most common one
-    where most rows differ from the first; every row is then checked against it, exactly.
-
-    Examples
-    --------
-    >>> import numpy as np
-    >>> ref, col = one_column(np.array([[0.5, 1.0], [0.0, 2.0], [0.0, 1.0], [0.0, 1.0]]))
-    >>> ref.tolist(), col.tolist()
-    ([0.0, 1.0], [0, 1, -1, -1])
-    >>> one_column(np.array([[0.0, 1.0], [0.5, 2.0], [0.0, 1.0]])) is None
-    True
-    """
-    P, G = phi.shape
-    ref = phi[0].copy()
-    off = phi != ref
-    minority = np.flatnonzero(2 * np.count_nonzero(off, axis=0) > P)
-    if minority.size:
-        # row 0 is itself a shifted point there (a plan's first row): the last row's angle,
-        # or where that does not fit every row, the most common one
-        ref[minority] = phi[-1, minority]
-        off = phi != ref
-        if np.any(np.count_nonzero(off, axis=1) > 1):
-            for j in minority.tolist():
-                vals, counts = np.unique(phi[:, j], return_counts=True)
-                ref[j] = vals[np.argmax(counts)]
-            off = phi != ref
-    count = np.count_nonzero(off, axis=1)
-    if np.any(count > 1):
-        return None
-    return ref, np.where(count == 1, np.argmax(off, axis=1), -1)
+__all__ = ["run_grown"]
 
 
 def run_grown(circuit, phi):
     """Final states (P, 2**n) of the rows of ``phi`` (P, G) of a `small.eligible` circuit,
     started from ``|0...0>``, by the growing batch; None unless the rows differ from one
-    reference in one column each (`one_column`).
+    reference in one column each (`qgradlib.engine.heisenberg.deviations`).
 
     Examples
     --------
@@ -84,10 +48,11 @@ def run_grown(circuit, phi):
     True
     """
     phi = np.asarray(phi, dtype=float)
-    dev = one_column(phi)
+    dev = deviations(phi)
     if dev is None:
         return None
     ref, col = dev
+    col = np.where(col == phi.shape[1], -1, col)        # -1: the reference itself
     comp = small.compiled(circuit)
     plan = _schedule(circuit, col)
     # the born rows' angles: a quarter period on from the reference (twin columns), or the
