@@ -18,7 +18,7 @@ from qgradlib.engine.statevector import run
 from qgradlib.evaluation.expectation import _unique_rows
 from qgradlib.rules.plans import distinct_points, first_order_points
 from test_fusion import circuits
-from reference import circuit_ops, dense_state
+from reference import circuit_ops, dense_expectation, dense_state, observable_dense
 
 
 def _plan_rows(c, seed, extra):
@@ -47,6 +47,14 @@ def test_grown_states_equal_dense_reference_and_general_engine(c, seed, extra):
     want = np.array([dense_state(circuit_ops(c, row), c.n_qubits) for row in rows])
     assert np.max(np.abs(got - want)) <= 1e-12
     assert np.max(np.abs(got - run(c, rows, fuse=False))) <= 1e-12
+    # the values without the rows' states: against the dense states' values
+    n = c.n_qubits
+    obs = [qg.Observable({"Z" * n: 1.0, "X" + "I" * (n - 1): 0.5, "I" * (n - 1) + "Y": -0.3}),
+           qg.Observable({"Y" * n: 0.7})]
+    vals = growing.grown_values(c, rows, obs)
+    for k, o in enumerate(obs):
+        M = observable_dense(o.terms, n)
+        assert np.max(np.abs(vals[:, k] - [dense_expectation(w, M) for w in want])) <= 1e-12
 
 
 def test_rows_of_many_moved_columns_are_refused():

@@ -216,3 +216,34 @@ def test_blocks_of_single_qubit_gates_are_one_step():
     codes = [s[0] for s in comp.steps]
     assert codes.count(small._BLOCK) == 1 and codes.count(small._ONE) == 2
     assert lean.LANE_QUBITS == small.SMALL_QUBITS
+
+
+@pytest.mark.parametrize("n", [3, 6])
+def test_shift_lane_differentiates_by_the_general_paths_plan(n):
+    c = qg.Circuit(n)
+    for layer in range(3):
+        for q in range(n):
+            (c.ry if (q + layer) % 2 else c.rx)(q)
+        for q in range(n - 1):
+            c.cz(q, q + 1)
+    c.rz(0, param=0, scale=2.0)                 # a parameter read by two gates
+    H = _obs(n)[0]
+    theta = np.random.default_rng(n).uniform(-3, 3, size=c.n_params)
+    f = lambda t: qg.expect(c, H, t)  # noqa: E731
+    with qg.Ledger() as general:
+        first = grad(f)(theta)
+    assert _lane_hit(c)
+    with qg.Ledger() as laned:
+        g = grad(f)(theta)
+    # common practice: two-term rule, 2 circuits per gate angle plus the value; the lane
+    # counts what the general path counts
+    assert laned.circuits == general.circuits == 2 * len(c.parametric_operations) + 1
+    assert np.max(np.abs(g - first)) <= 1e-12
+    # reference: the dense simulator of tests/reference (scipy.linalg.expm_frechet derivatives)
+    assert np.max(np.abs(g - theta_gradient(c, theta, observable_dense(H.terms, n)))) <= 1e-11
+    # reference: autograd.test_util.check_grads, to second order (the nested derivative
+    # leaves the lane for the general path)
+    check_grads(f, modes=["rev"], order=2)(theta)
+    J = jacobian(lambda t: qg.expect(c, _obs(n), t))
+    J(theta)
+    assert np.allclose(J(theta)[0], g, atol=1e-12)

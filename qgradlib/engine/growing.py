@@ -24,11 +24,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import kernels, small
+from . import kernels, sides, small
 from .branch import _scale
 from .heisenberg import deviations
+from .measure import apply_observables, expectations
 
-__all__ = ["run_grown"]
+__all__ = ["run_grown", "grown_values"]
 
 
 def run_grown(circuit, phi):
@@ -47,6 +48,38 @@ def run_grown(circuit, phi):
     >>> bool(np.allclose(run_grown(c, rows), run(c, rows, fuse=False), rtol=0, atol=1e-14))
     True
     """
+    return _grown(circuit, phi, _combined)
+
+
+def grown_values(circuit, phi, observables):
+    """Exact expectation values (P, K) of ``observables`` at the rows of ``phi`` (P, G), by
+    the growing batch without forming every row's state; None where `run_grown` is None.
+
+    A point is ``cb psi_0 + cr psi_r`` (the reference's final state and its born row's), so
+    its value is ``cb**2 E(psi_0) + cr**2 E(psi_r) + 2 cb cr Re <psi_0|O|psi_r>``: the values
+    of the born rows and one overlap each with ``O psi_0``, half the rows' readout.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.engine.measure import expectations
+    >>> c = qg.Circuit(2).ry(0).rx(1).cz(0, 1).ry(0).ry(1)
+    >>> rows = np.array([0.1, 0.2, 0.3, 0.4]) + np.vstack([np.eye(4), -np.eye(4)]) * np.pi / 2
+    >>> H = [qg.Observable({"ZZ": 1.0, "XI": 0.5}), qg.Observable({"YY": -0.3})]
+    >>> bool(np.allclose(grown_values(c, rows, H), expectations(run_grown(c, rows), 2, H),
+    ...                  rtol=0, atol=1e-14))
+    True
+    """
+    n = circuit.n_qubits
+    return _grown(circuit, phi, lambda final, plan, cb, cr: _values(final, plan, cb, cr, n,
+                                                                    observables))
+
+
+def _grown(circuit, phi, combine):
+    """``combine(final, plan, cb, cr)`` of the growing batch's final states (row 0 the
+    reference, 1 + i born row i), or None unless the rows differ from one reference in one
+    column each."""
     phi = np.asarray(phi, dtype=float)
     dev = deviations(phi)
     if dev is None:
@@ -65,7 +98,11 @@ def run_grown(circuit, phi):
     cr = np.zeros(col.size)
     cb[plan.moved] = np.where(plan.paired, np.cos(dw), 0.0)
     cr[plan.moved] = np.where(plan.paired, np.sin(dw), 1.0)
-    return _grow(comp, ref, plan, born_angle, cb, cr)
+    if sides.eligible(circuit):
+        # layers of one-qubit gates: the born rows as a batch of two products a layer
+        final = sides.born_finals(circuit, ref, plan.column, born_angle)
+        return combine(final, plan, cb, cr)
+    return _grow(comp, ref, plan, born_angle, cb, cr, combine)
 
 
 @dataclass(frozen=True, eq=False)
@@ -136,9 +173,9 @@ def _column_scales(circuit):
     return hit[1]
 
 
-def _grow(comp, ref, plan, born_angle, cb, cr):
-    """Final states (P, 2**n) ``cb * final[0] + cr * final[plan.row]`` of the buffer whose
-    row 0 carries the reference and row 1 + i is born just before the gate of column
+def _grow(comp, ref, plan, born_angle, cb, cr, combine):
+    """``combine(final, plan, cb, cr)`` of the final states of the buffer whose row 0
+    carries the reference and row 1 + i is born just before the gate of column
     ``plan.column[i]`` with angle ``born_angle[i]`` there."""
     prog = _program(comp, plan)
     n = comp.n
@@ -164,12 +201,29 @@ def _grow(comp, ref, plan, born_angle, cb, cr):
                 bm = tables[bkey][bk] if nb == 1 else tables[bkey][bk:bk + nb]
                 _born(code, s, x, y, a, nb, bm, n)
             small._apply(code, s, x[:a], y[:a], tables[key][k], n)
-    final = work[1]
-    out = np.multiply.outer(cb, final[0])
-    out += cr[:, None] * final[plan.row]
-    if final.nbytes <= _POOL_BYTES:
+    out = combine(work[1], plan, cb, cr)
+    if work[1].nbytes <= _POOL_BYTES:
         prog.pool.append(work)
     return out
+
+
+def _combined(final, plan, cb, cr):
+    """Every point's final state ``cb * final[0] + cr * final[plan.row]``."""
+    out = np.multiply.outer(cb, final[0])
+    out += cr[:, None] * final[plan.row]
+    return out
+
+
+def _values(final, plan, cb, cr, n, observables):
+    """Every point's values (P, K) from the final states' values and their overlaps with
+    ``O_k psi_0`` (see `grown_values`)."""
+    K = len(observables)
+    E = expectations(final, n, observables)                               # (R + 1, K)
+    lam = apply_observables(np.repeat(final[:1], K, axis=0), n, observables, np.eye(K))
+    cross = (final.conj() @ lam.T).real                                   # Re <psi_r|O_k psi_0>
+    r = plan.row
+    return ((cb * cb)[:, None] * E[0] + (cr * cr)[:, None] * E[r]
+            + (2 * cb * cr)[:, None] * cross[r])
 
 
 # workspaces up to this size (each of its two buffers) are kept for the next call

@@ -28,7 +28,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import kernels, small
-from .branch import divergence
+from .branch import _reference
 
 __all__ = ["MAX_QUBITS", "COST_QUBITS", "deviations", "worthwhile", "peak_bytes", "layout_bytes",
            "one_column_states"]
@@ -63,7 +63,7 @@ def deviations(phi):
     None when no such point is found.
 
     The reference is the column-wise most common angle
-    (`qgradlib.engine.branch.divergence`) of the first few rows, or failing that of rows
+    (as in `qgradlib.engine.branch.divergence`) of the first few rows, or failing that of rows
     spread over the batch: a shift plan's rows agree with it but for one column each, so a
     few rows settle it and the check of every row is one comparison pass. (A batch whose
     samples mislead returns None: the general engine then runs it, as exactly.)
@@ -79,7 +79,7 @@ def deviations(phi):
     """
     P, G = phi.shape
     for sample in (phi[:_SAMPLE], phi[::max(1, P // _SPREAD)]):
-        ref = divergence(sample)[0]
+        ref = _reference(sample, None)[0]
         if np.any(np.count_nonzero(sample != ref, axis=1) > 1):
             continue                  # not even the sample fits: no pass over every row
         diff = phi != ref

@@ -485,6 +485,28 @@ def _apply_layout(psi, layout, w, out, scratch):
     return out
 
 
+def observable_pieces(n: int, obs):
+    """``O psi = sum_k phases_k * psi[flip_k]`` (``psi`` itself where flip is None) for one
+    observable on few qubits: ``[(flip (N,) intp or None, phases (N,))]``, one a flip pattern
+    of its words; None where `_readout` has no layout (many qubits, a dense part).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> pieces = observable_pieces(1, qg.Observable({"X": 2.0, "Z": 0.5}))
+    >>> psi = np.array([0.6, 0.8j])
+    >>> lam = sum(ph * (psi if f is None else psi[f]) for f, ph in pieces)
+    >>> bool(np.allclose(lam, np.array([[0.5, 2.0], [2.0, -0.5]]) @ psi))
+    True
+    """
+    layout = _readout(n, [obs])
+    if layout is None:
+        return None
+    return [(None, W[:, 0].copy()) if flip is None else (flip, Wf[0].copy())
+            for flip, W, Wf in layout]
+
+
 def apply_observable(psi: np.ndarray, n: int, obs, out=None, scratch=None) -> np.ndarray:
     """O psi for every row (the state the adjoint method starts its bra from)."""
     return apply_observables(psi, n, [obs], None, out, scratch)

@@ -32,7 +32,8 @@ import numpy as np
 from . import kernels
 from .program import is_gate
 
-__all__ = ["SMALL_QUBITS", "DENSE_QUBITS", "BLOCK_QUBITS", "eligible", "compiled", "gate_steps", "run", "backward"]
+__all__ = ["SMALL_QUBITS", "DENSE_QUBITS", "BLOCK_QUBITS", "eligible", "memoised", "compiled", "gate_steps",
+           "run", "backward"]
 
 # at or below this many qubits the lean loop is used
 SMALL_QUBITS = 12
@@ -71,23 +72,31 @@ def eligible(circuit, inserts=None) -> bool:
     kind only, no inserted rotations."""
     if inserts is not None or circuit.n_qubits > SMALL_QUBITS:
         return False
-    hit = circuit.__dict__.get("_memo_small_ok")
+    return memoised(circuit, "_memo_small_ok", lambda c: all(
+        is_gate(op.gate) and op.gate.kind in ("fixed", "generator") for op in c.operations))
+
+
+def memoised(circuit, key, build):
+    """``build(circuit)``, memoised on the circuit under ``key`` until it grows (a circuit
+    only ever grows: its length says whether a memo is still its own).
+
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(1).ry(0)
+    >>> memoised(c, "_memo_doc", len), memoised(c.rx(0), "_memo_doc", len)
+    (1, 2)
+    """
+    hit = circuit.__dict__.get(key)
     if hit is None or hit[0] != len(circuit):
-        ok = all(is_gate(op.gate) and op.gate.kind in ("fixed", "generator")
-                 for op in circuit.operations)
-        hit = (len(circuit), ok)
-        circuit.__dict__["_memo_small_ok"] = hit
+        hit = (len(circuit), build(circuit))
+        circuit.__dict__[key] = hit
     return hit[1]
 
 
 def compiled(circuit) -> Compiled:
     """The memoised `Compiled` form of an `eligible` circuit (recompiled when it grows)."""
-    hit = circuit.__dict__.get("_memo_small")
-    if hit is not None and hit[0] == len(circuit):
-        return hit[1]
-    comp = _compile(circuit)
-    circuit.__dict__["_memo_small"] = (len(circuit), comp)
-    return comp
+    return memoised(circuit, "_memo_small", _compile)
 
 
 def _compile(circuit):

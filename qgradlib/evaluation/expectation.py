@@ -790,7 +790,7 @@ def _lane_call(circuit, observables, theta, key):
     phi = lane.angles(getval(theta))
     if phi is None:
         return None
-    return lean.lane_value(theta, lane, [phi])
+    return lean.lane_value(theta, lane, [phi, isinstance(theta, Box)])
 
 
 def _keep_lane(spec, single, key):
@@ -798,7 +798,9 @@ def _keep_lane(spec, single, key):
     lanes = spec.circuit.__dict__.setdefault("_memo_lanes", {})
     if key in lanes:
         return
-    lane = lean.lane_for(spec, single)
+    # shift-rule derivatives of a lane's values: the general path's own plan and batch
+    shifts = None if spec.gradient != "shift" else (lambda phi: _shift_jacobian(phi, spec, None))
+    lane = lean.lane_for(spec, single, shifts)
     if lane is not None:
         if len(lanes) >= 8:     # a few observables and option sets a circuit
             lanes.clear()

@@ -47,10 +47,10 @@ from autograd.tracer import Box
 
 from . import ledger
 from ..circuits.circuit import MAX_ANGLE
-from ..engine import memory, small
+from ..engine import memory, sides, small
 from ..engine.adjoint import adjoint_gradient, adjoint_states, lean_backward
 from ..engine.threads import engine_threads
-from ..engine.measure import apply_observables, expectations, observable_scratch
+from ..engine.measure import apply_observables, expectations, observable_pieces, observable_scratch
 from .rows import peak_states
 
 __all__ = ["Lane", "lane_for", "lane_value", "LANE_QUBITS", "LIMIT_QUBITS"]
@@ -85,6 +85,18 @@ class Lane:
     adjoint_bytes: int
     adjoint_what: str
     scratch: float           # states a row that applying the observables allocates
+    layered: bool            # whether the circuit runs as layers (`qgradlib.engine.sides`)
+    first: int               # the earliest layer holding a column to differentiate
+    kept_bytes: int
+    kept_what: str
+    pieces: object           # one observable's `observable_pieces` (a traced layered call), or None
+    shifts: object           # phi (1, G) -> the shift-rule Jacobian (1, K, G), or None
+
+    def to_theta(self, dphi):
+        """The chain rule through phi = A theta + b: ``A.T @ dphi`` (m,), A one entry a row
+        (float even when there is no gate: bincount of nothing counts in ints)."""
+        return np.bincount(self.idx, weights=self.scale * dphi, minlength=self.n_params).astype(
+            float, copy=False)
 
     def angles(self, theta):
         """Gate angles (1, G) of a plain theta (m,), or None when one is out of range
@@ -94,8 +106,24 @@ class Lane:
             return None
         return phi.reshape(1, -1)
 
-    def forward(self, phi):
-        """(values (K,), final state (1, 2**n)) at gate angles ``phi`` (1, G)."""
+    def forward(self, phi, keep=False):
+        """(values (K,), final state (1, 2**n), kept run or None) at gate angles ``phi``
+        (1, G); ``keep`` (for a traced call) keeps what the layered gradient reads."""
+        if self.layered:
+            if keep:
+                memory.guard(self.kept_bytes, self.kept_what)
+            else:
+                memory.guard(self.forward_bytes, self.forward_what)
+            psi, kept = sides.run(self.circuit, phi[0], keep=keep)
+            if keep and self.pieces is not None:
+                # one observable: its bra O psi now, the value <psi|O psi> from it
+                lam = _applied(self.pieces, psi)
+                ledger.record(1, self.settings, 0, {"value": 1})
+                return np.array([np.vdot(psi, lam).real]), psi, (kept, lam)
+            psi = psi.reshape(1, -1)
+            vals = expectations(psi, self.circuit.n_qubits, self.observables)[0]
+            ledger.record(1, self.settings, 0, {"value": 1})
+            return vals, psi, kept
         memory.guard(self.forward_bytes, self.forward_what)
         if self.circuit.n_qubits >= LIMIT_QUBITS:
             with engine_threads(self.circuit.n_qubits):
@@ -104,12 +132,22 @@ class Lane:
             psi = small.run(self.circuit, phi)
         vals = expectations(psi, self.circuit.n_qubits, self.observables)[0]
         ledger.record(1, self.settings, 0, {"value": 1})
-        return vals, psi
+        return vals, psi, None
 
-    def gradient(self, phi, psi, g):
-        """``sum_k g[k] dE_k/dtheta`` (m,) from the final state ``psi`` (1, 2**n) at ``phi``."""
+    def gradient(self, phi, psi, g, kept=None):
+        """``sum_k g[k] dE_k/dtheta`` (m,) from the final state ``psi`` (1, 2**n) at ``phi``
+        (and the kept run of a layered circuit)."""
         n = self.circuit.n_qubits
         w = np.reshape(np.asarray(g, dtype=float), (1, -1))
+        if type(kept) is tuple:
+            kept, lam = kept
+            dphi = sides.gradient(self.circuit, kept, lam, self.first) * w[0, 0]
+            return self.to_theta(dphi)
+        if kept is not None:
+            lam = np.empty_like(psi)
+            apply_observables(psi, n, self.observables, w, lam, np.empty_like(psi))
+            dphi = sides.gradient(self.circuit, kept, lam[0], self.first)
+            return self.to_theta(dphi)
 
         def into(kets, out, scratch):
             apply_observables(kets, n, self.observables, w, out, scratch)
@@ -127,13 +165,13 @@ class Lane:
                     dphi = small.backward(self.circuit, both, phi, self.want, observable_into=into)[0]
             else:
                 dphi = small.backward(self.circuit, both, phi, self.want, observable_into=into)[0]
-        # the chain rule through phi = A theta + b: A.T @ dE/dphi, A one entry a row
-        return np.bincount(self.idx, weights=self.scale * dphi, minlength=self.n_params)
+        return self.to_theta(dphi)
 
 
-def lane_for(spec, single):
+def lane_for(spec, single, shifts=None):
     """The `Lane` of an exact call described by ``spec`` (a checked `Spec` of kind "expect"),
-    or None when the call does not fit one."""
+    or None when the call does not fit one. ``shifts`` (``gradient="shift"``) computes the
+    shift-rule Jacobian at gate angles (1, G) the way the general path's VJP does."""
     c = spec.circuit
     if (spec.kind != "expect" or spec.shots is not None or spec.readout is not None
             or spec.executor is not None or spec.memory is not None or not spec.fuse
@@ -150,10 +188,30 @@ def lane_for(spec, single):
     fwd = _guarded(n, peak_states(spec, 1), "evaluating 1 circuit(s)")
     scratch = observable_scratch(n, spec.observables)
     adj = _guarded(n, adjoint_states(1, scratch), "the adjoint method on 1 row(s)")
+    want = frozenset(spec.columns)
+    layered, first, kept = False, 0, (0, "")
+    if sides.eligible(c):
+        comp = sides.compiled(c)
+        states = sides.kept_states(comp) + scratch
+        if memory.state_bytes(n, states) <= sides.KEEP_BYTES:
+            layered = True
+            first = min((int(comp.layer[k]) for k in want), default=comp.n_layers)
+            kept = _guarded(n, states, "the adjoint method on 1 row(s), states kept a layer")
+    pieces = (observable_pieces(n, spec.observables[0])
+              if layered and single and spec.gradient == "adjoint" else None)
     return Lane(c, tuple(spec.observables), bool(single), spec.gradient == "adjoint",
                 np.asarray(idx, dtype=np.intp), np.asarray(scale, dtype=float),
-                np.asarray(b, dtype=float), c.n_params, frozenset(spec.columns), spec.settings,
-                *fwd, *adj, scratch)
+                np.asarray(b, dtype=float), c.n_params, want, spec.settings,
+                *fwd, *adj, scratch, layered, first, *kept, pieces, shifts)
+
+
+def _applied(pieces, psi):
+    """``O psi`` (N,) of a state (N,) from an observable's pieces."""
+    flip, ph = pieces[0]
+    lam = psi * ph if flip is None else np.take(psi, flip) * ph
+    for flip, ph in pieces[1:]:
+        lam += (psi if flip is None else np.take(psi, flip)) * ph
+    return lam
 
 
 def _guarded(n, states, what):
@@ -167,7 +225,7 @@ def plain(theta, lane):
     as it is or traced by one reverse-mode derivative (when the lane may be differentiated)."""
     x = theta
     if isinstance(x, Box):
-        if not lane.adjoint or type(x._node) is not VJPNode:
+        if not (lane.adjoint or lane.shifts is not None) or type(x._node) is not VJPNode:
             return False
         x = x._value
     return (type(x) is np.ndarray and x.dtype == np.float64 and x.shape == (lane.n_params,)
@@ -178,14 +236,17 @@ def plain(theta, lane):
 def lane_value(theta, lane, held):
     """The value(s) of ``lane``'s observables at ``theta`` (m,): a float for one observable,
     else (K,). ``held`` is ``[phi]``, the gate angles (1, G) of ``theta`` from
-    `Lane.angles`; the final state is appended to it for the VJP."""
-    vals, psi = lane.forward(held[0])
-    held.append(psi)
+    `Lane.angles`, and whether the call is traced (the layered run then keeps its states);
+    the final state and the kept run are appended to it for the VJP."""
+    vals, psi, kept = lane.forward(held[0], keep=held[1] and lane.adjoint)
+    held[1:] = [psi, kept]
     return vals[0] if lane.single else vals
 
 
 def _lane_value_vjp(ans, theta, lane, held):
-    phi, psi = held
+    phi, psi, kept = held
+    if not lane.adjoint:
+        return _shift_vjp(lane, phi)
 
     def vjp(g):
         if isinstance(g, Box):
@@ -193,10 +254,35 @@ def _lane_value_vjp(ans, theta, lane, held):
             # (a plain array, theta being traced once) as the coefficients
             import autograd.numpy as anp
             K = len(lane.observables)
-            J = np.stack([lane.gradient(phi, psi, np.eye(K)[k]) for k in range(K)])
+            J = np.stack([lane.gradient(phi, psi, np.eye(K)[k], kept) for k in range(K)])
             return anp.dot(anp.reshape(g, (K,)), J)
-        return lane.gradient(phi, psi, np.reshape(g, (-1,)))
+        return lane.gradient(phi, psi, np.reshape(g, (-1,)), kept)
     return vjp
+
+
+def _shift_vjp(lane, phi):
+    """The VJP of a shift-rule lane: ``g`` times the plan's Jacobian (built once, for all
+    the VJP calls of a jacobian), then ``A.T``."""
+    cache = []
+
+    def vjp(g):
+        if not cache:
+            cache.append(lane.shifts(phi)[0])           # (K, G)
+        J = cache[0]
+        if isinstance(g, Box):
+            import autograd.numpy as anp
+            dphi = anp.dot(anp.reshape(g, (-1,)), J)
+            return anp.dot(dphi, _map_transpose(lane))
+        dphi = np.reshape(g, (-1,)) @ J
+        return lane.to_theta(dphi)
+    return vjp
+
+
+def _map_transpose(lane):
+    """A.T as a dense (G, m) array (for a traced cotangent)."""
+    A = np.zeros((lane.idx.size, lane.n_params))
+    A[np.arange(lane.idx.size), lane.idx] = lane.scale
+    return A
 
 
 defvjp(lane_value, _lane_value_vjp)

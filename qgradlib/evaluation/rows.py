@@ -16,7 +16,7 @@ from ..engine.measurement import (apply_readout, measure, measure_scratch, outco
                                   point_generators, probability_scratch)
 from ..engine.statevector import run, run_states
 from ..engine.threads import engine_threads
-from ..engine import growing, heisenberg, small
+from ..engine import growing, heisenberg, sides, small
 
 # at or below this many qubits, rows of small circuits run as one batch, not as branches
 BATCH_QUBITS = 8
@@ -132,10 +132,17 @@ def _measure_rows(phi, spec, inserts, errors, keep):
             # Small states run as one batch instead: there the trunk's bookkeeping costs more
             # than the gates it saves.
             dtype = state_dtype(spec.precision)
-            if (spec.fuse and ins is None and spec.circuit.n_qubits <= BATCH_QUBITS
-                    and dtype == np.complex128 and hi - lo > 2 and small.eligible(spec.circuit)):
+            if (spec.fuse and ins is None and dtype == np.complex128 and hi - lo > 2
+                    and (spec.circuit.n_qubits <= BATCH_QUBITS and small.eligible(spec.circuit)
+                         or sides.eligible(spec.circuit))):
                 # a shift plan's rows: a batch that grows a row where each leaves the
-                # reference (None for other rows)
+                # reference (None for other rows); exact values need no row's state
+                if (not keep and not noisy and spec.kind == "expect" and spec.shots is None
+                        and spec.readout is None):
+                    vals = growing.grown_values(spec.circuit, phi[lo:hi], spec.observables)
+                    if vals is not None:
+                        out[lo:hi], var[lo:hi] = vals, 0.0
+                        continue
                 states = growing.run_grown(spec.circuit, phi[lo:hi])
             lean = (spec.fuse and ins is None and spec.circuit.n_qubits <= BATCH_QUBITS
                     and (hi - lo) * len(spec.circuit) < BRANCH_WORK

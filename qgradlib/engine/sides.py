@@ -1,0 +1,489 @@
+"""The state as a matrix: a layer of one-qubit gates as one left and one right product.
+
+On up to `SIDE_QUBITS` qubits the cost of the adjoint method is Python calls, not arithmetic:
+a gate at a time is several NumPy calls forward and several more backward. Seen as a matrix
+``Psi`` (2**a, 2**b), rows the first ``a = n // 2`` qubits and columns the others, a *layer*
+(one-qubit parametric gates on distinct qubits, no fixed gate between them) acts as
+
+    Psi -> K_A Psi K_B^T,     K_A, K_B the Kronecker products of its gates on each side,
+
+two small matrix products whatever the number of gates. The factors of every layer are built
+at once, one broadcast product a qubit (`_krons`). Runs of fixed gates between layers are the
+constant steps of `qgradlib.engine.small`.
+
+The forward run keeps the state at every layer's output (``keep=True``), so the backward pass
+carries the bra alone: at each layer's output it keeps ``Lam`` too, then undoes the layer by
+two products. The derivatives of all gates come at the end from overlap matrices of the kept
+pairs, ``S_A = conj(Lam) Psi^T`` and ``S_B = Lam^H Psi`` (one batched product a side for all
+layers), reduced to each qubit's 2 x 2 overlap by one product with a 0/1 partial-trace matrix:
+
+    dE/dphi_t = 2 Im sum_ij G_t[i, j] R_t[i, j],   R_t the overlap on gate t's qubit,
+
+which is ``2 Im <lam|G_t|psi>`` at the gate's output (the gates of a layer commute). Products
+stay at or below 64 x 64 x 64 up to 12 qubits, which OpenBLAS runs on the calling thread.
+Values and derivatives equal those of the gate-at-a-time loop to rounding.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from . import small
+
+__all__ = ["SIDE_QUBITS", "Sides", "eligible", "compiled", "run", "gradient", "born_finals", "kept_states"]
+
+# at or below this many qubits circuits of one-qubit parametric gates may run as layers
+SIDE_QUBITS = 10
+# bytes the kept states of one run may take (above, the gate-at-a-time loop runs instead)
+KEEP_BYTES = 2 ** 25
+
+_LAYER = -1
+
+
+@dataclass(frozen=True, eq=False)
+class Sides:
+    """A circuit compiled into layers and constant steps (see the module docstring)."""
+
+    n: int
+    a: int                    # qubits of the row side
+    steps: tuple              # (_LAYER, layer) or a constant step of `qgradlib.engine.small`
+    groups: tuple             # (gate, columns (k,) intp) of every parametric gate type
+    n_columns: int
+    slots_a: np.ndarray       # (L, a): the column on each row-side qubit, n_columns if none
+    slots_b: np.ndarray       # (L, n - a)
+    has_a: tuple              # per layer: a gate on the row side?
+    has_b: tuple
+    layer: np.ndarray         # (G,) the layer of every column
+    qubit: np.ndarray         # (G,) its qubit
+    generators: np.ndarray    # (G, 2, 2)
+    pauli: np.ndarray         # (G + 1, 2, 2) ``-2i G`` when every G squares to I/4, else None
+    monomial: tuple           # (table (G,), flips (T, N), phases (T, N)): ``-2i G psi =
+                              # phases * psi[flips]`` when every such G is monomial, else None
+    traces_a: np.ndarray      # (4a, D_A**2): per row-side qubit its 2 x 2 partial trace
+    traces_b: np.ndarray
+    picks: dict = field(default_factory=dict)   # memo: what `gradient`, `born_finals` gather
+
+    @property
+    def n_layers(self) -> int:
+        return len(self.has_a)
+
+
+def eligible(circuit) -> bool:
+    """Whether ``circuit`` runs as layers: a `qgradlib.engine.small` circuit of at most
+    `SIDE_QUBITS` qubits whose parametric gates all act on one qubit."""
+    if circuit.n_qubits > SIDE_QUBITS or not small.eligible(circuit):
+        return False
+    return small.memoised(circuit, "_memo_sides_ok", lambda c: all(
+        len(op.qubits) == 1 for op in c.parametric_operations))
+
+
+def compiled(circuit) -> Sides:
+    """The memoised `Sides` form of an `eligible` circuit (recompiled when it grows)."""
+    return small.memoised(circuit, "_memo_sides", _compile)
+
+
+def kept_states(comp: Sides) -> int:
+    """States a kept run and its gradient hold at once: the bra and the ket at every layer's
+    output, and four working states."""
+    return 2 * comp.n_layers + 4
+
+
+def _compile(circuit):
+    n = circuit.n_qubits
+    a = n // 2
+    steps, fixed, groups = [], [], {}
+    layers = []                     # per layer {qubit: column}
+    open_layer = None
+    layer_of, qubit_of, gens = [], [], []
+    col = 0
+    for op in circuit.operations:
+        g = op.gate
+        if not g.parametric:
+            fixed.append(op)
+            open_layer = None
+            continue
+        q = op.qubits[0]
+        if fixed or open_layer is None or q in open_layer:
+            steps.extend(_constants(fixed, n, a))
+            fixed = []
+            open_layer = {}
+            layers.append(open_layer)
+            steps.append((_LAYER, len(layers) - 1))
+        open_layer[q] = col
+        groups.setdefault(id(g), (g, []))[1].append(col)
+        layer_of.append(len(layers) - 1)
+        qubit_of.append(q)
+        gens.append(np.asarray(g.generator, dtype=complex))
+        col += 1
+    steps.extend(_constants(fixed, n, a))
+    slots = np.full((len(layers), n), col, dtype=np.intp)
+    for i, lay in enumerate(layers):
+        for q, c in lay.items():
+            slots[i, q] = c
+    return Sides(n, a, tuple(steps),
+                 tuple((g, np.array(cols, dtype=np.intp)) for g, cols in groups.values()), col,
+                 slots[:, :a].copy(), slots[:, a:].copy(),
+                 tuple(bool(any(q < a for q in lay)) for lay in layers),
+                 tuple(bool(any(q >= a for q in lay)) for lay in layers),
+                 np.array(layer_of, dtype=np.intp), np.array(qubit_of, dtype=np.intp),
+                 np.array(gens).reshape(-1, 2, 2), _pauli(gens), _monomial(gens, qubit_of, n),
+                 _traces(a), _traces(n - a))
+
+
+def _constants(ops, n, a):
+    """`qgradlib.engine.small`'s constant steps of a run of fixed gates, a diagonal with its
+    conjugate beside it as a (D_A, D_B) matrix (for the backward pass)."""
+    return [s + (np.conj(s[1]).reshape(2 ** a, -1), s[1].reshape(2 ** a, -1))
+            if s[0] == small._CONST_DIAG else s
+            for s in small._constant_steps(ops, n)]
+
+
+def _monomial(gens, qubits, n):
+    """Tables of ``-2i G`` on its qubit as a permutation with phases, one per distinct
+    (qubit, matrix), when every generator is a Pauli rotation's with one entry a row; else
+    None."""
+    pauli = _pauli(gens)
+    if pauli is None or not gens:
+        return None
+    idx = np.arange(2 ** n)
+    keys, flips, phases, table = {}, [], [], []
+    for k, q in enumerate(qubits):
+        M = pauli[k]
+        nz = np.abs(M) > 1e-14
+        if not np.all(nz.sum(axis=1) == 1):
+            return None
+        key = (q, M.tobytes())
+        if key not in keys:
+            bit = (idx >> (n - 1 - q)) & 1
+            col = np.argmax(nz, axis=1)                 # the source bit of each output bit
+            flips.append(np.where(col[bit] != bit, idx ^ (1 << (n - 1 - q)), idx))
+            phases.append(M[bit, col[bit]])
+            keys[key] = len(keys)
+        table.append(keys[key])
+    return (np.array(table, dtype=np.intp), np.array(flips), np.array(phases))
+
+
+def _pauli(gens):
+    """``-2i G`` of every generator (and a zero for the identity slot) when all of them
+    square to I/4 (Pauli rotations: ``expm(-1j a G) = cos(a/2) I - 2i sin(a/2) G``), else None."""
+    if not all(np.allclose(g @ g, np.eye(2) / 4, rtol=0, atol=1e-15) for g in gens):
+        return None
+    out = np.zeros((len(gens) + 1, 2, 2), dtype=complex)
+    if gens:
+        out[:-1] = -2j * np.array(gens)
+    return out
+
+
+def _traces(k):
+    """(4k, D*D) 0/1 matrix: row (p, i, j) sums the entries (x i y, x j y) of a (D, D) matrix,
+    D = 2**k, over the other qubits x, y (the partial trace onto qubit p)."""
+    D = 2 ** k
+    bits = (np.arange(D)[:, None] >> (k - 1 - np.arange(k))) & 1          # (D, k), qubit 0 first
+    same = bits[:, None, :] == bits[None, :, :]                           # (D, D, k)
+    out = np.zeros((k, 2, 2, D, D))
+    for p in range(k):
+        others = np.delete(same, p, axis=2).all(axis=2)
+        for i in range(2):
+            for j in range(2):
+                out[p, i, j] = others & (bits[:, None, p] == i) & (bits[None, :, p] == j)
+    return np.ascontiguousarray(out.reshape(4 * k, D * D))
+
+
+@dataclass(frozen=True, eq=False)
+class Kept:
+    """What a kept run leaves for `gradient`: each layer's factors and output state."""
+
+    left: np.ndarray          # (L, D_A, D_A)
+    right: np.ndarray         # (L, D_B, D_B)
+    states: np.ndarray        # (L, D_A, D_B)
+
+
+def _factors(comp, phi):
+    """Per layer its row-side and column-side factors at gate angles ``phi`` (G,)."""
+    if comp.pauli is not None:
+        # every gate cos(a/2) I - 2i sin(a/2) G, the identity slot at a = 0
+        half = np.zeros(comp.n_columns + 1)
+        half[:-1] = phi
+        half *= 0.5
+        m = np.cos(half)[:, None, None] * _EYE2 + np.sin(half)[:, None, None] * comp.pauli
+    else:
+        m = np.empty((comp.n_columns + 1, 2, 2), dtype=complex)
+        m[-1] = _EYE2
+        for g, cols in comp.groups:
+            m[cols] = g._matrices(phi[cols])
+    return _krons(m[comp.slots_a]), _krons(m[comp.slots_b])
+
+
+_EYE2 = np.eye(2, dtype=complex)
+
+
+def _krons(f):
+    """Kronecker products (L, 2**k, 2**k) of the 2 x 2 factors ``f`` (L, k, 2, 2), the first
+    factor the most significant."""
+    L, k = f.shape[:2]
+    if k == 0:
+        return np.ones((L, 1, 1), dtype=complex)
+    out = f[:, 0]
+    for j in range(1, k):
+        d = out.shape[1]
+        out = (out[:, :, None, :, None] * f[:, j, None, :, None, :]).reshape(L, 2 * d, 2 * d)
+    return out
+
+
+def run(circuit, phi, keep=False):
+    """The final state (2**n,) of an `eligible` circuit at gate angles ``phi`` (G,), and with
+    ``keep`` the `Kept` record `gradient` needs (else None).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(3).ry(0).ry(2).cz(0, 1).rx(1)
+    >>> phi = np.array([0.3, -0.5, 0.9])
+    >>> psi, _ = run(c, phi)
+    >>> bool(np.allclose(psi, qg.state(c, phi, fuse=False)))
+    True
+    """
+    comp = compiled(circuit)
+    n, a = comp.n, comp.a
+    DA, DB = 2 ** a, 2 ** (n - a)
+    KA, KB = _factors(comp, phi)
+    states = np.empty((comp.n_layers, DA, DB), dtype=complex) if keep else None
+    x, y, t = (np.empty((DA, DB), dtype=complex) for _ in range(3))
+    x[...] = 0
+    x[0, 0] = 1
+    cur = x
+    for s in comp.steps:
+        if s[0] == _LAYER:
+            b = s[1]
+            out = states[b] if keep else (y if cur is x else x)
+            _layer(cur, KA[b], KB[b].T, comp.has_a[b], comp.has_b[b], t, out)
+        elif s[0] == small._CONST_DIAG:
+            out = y if cur is x else x
+            np.multiply(cur, s[3], out=out)         # never in place: cur may be kept
+        else:
+            out = y if cur is x else x
+            small._constant(s, cur.reshape(1, -1), out.reshape(1, -1), n)
+        cur = out
+    psi = cur.reshape(-1)
+    if keep and comp.steps and comp.steps[-1][0] == _LAYER:
+        psi = psi.copy()                    # not a view of the kept states
+    return psi, (Kept(KA, KB, states) if keep else None)
+
+
+def _layer(cur, left, right, has_left, has_right, tmp, out):
+    """``out = left @ cur @ right`` (a side without gates skipped); ``out`` is not ``cur``."""
+    if has_left and has_right:
+        np.matmul(left, cur, out=tmp)
+        np.matmul(tmp, right, out=out)
+    elif has_left:
+        np.matmul(left, cur, out=out)
+    elif has_right:
+        np.matmul(cur, right, out=out)
+    else:
+        np.copyto(out, cur)
+
+
+def gradient(circuit, kept: Kept, lam, first: int = 0) -> np.ndarray:
+    """dE/dphi (G,) from a kept run and ``lam = O psi`` (2**n,) at its final state.
+
+    Columns of layers before ``first`` are left zero (the pass stops there).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from scipy.linalg import expm
+    >>> c = qg.Circuit(2).ry(0).ry(1).cz(0, 1).ry(0)
+    >>> phi = np.array([0.3, -0.5, 0.9])
+    >>> psi, kept = run(c, phi, keep=True)
+    >>> ZZ = np.diag([1.0, -1.0, -1.0, 1.0])
+    >>> g = gradient(c, kept, ZZ @ psi)
+    >>> E = lambda p: float(np.real(np.vdot(run(c, p)[0], ZZ @ run(c, p)[0])))
+    >>> fd = [(E(phi + 1e-6 * e) - E(phi - 1e-6 * e)) / 2e-6 for e in np.eye(3)]
+    >>> bool(np.allclose(g, fd, atol=1e-8))
+    True
+    """
+    comp = compiled(circuit)
+    n, a = comp.n, comp.a
+    DA, DB = 2 ** a, 2 ** (n - a)
+    L = comp.n_layers
+    grad = np.zeros(comp.n_columns)
+    if L == 0 or first >= L:
+        return grad
+    # the undo factors of every layer at once: K_A^H on the left, conj(K_B) on the right
+    KA, KB = np.conj(np.swapaxes(kept.left, 1, 2)), np.conj(kept.right)
+    lams = np.empty((L, DA, DB), dtype=complex)
+    x, y, t = (np.empty((DA, DB), dtype=complex) for _ in range(3))
+    x[...] = np.reshape(lam, (DA, DB))      # the caller's array stays as it is
+    cur = x
+    for s in reversed(comp.steps):
+        if s[0] == _LAYER:
+            b = s[1]
+            np.copyto(lams[b], cur)
+            if b == first:
+                break
+            out = y if cur is x else x
+            # undo: Psi = K_A^H Psi' conj(K_B)
+            _layer(cur, KA[b], KB[b], comp.has_a[b], comp.has_b[b], t, out)
+        elif s[0] == small._CONST_DIAG:
+            cur *= s[2]                       # in place: cur is a working buffer here
+            continue
+        else:
+            out = y if cur is x else x
+            small._undo(s, cur.reshape(1, -1), out.reshape(1, -1), None, n)
+        cur = out
+    psis = kept.states[first:]
+    lc = lams[first:].conj()
+    R = np.empty((L - first, n, 2, 2), dtype=complex)
+    if a:
+        SA = np.matmul(lc, np.swapaxes(psis, 1, 2))                    # (L, D_A, D_A)
+        R[:, :a] = _reduce(SA, comp.traces_a, a)
+    SB = np.matmul(np.swapaxes(lc, 1, 2), psis)                        # (L, D_B, D_B)
+    R[:, a:] = _reduce(SB, comp.traces_b, n - a)
+    pick = comp.picks.get(first)
+    if pick is None:
+        sel = np.flatnonzero(comp.layer >= first)
+        pick = comp.picks.setdefault(first, (sel, (comp.layer[sel] - first) * n + comp.qubit[sel],
+                                             comp.generators[sel]))
+    sel, where, gens = pick
+    grad[sel] = 2 * np.einsum("tij,tij->t", gens, R.reshape(-1, 2, 2)[where]).imag
+    return grad
+
+
+def _reduce(S, traces, k):
+    """Per qubit of a side its 2 x 2 overlap (L, k, 2, 2) from the side's overlaps S (L, D, D):
+    one real product of the 0/1 partial-trace matrix with the float view of S."""
+    L = S.shape[0]
+    f = S.reshape(L, -1).view(np.float64).reshape(L, -1, 2)             # (L, D*D, re/im)
+    r = np.matmul(traces, f)                                            # (L, 4k, 2)
+    return r.view(complex).reshape(L, k, 2, 2)
+
+
+def born_finals(circuit, ref, columns, angles, reference=None):
+    """Final states (1 + R, 2**n): row 0 the reference's at gate angles ``ref`` (G,), row
+    1 + r that of the reference with column ``columns[r]`` at angle ``angles[r]`` instead.
+
+    Every such row leaves the reference at the output of its gate's layer: the gates of a
+    layer commute, so it is born there as ``U(angle - ref) psi_layer`` from the kept state,
+    and from there it runs with the rows born before it. The batch is laid out (D_A, rows,
+    D_B), so that a layer is one product from the left on all alive rows and one broadcast
+    product from the right. ``reference`` is ``run(circuit, ref, keep=True)`` when it is at
+    hand.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> c = qg.Circuit(3).ry(0).rx(1).cz(0, 1).ry(2).cnot(1, 2).rz(0)
+    >>> ref = np.array([0.1, 0.2, 0.3, 0.4])
+    >>> out = born_finals(c, ref, np.array([3, 0, 2]), np.array([1.0, -0.5, 2.0]))
+    >>> rows = np.array([ref, [0.1, 0.2, 0.3, 1.0], [-0.5, 0.2, 0.3, 0.4], [0.1, 0.2, 2.0, 0.4]])
+    >>> bool(np.allclose(out, [qg.state(c, r, fuse=False) for r in rows], rtol=0, atol=1e-14))
+    True
+    """
+    comp = compiled(circuit)
+    n, a = comp.n, comp.a
+    DA, DB = 2 ** a, 2 ** (n - a)
+    N = DA * DB
+    psi0, kept = run(circuit, ref, keep=True) if reference is None else reference
+    R = columns.size
+    out = np.empty((1 + R, N), dtype=complex)
+    out[0] = psi0
+    if R == 0:
+        return out
+    order, src_layer, alive, gather = _births(comp, columns)
+    cols = columns[order]
+    x = np.empty((DA, R, DB), dtype=complex)
+    y = np.empty_like(x)
+    x[...] = _born_rows(comp, kept, cols, src_layer, angles[order] - ref[cols], gather).reshape(
+        R, DA, DB).transpose(1, 0, 2)
+    KA, KB = kept.left, kept.right
+    count = 0
+    cur, other = x, y
+    for s in comp.steps[comp.steps.index((_LAYER, int(src_layer[0]))):]:
+        if s[0] == _LAYER:
+            b = s[1]
+            if count:
+                c3, o3 = cur[:, :count], other[:, :count]
+                if comp.has_a[b]:
+                    # from the left on all alive rows at once: a (D_A, count * D_B) view
+                    np.matmul(KA[b], c3.reshape(DA, -1), out=o3.reshape(DA, -1))
+                    c3, o3 = o3, c3
+                    cur, other = other, cur
+                if comp.has_b[b]:
+                    np.matmul(c3, KB[b].T, out=o3)
+                    cur, other = other, cur
+            new = int(alive[b])
+            if new > count:
+                if cur is not x:
+                    cur[:, count:new] = x[:, count:new]
+                count = new
+        elif s[0] == small._CONST_DIAG:
+            cur[:, :count] *= s[3][:, None, :]
+        else:
+            # other constants act on rows: the alive rows there and back
+            rows = np.ascontiguousarray(cur[:, :count].transpose(1, 0, 2)).reshape(count, N)
+            res, _ = small._constant(s, rows, np.empty_like(rows), n)
+            cur[:, :count] = res.reshape(count, DA, DB).transpose(1, 0, 2)
+    out[1 + order] = cur.transpose(1, 0, 2).reshape(R, N)
+    return out
+
+
+def _births(comp, columns):
+    """Memoised per pattern of born columns: their order of birth, each one's layer, how
+    many rows are alive after each layer, and for Pauli rotations with one entry a row the
+    flat indices into the kept states and the phases of ``-2i G psi`` (`_born_rows`)."""
+    key = ("born", columns.tobytes())
+    hit = comp.picks.get(key)
+    if hit is None:
+        born_at = comp.layer[columns]
+        order = np.argsort(born_at, kind="stable")
+        alive = np.searchsorted(born_at[order], np.arange(comp.n_layers), side="right")
+        gather = None
+        if comp.monomial is not None:
+            tab = comp.monomial[0][columns[order]]
+            N = comp.monomial[1].shape[1]
+            gather = (born_at[order][:, None] * N + comp.monomial[1][tab], comp.monomial[2][tab])
+        if len(comp.picks) > 32:
+            comp.picks.clear()
+        hit = comp.picks[key] = (order, born_at[order], alive, gather)
+    return hit
+
+
+def _born_rows(comp, kept, cols, layers, delta, gather):
+    """``U_c(delta) psi_layer`` (R, N) for every born row: its gate moved by ``delta`` on the
+    kept output of its layer. Pauli rotations ``cos(d/2) psi + sin(d/2) (-2i G) psi``, the
+    second term a permutation with phases (one gather for all rows); other gates one
+    product a qubit."""
+    N = kept.states[0].size
+    src = kept.states.reshape(-1, N)[layers]
+    if gather is not None:
+        moved = np.take(kept.states, gather[0])
+        moved *= gather[1]
+        h = 0.5 * delta
+        moved *= np.sin(h)[:, None]
+        src *= np.cos(h)[:, None]
+        moved += src
+        return moved
+    U = _born_matrices(comp, cols, delta)
+    qs = comp.qubit[cols]
+    out = np.empty_like(src)
+    for q in np.unique(qs):
+        rows = np.flatnonzero(qs == q)
+        out[rows] = np.matmul(U[rows, None], src[rows].reshape(rows.size, 2 ** q, 2, -1)).reshape(rows.size, N)
+    return out
+
+
+def _born_matrices(comp, columns, delta):
+    """``U(delta)`` (R, 2, 2) of the gates of ``columns`` (generator gates: U(a + d) = U(d) U(a))."""
+    if comp.pauli is not None:
+        h = 0.5 * delta
+        return np.cos(h)[:, None, None] * _EYE2 + np.sin(h)[:, None, None] * comp.pauli[columns]
+    U = np.empty((columns.size, 2, 2), dtype=complex)
+    for g, cols in comp.groups:
+        sel = np.flatnonzero(np.isin(columns, cols))
+        if sel.size:
+            U[sel] = g._matrices(delta[sel])
+    return U
