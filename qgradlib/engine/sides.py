@@ -92,21 +92,24 @@ def kept_states(comp: Sides) -> int:
 def _compile(circuit):
     n = circuit.n_qubits
     a = n // 2
-    steps, fixed, groups = [], [], {}
+    steps, pending, groups = [], [], {}
     layers = []                     # per layer {qubit: column}
     open_layer = None
     layer_of, qubit_of, gens = [], [], []
     col = 0
-    for op in circuit.operations:
-        g = op.gate
-        if not g.parametric:
-            fixed.append(op)
-            open_layer = None
+    pops = iter(circuit.parametric_operations)
+    # the constant steps of `qgradlib.engine.small`'s compiled form (the same runs of fixed
+    # gates between parametric ones), compiled once for both
+    for st in small.gate_steps(small.compiled(circuit)):
+        if st[0] < small._ONE:
+            pending.append(_constant(st, a))
             continue
+        op = next(pops)
+        g = op.gate
         q = op.qubits[0]
-        if fixed or open_layer is None or q in open_layer:
-            steps.extend(_constants(fixed, n, a))
-            fixed = []
+        if pending or open_layer is None or q in open_layer:
+            steps.extend(pending)
+            pending = []
             open_layer = {}
             layers.append(open_layer)
             steps.append((_LAYER, len(layers) - 1))
@@ -116,47 +119,47 @@ def _compile(circuit):
         qubit_of.append(q)
         gens.append(np.asarray(g.generator, dtype=complex))
         col += 1
-    steps.extend(_constants(fixed, n, a))
+    steps.extend(pending)
     slots = np.full((len(layers), n), col, dtype=np.intp)
     for i, lay in enumerate(layers):
         for q, c in lay.items():
             slots[i, q] = c
+    pauli = _pauli(gens)
     return Sides(n, a, tuple(steps),
                  tuple((g, np.array(cols, dtype=np.intp)) for g, cols in groups.values()), col,
                  slots[:, :a].copy(), slots[:, a:].copy(),
                  tuple(bool(any(q < a for q in lay)) for lay in layers),
                  tuple(bool(any(q >= a for q in lay)) for lay in layers),
                  np.array(layer_of, dtype=np.intp), np.array(qubit_of, dtype=np.intp),
-                 np.array(gens).reshape(-1, 2, 2), _pauli(gens), _monomial(gens, qubit_of, n),
+                 np.array(gens).reshape(-1, 2, 2), pauli, _monomial(pauli, qubit_of, n),
                  _traces(a), _traces(n - a))
 
 
-def _constants(ops, n, a):
-    """`qgradlib.engine.small`'s constant steps of a run of fixed gates, a diagonal with its
-    conjugate beside it as a (D_A, D_B) matrix (for the backward pass)."""
-    return [s + (np.conj(s[1]).reshape(2 ** a, -1), s[1].reshape(2 ** a, -1))
-            if s[0] == small._CONST_DIAG else s
-            for s in small._constant_steps(ops, n)]
+def _constant(s, a):
+    """A constant step of `qgradlib.engine.small`; a diagonal gets its conjugate and itself
+    as (D_A, D_B) matrices beside it (for the backward pass and the kept run)."""
+    if s[0] == small._CONST_DIAG:
+        return s + (np.conj(s[1]).reshape(2 ** a, -1), s[1].reshape(2 ** a, -1))
+    return s
 
 
-def _monomial(gens, qubits, n):
+def _monomial(pauli, qubits, n):
     """Tables of ``-2i G`` on its qubit as a permutation with phases, one per distinct
-    (qubit, matrix), when every generator is a Pauli rotation's with one entry a row; else
-    None."""
-    pauli = _pauli(gens)
-    if pauli is None or not gens:
+    (qubit, matrix), when every generator is a Pauli rotation's (``pauli``, from `_pauli`)
+    with one entry a row; else None."""
+    if pauli is None or not qubits:
+        return None
+    nz = np.abs(pauli[:-1]) > 1e-14
+    if not np.all(nz.sum(axis=2) == 1):
         return None
     idx = np.arange(2 ** n)
     keys, flips, phases, table = {}, [], [], []
     for k, q in enumerate(qubits):
-        M = pauli[k]
-        nz = np.abs(M) > 1e-14
-        if not np.all(nz.sum(axis=1) == 1):
-            return None
-        key = (q, M.tobytes())
+        key = (q, pauli[k].tobytes())
         if key not in keys:
+            M = pauli[k]
             bit = (idx >> (n - 1 - q)) & 1
-            col = np.argmax(nz, axis=1)                 # the source bit of each output bit
+            col = np.argmax(nz[k], axis=1)              # the source bit of each output bit
             flips.append(np.where(col[bit] != bit, idx ^ (1 << (n - 1 - q)), idx))
             phases.append(M[bit, col[bit]])
             keys[key] = len(keys)
@@ -167,17 +170,23 @@ def _monomial(gens, qubits, n):
 def _pauli(gens):
     """``-2i G`` of every generator (and a zero for the identity slot) when all of them
     square to I/4 (Pauli rotations: ``expm(-1j a G) = cos(a/2) I - 2i sin(a/2) G``), else None."""
-    if not all(np.allclose(g @ g, np.eye(2) / 4, rtol=0, atol=1e-15) for g in gens):
+    g = np.array(gens, dtype=complex).reshape(-1, 2, 2)
+    if not np.all(np.abs(g @ g - np.eye(2) / 4) <= 1e-15):
         return None
-    out = np.zeros((len(gens) + 1, 2, 2), dtype=complex)
-    if gens:
-        out[:-1] = -2j * np.array(gens)
+    out = np.zeros((g.shape[0] + 1, 2, 2), dtype=complex)
+    out[:-1] = -2j * g
     return out
 
 
+_TRACES = {}
+
+
 def _traces(k):
-    """(4k, D*D) 0/1 matrix: row (p, i, j) sums the entries (x i y, x j y) of a (D, D) matrix,
+    """(4k, D*D) 0/1 matrix (memoised: it depends on k alone): row (p, i, j) sums the entries (x i y, x j y) of a (D, D) matrix,
     D = 2**k, over the other qubits x, y (the partial trace onto qubit p)."""
+    hit = _TRACES.get(k)
+    if hit is not None:
+        return hit
     D = 2 ** k
     bits = (np.arange(D)[:, None] >> (k - 1 - np.arange(k))) & 1          # (D, k), qubit 0 first
     same = bits[:, None, :] == bits[None, :, :]                           # (D, D, k)
@@ -187,7 +196,9 @@ def _traces(k):
         for i in range(2):
             for j in range(2):
                 out[p, i, j] = others & (bits[:, None, p] == i) & (bits[None, :, p] == j)
-    return np.ascontiguousarray(out.reshape(4 * k, D * D))
+    out = np.ascontiguousarray(out.reshape(4 * k, D * D))
+    out.flags.writeable = False
+    return _TRACES.setdefault(k, out)
 
 
 @dataclass(frozen=True, eq=False)
