@@ -238,7 +238,9 @@ def lane_value(theta, lane, held):
     else (K,). ``held`` is ``[phi]``, the gate angles (1, G) of ``theta`` from
     `Lane.angles`, and whether the call is traced (the layered run then keeps its states);
     the final state and the kept run are appended to it for the VJP."""
-    vals, psi, kept = lane.forward(held[0], keep=held[1] and lane.adjoint)
+    # a traced layered run keeps its states: the adjoint pass reads them, and a shift
+    # plan's batch is born from them (`qgradlib.engine.sides.born_finals`)
+    vals, psi, kept = lane.forward(held[0], keep=held[1])
     held[1:] = [psi, kept]
     return vals[0] if lane.single else vals
 
