@@ -42,7 +42,7 @@ def _obs(n):
     return qg.Observable({"Z" * n: 1.0, "X" + "I" * (n - 1): 0.5, "I" * (n - 1) + "Y": -0.3})
 
 
-@pytest.mark.parametrize("n", [1, 2, 3, 5, 6, 7, 10])
+@pytest.mark.parametrize("n", [1, 2, 3, 5, 6, 7, 10, 12])
 def test_layered_run_and_gradient_equal_the_dense_reference(n):
     c = _circuit(n, n)
     theta = np.random.default_rng(n).uniform(-3, 3, size=c.n_params)
@@ -85,14 +85,17 @@ def test_a_generator_gate_that_is_no_pauli_rotation_takes_the_general_matrices()
     assert np.max(np.abs(grad(f)(theta) - theta_gradient(c, theta, M))) <= 1e-11
 
 
-def test_run_keeps_each_layer_output_and_the_gradient_stops_at_first():
+@pytest.mark.parametrize("one_side", [0, 4])
+def test_run_keeps_each_layer_output_and_the_gradient_stops_at_first(one_side, monkeypatch):
+    monkeypatch.setattr(sides, "ONE_SIDE_QUBITS", one_side)
     c = _circuit(4, 2)
     comp = sides.compiled(c)
     phi = np.random.default_rng(3).uniform(-3, 3, size=comp.n_columns)
     psi, kept = sides.run(c, phi, keep=True)
     plain, none = sides.run(c, phi)
     assert none is None and np.array_equal(psi, plain)
-    assert kept.states.shape == (comp.n_layers, 4, 4)
+    DA = 2 ** comp.a
+    assert kept.states.shape == (comp.n_layers, DA, 16 // DA)
     lam = observable_dense(_obs(4).terms, 4) @ psi
     full = sides.gradient(c, kept, lam)
     late = sides.gradient(c, kept, lam, first=2)

@@ -34,7 +34,10 @@ from . import small
 __all__ = ["SIDE_QUBITS", "Sides", "eligible", "compiled", "run", "gradient", "born_finals", "kept_states"]
 
 # at or below this many qubits circuits of one-qubit parametric gates may run as layers
-SIDE_QUBITS = 10
+SIDE_QUBITS = 12
+# at or below this many qubits every qubit is on the column side: a layer is one product
+# with its whole-register matrix (16 x 16 at most), one call instead of two
+ONE_SIDE_QUBITS = 4
 # bytes the kept states of one run may take (above, the gate-at-a-time loop runs instead)
 KEEP_BYTES = 2 ** 25
 
@@ -91,7 +94,7 @@ def kept_states(comp: Sides) -> int:
 
 def _compile(circuit):
     n = circuit.n_qubits
-    a = n // 2
+    a = n // 2 if n > ONE_SIDE_QUBITS else 0
     steps, pending, groups = [], [], {}
     layers = []                     # per layer {qubit: column}
     open_layer = None
