@@ -29,6 +29,8 @@ def _parse(argv):
     p.add_argument("--environments", action="store_true",
                    help="timing rows with BLAS variables unset vs set to 1, idle and busy")
     p.add_argument("--only", default=None, help="comma-separated figure keys to run")
+    p.add_argument("--rounds", type=int, default=None,
+                   help="with --environments: alternating child runs per configuration (default 2)")
     p.add_argument("--markdown", default=None, help="also write the table as Markdown to this path")
     args = p.parse_args(argv)
     if args.repeats is not None and args.repeats < 1:

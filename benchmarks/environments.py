@@ -57,7 +57,7 @@ def _measure(args, load):
         spinner = subprocess.Popen([sys.executable, "-c", "while True:\n    pass"])
     try:
         with tempfile.TemporaryDirectory() as tmp:
-            for r in range(ROUNDS):
+            for r in range(getattr(args, "rounds", None) or ROUNDS):
                 for pinned in (False, True):
                     runs[pinned].append(_child(args, pinned, os.path.join(tmp, f"{load}{r}{pinned}.json")))
     finally:
@@ -75,7 +75,7 @@ def _measure(args, load):
 
 
 def markdown(doc) -> str:
-    lines = [f"Measured by `python -m benchmarks --environments` ({doc['mode']}, {ROUNDS} alternating runs "
+    lines = [f"Measured by `python -m benchmarks --environments` ({doc['mode']}, {doc.get('rounds', ROUNDS)} alternating runs "
              "per configuration): time of each row's target with the BLAS thread variables unset, "
              "over the time with them set to 1.", "",
              "| row | idle: unset / pinned | busy: unset / pinned | met (≤ 1.10 both) |",
@@ -92,7 +92,7 @@ def markdown(doc) -> str:
 
 def main(args):
     root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-    doc = {"mode": "quick" if args.quick else "full"}
+    doc = {"mode": "quick" if args.quick else "full", "rounds": getattr(args, "rounds", None) or ROUNDS}
     for load in ("idle", "busy"):
         print(f"{load}: unset and pinned runs in turn ...", flush=True)
         doc[load] = _measure(args, load)
