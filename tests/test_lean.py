@@ -247,3 +247,16 @@ def test_shift_lane_differentiates_by_the_general_paths_plan(n):
     J = jacobian(lambda t: qg.expect(c, _obs(n), t))
     J(theta)
     assert np.allclose(J(theta)[0], g, atol=1e-12)
+
+
+def test_a_nan_in_a_parameter_no_gate_reads_is_refused_after_the_lane_exists():
+    # parameter 1 is read only with a zero scale: the lane does not count on the angle check
+    # for it (its input check looks at every entry)
+    c = qg.Circuit(2).ry(0).cnot(0, 1).ry(1, scale=0.0)
+    Z = qg.Observable({"ZZ": 1.0})
+    qg.expect(c, Z, np.array([0.1, 0.2]), gradient="adjoint")
+    assert _lane_hit(c)
+    assert not list(c.snapshot().__dict__["_memo_lanes"].values())[0].covered
+    for bad in (np.array([0.1, np.nan]), np.array([0.1, np.inf])):
+        with pytest.raises(ValueError, match="finite"):
+            qg.expect(c, Z, bad, gradient="adjoint")

@@ -91,6 +91,8 @@ class Lane:
     kept_what: str
     pieces: object           # one observable's `observable_pieces` (a traced layered call), or None
     shifts: object           # phi (1, G) -> the shift-rule Jacobian (1, K, G), or None
+    identity: bool           # the angle map is phi = theta
+    covered: bool            # every parameter is read by a gate with a nonzero scale
 
     def to_theta(self, dphi):
         """The chain rule through phi = A theta + b: ``A.T @ dphi`` (m,), A one entry a row
@@ -101,7 +103,9 @@ class Lane:
     def angles(self, theta):
         """Gate angles (1, G) of a plain theta (m,), or None when one is out of range
         (the general path then names the problem)."""
-        phi = theta[self.idx] * self.scale + self.offset
+        phi = theta.copy() if self.identity else theta[self.idx] * self.scale + self.offset
+        # NaN and inf fail the comparison too: a parameter read with a nonzero scale is
+        # checked here (`plain` checks the others)
         if phi.size and not np.abs(phi).max() < MAX_ANGLE:
             return None
         return phi.reshape(1, -1)
@@ -202,7 +206,10 @@ def lane_for(spec, single, shifts=None):
     return Lane(c, tuple(spec.observables), bool(single), spec.gradient == "adjoint",
                 np.asarray(idx, dtype=np.intp), np.asarray(scale, dtype=float),
                 np.asarray(b, dtype=float), c.n_params, want, spec.settings,
-                *fwd, *adj, scratch, layered, first, *kept, pieces, shifts)
+                *fwd, *adj, scratch, layered, first, *kept, pieces, shifts,
+                idx.size == c.n_params and np.array_equal(idx, np.arange(idx.size))
+                and np.all(scale == 1) and not np.any(b),
+                set(np.asarray(idx)[np.asarray(scale) != 0].tolist()) == set(range(c.n_params)))
 
 
 def _applied(pieces, psi):
@@ -229,7 +236,7 @@ def plain(theta, lane):
             return False
         x = x._value
     return (type(x) is np.ndarray and x.dtype == np.float64 and x.shape == (lane.n_params,)
-            and bool(np.isfinite(x).all()))
+            and (lane.covered or bool(np.isfinite(x).all())))
 
 
 @primitive
