@@ -132,9 +132,9 @@ def _measure_rows(phi, spec, inserts, errors, keep):
             # Small states run as one batch instead: there the trunk's bookkeeping costs more
             # than the gates it saves.
             dtype = state_dtype(spec.precision)
-            if (spec.fuse and ins is None and dtype == np.complex128 and hi - lo > 2
-                    and (spec.circuit.n_qubits <= BATCH_QUBITS and small.eligible(spec.circuit)
-                         or sides.eligible(spec.circuit))):
+            if (spec.fuse and ins is None and dtype == np.complex128 and hi - lo >= 2
+                    and (hi - lo > 2 and spec.circuit.n_qubits <= BATCH_QUBITS
+                         and small.eligible(spec.circuit) or sides.eligible(spec.circuit))):
                 # a shift plan's rows: a batch that grows a row where each leaves the
                 # reference (None for other rows); exact values need no row's state
                 if (not keep and not noisy and spec.kind == "expect" and spec.shots is None
