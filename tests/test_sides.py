@@ -155,3 +155,28 @@ def test_layered_lane_guards_the_states_it_keeps():
     comp = sides.compiled(c)
     assert lane.layered and "kept" in lane.kept_what
     assert lane.kept_bytes == lean.memory.state_bytes(4, sides.kept_states(comp) + lane.scratch)
+
+
+def test_born_batches_in_two_threads_equal_the_serial_ones():
+    # each call takes its own workspace from the circuit's pool (common practice: NumPy
+    # releases the GIL, so two threads really do overlap here)
+    from concurrent.futures import ThreadPoolExecutor
+    c = qg.Circuit(6)
+    for layer in range(3):
+        for q in range(6):
+            (c.ry if (q + layer) % 2 else c.rx)(q)
+        for q in range(5):
+            c.cz(q, q + 1)
+    comp = sides.compiled(c)
+    rng = np.random.default_rng(4)
+    refs = rng.uniform(-3, 3, size=(8, comp.n_columns))
+    cols = np.arange(comp.n_columns)
+    serial = [sides.born_finals(c, r, cols, r + 0.7) for r in refs]
+    with ThreadPoolExecutor(2) as ex:
+        threaded = list(ex.map(lambda r: sides.born_finals(c, r, cols, r + 0.7), refs))
+    for a, b in zip(serial, threaded):
+        assert np.array_equal(a, b)
+    # reference: the gate-at-a-time engine, row by row
+    moved = refs[0][None] + 0.7 * np.eye(comp.n_columns)
+    want = [qg.state(c, row, fuse=False) for row in np.vstack([refs[:1], moved])]
+    assert np.max(np.abs(serial[0] - np.array(want))) <= 1e-12

@@ -27,7 +27,7 @@ import numpy as np
 from . import kernels, sides, small
 from .branch import _scale
 from .heisenberg import deviations
-from .measure import apply_observables, expectations
+from .measure import apply_observables, expectations, observable_pieces
 
 __all__ = ["run_grown", "grown_values"]
 
@@ -156,7 +156,10 @@ def _schedule(circuit, col):
     hit = _Schedule(moved, at, paired, np.where(paired, scales[at], 0.0), row, column,
                     is_own[order], point[order], quarter[order],
                     np.searchsorted(column, np.arange(G + 1)), {})
-    if len(memo) > 16:
+    # a rotosolve sweep meets one pattern per parameter; schedules run by
+    # `qgradlib.engine.sides` hold a few index arrays, those of the gate-by-gate batch
+    # (below) also their programs' workspaces
+    if len(memo) > (1024 if sides.eligible(circuit) else 16):
         memo.clear()
     memo[key] = hit
     return hit
@@ -219,7 +222,13 @@ def _values(final, plan, cb, cr, n, observables):
     ``O_k psi_0`` (see `grown_values`)."""
     K = len(observables)
     E = expectations(final, n, observables)                               # (R + 1, K)
-    lam = apply_observables(np.repeat(final[:1], K, axis=0), n, observables, np.eye(K))
+    pieces = observable_pieces(n, observables[0]) if K == 1 else None
+    if pieces is not None:
+        # one observable on few qubits: O psi_0 from its phase vectors
+        psi0 = final[0]
+        lam = sum(ph * (psi0 if f is None else psi0[f]) for f, ph in pieces)[None]
+    else:
+        lam = apply_observables(np.repeat(final[:1], K, axis=0), n, observables, np.eye(K))
     cross = (final.conj() @ lam.T).real                                   # Re <psi_r|O_k psi_0>
     r = plan.row
     return ((cb * cb)[:, None] * E[0] + (cr * cr)[:, None] * E[r]

@@ -66,6 +66,7 @@ class Sides:
     traces_a: np.ndarray      # (4a, D_A**2): per row-side qubit its 2 x 2 partial trace
     traces_b: np.ndarray
     picks: dict = field(default_factory=dict)   # memo: what `gradient`, `born_finals` gather
+    pool: list = field(default_factory=list)    # workspaces of `born_finals`, kept for reuse
 
     @property
     def n_layers(self) -> int:
@@ -421,10 +422,10 @@ def born_finals(circuit, ref, columns, angles, reference=None):
         return out
     order, src_layer, alive, gather = _births(comp, columns)
     cols = columns[order]
-    x = np.empty((DA, R, DB), dtype=complex)
-    y = np.empty_like(x)
-    x[...] = _born_rows(comp, kept, cols, src_layer, angles[order] - ref[cols], gather).reshape(
-        R, DA, DB).transpose(1, 0, 2)
+    work = _workspace(comp, R, N)
+    x, y = work[0].reshape(DA, R, DB), work[1].reshape(DA, R, DB)
+    x[...] = _born_rows(comp, kept, cols, src_layer, angles[order] - ref[cols], gather,
+                        work[2:]).reshape(R, DA, DB).transpose(1, 0, 2)
     KA, KB = kept.left, kept.right
     count = 0
     cur, other = x, y
@@ -454,7 +455,27 @@ def born_finals(circuit, ref, columns, angles, reference=None):
             res, _ = small._constant(s, rows, np.empty_like(rows), n)
             cur[:, :count] = res.reshape(count, DA, DB).transpose(1, 0, 2)
     out[1 + order] = cur.transpose(1, 0, 2).reshape(R, N)
+    if sum(w[0].nbytes for w in comp.pool) * 4 + 4 * work[0].nbytes <= _POOL_BYTES:
+        comp.pool.append(work)
     return out
+
+
+# bytes of the workspaces one compiled circuit keeps for `born_finals`: fresh buffers of a
+# few hundred KiB each call cost page faults on every call where the allocator gives the
+# memory back between calls (measured 3x on the born rows of 10 qubits here)
+_POOL_BYTES = 2 ** 25
+
+
+def _workspace(comp, R, N):
+    """Four (R, N) complex buffers: a kept workspace of that size (each thread takes its
+    own), or new ones."""
+    for i, w in enumerate(comp.pool):
+        if w[0].shape == (R, N):
+            try:
+                return comp.pool.pop(i)
+            except IndexError:          # another thread took it meanwhile
+                break
+    return tuple(np.empty((R, N), dtype=complex) for _ in range(4))
 
 
 def _births(comp, columns):
@@ -472,21 +493,37 @@ def _births(comp, columns):
             tab = comp.monomial[0][columns[order]]
             N = comp.monomial[1].shape[1]
             gather = (born_at[order][:, None] * N + comp.monomial[1][tab], comp.monomial[2][tab])
-        if len(comp.picks) > 32:
-            comp.picks.clear()
-        hit = comp.picks[key] = (order, born_at[order], alive, gather)
+        hit = (order, born_at[order], alive, gather)
+        _remember(comp, key, hit, 0 if gather is None else gather[0].nbytes + gather[1].nbytes)
     return hit
 
 
-def _born_rows(comp, kept, cols, layers, delta, gather):
-    """``U_c(delta) psi_layer`` (R, N) for every born row: its gate moved by ``delta`` on the
-    kept output of its layer. Pauli rotations ``cos(d/2) psi + sin(d/2) (-2i G) psi``, the
+# bytes the memoised birth patterns of one compiled circuit may hold (a rotosolve sweep
+# meets one pattern per parameter; a shift plan's pattern holds two arrays of rows x N)
+_PICK_BYTES = 2 ** 25
+
+
+def _remember(comp, key, value, nbytes):
+    """Memoise ``value`` in ``comp.picks``, all patterns forgotten when they would exceed
+    `_PICK_BYTES` (or 4096 entries)."""
+    used = comp.picks.get("bytes", 0) + nbytes
+    if used > _PICK_BYTES or len(comp.picks) > 4096:
+        comp.picks.clear()
+        used = nbytes
+    comp.picks["bytes"] = used
+    comp.picks[key] = value
+
+
+def _born_rows(comp, kept, cols, layers, delta, gather, work):
+    """``U_c(delta) psi_layer`` (R, N) for every born row, in the second of the two (R, N)
+    buffers ``work``: its gate moved by ``delta`` on the kept output of its layer. Pauli rotations ``cos(d/2) psi + sin(d/2) (-2i G) psi``, the
     second term a permutation with phases (one gather for all rows); other gates one
     product a qubit."""
     N = kept.states[0].size
-    src = kept.states.reshape(-1, N)[layers]
+    src, moved = work
+    np.take(kept.states.reshape(-1, N), layers, axis=0, out=src, mode="clip")
     if gather is not None:
-        moved = np.take(kept.states, gather[0])
+        np.take(kept.states, gather[0], out=moved, mode="clip")
         moved *= gather[1]
         h = 0.5 * delta
         moved *= np.sin(h)[:, None]
@@ -495,7 +532,7 @@ def _born_rows(comp, kept, cols, layers, delta, gather):
         return moved
     U = _born_matrices(comp, cols, delta)
     qs = comp.qubit[cols]
-    out = np.empty_like(src)
+    out = moved
     for q in np.unique(qs):
         rows = np.flatnonzero(qs == q)
         out[rows] = np.matmul(U[rows, None], src[rows].reshape(rows.size, 2 ** q, 2, -1)).reshape(rows.size, N)

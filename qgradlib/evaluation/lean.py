@@ -8,20 +8,28 @@ bookkeeping) than in arithmetic. After one call has gone the general way and suc
 same circuit, observables and options go straight from ``theta`` to the value:
 
 - one primitive, `lane_value`, from ``theta`` (m,) to the value(s); its VJP (registered
-  below it) runs the adjoint backward pass of `qgradlib.engine.small` from the forward
-  call's final state and applies the angle map's transpose ``A.T`` itself;
-- the angle map as index and scale arrays, ``phi = theta[idx] * scale + b``;
+  below it) applies the angle map's transpose ``A.T`` itself, after
+  - with ``gradient="adjoint"``: the adjoint backward pass from the forward call's states,
+    by layers (`qgradlib.engine.sides`: circuits whose parametric gates act on one qubit,
+    their kept states; one traced observable gets ``O psi`` in the forward call already) or
+    gate by gate (`qgradlib.engine.small`);
+  - with ``gradient="shift"``: the general path's own shift plan and batch at the forward
+    call's angles (the same circuits counted, the same engine; a layered circuit's batch is
+    born from the forward call's kept states);
+- the angle map as index and scale arrays, ``phi = theta[idx] * scale + b`` (a copy of
+  theta where the map is the identity);
 - the memory guard's byte counts and messages (the guard itself still runs every call);
-- the BLAS thread limit (`qgradlib.engine.threads`) only from `LIMIT_QUBITS` qubits on:
-  on four qubits one row's products are too small for a second OpenBLAS thread to matter
-  (measured the same with one thread and two), while the limit costs about 15 us a call,
-  a tenth of the whole call there; from five qubits on the whole-register products of
-  `qgradlib.engine.small` ran several times slower with two threads next to a busy process.
+- the BLAS thread limit (`qgradlib.engine.threads`) only from `LIMIT_QUBITS` qubits on, on
+  the gate-by-gate path: on four qubits one row's products are too small for a second
+  OpenBLAS thread to matter, while the limit costs about 15 us a call; from five qubits on
+  the whole-register products of `qgradlib.engine.small` ran several times slower with two
+  threads next to a busy process. The layered path's products stay at or below 64 x 64 x 64,
+  which OpenBLAS runs on the calling thread.
 
 Values and derivatives equal those of the general path to rounding, and the ledger counts the
 same circuits. Anything else (shots, readout, executors, data inputs, initial states, single
-precision, a batch of theta, nested or forward-mode derivatives, shift and difference
-gradients under autograd) takes the general path.
+precision, a batch of theta, nested or forward-mode derivatives, finite differences under
+autograd) takes the general path.
 
 Examples
 --------
@@ -201,8 +209,7 @@ def lane_for(spec, single, shifts=None):
             layered = True
             first = min((int(comp.layer[k]) for k in want), default=comp.n_layers)
             kept = _guarded(n, states, "the adjoint method on 1 row(s), states kept a layer")
-    pieces = (observable_pieces(n, spec.observables[0])
-              if layered and single and spec.gradient == "adjoint" else None)
+    pieces = observable_pieces(n, spec.observables[0]) if layered and single else None
     return Lane(c, tuple(spec.observables), bool(single), spec.gradient == "adjoint",
                 np.asarray(idx, dtype=np.intp), np.asarray(scale, dtype=float),
                 np.asarray(b, dtype=float), c.n_params, want, spec.settings,
