@@ -39,6 +39,7 @@ from autograd.tracer import getval
 from . import ledger
 from ..circuits.transform import overlap_circuit
 from ..engine import memory
+from ..engine.threads import engine_threads
 from ..engine.measurement import make_rng
 from .expectation import _check_circuit, _check_shots, state
 
@@ -108,7 +109,10 @@ def kernel_matrix(feature_circuit, X, Y=None, shots=None, seed=None, *, theta=No
     # every feature state once, then one complex matrix product
     A = state(c, theta, inputs=Xs)
     B = A if Ys is None else state(c, theta, inputs=Ys)
-    overlap = A.conj() @ B.T
+    # the engine's BLAS rule for the product too: with another process busy on the machine,
+    # OpenBLAS's second thread made it 1.6x slower than one thread (benchmarks' kernel row)
+    with engine_threads(c.n_qubits):
+        overlap = A.conj() @ B.T
     K = overlap.real ** 2 + overlap.imag ** 2
     if Ys is None:
         circuits = N * (N - 1) // 2
