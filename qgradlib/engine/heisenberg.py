@@ -78,10 +78,18 @@ def deviations(phi):
     True
     """
     P, G = phi.shape
-    for sample in (phi[:_SAMPLE], phi[::max(1, P // _SPREAD)]):
-        ref = _reference(sample, None)[0]
-        if np.any(np.count_nonzero(sample != ref, axis=1) > 1):
-            continue                  # not even the sample fits: no pass over every row
+    # a first guess from three rows: where the first two agree, their angle, else the third
+    # row's (a shift plan's first two rows differ in one column, which the third has unmoved)
+    guess = np.where(phi[0] == phi[1], phi[0], phi[2]) if P >= 3 else None
+    for sample in (None, phi[:_SAMPLE], phi[::max(1, P // _SPREAD)]):
+        if sample is None:
+            if guess is None:
+                continue
+            ref = guess
+        else:
+            ref = _reference(sample, None)[0]
+            if np.any(np.count_nonzero(sample != ref, axis=1) > 1):
+                continue              # not even the sample fits: no pass over every row
         diff = phi != ref
         count = np.count_nonzero(diff, axis=1)
         if np.all(count <= 1):

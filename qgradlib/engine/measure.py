@@ -186,24 +186,47 @@ def _readout(n, observables):
     layout = []
     for xq, W in groups.items():
         if not xq:
-            layout.append((None, np.ascontiguousarray(W.real.T), None))
+            layout.append((None, np.ascontiguousarray(W.real.T), None, None))
             continue
         flip = index ^ sum(1 << (n - 1 - q) for q in xq)
-        layout.append((flip, np.ascontiguousarray(W.T), np.ascontiguousarray(W[:, flip])))
+        layout.append((flip, np.ascontiguousarray(W.T), np.ascontiguousarray(W[:, flip]),
+                       _halved(W, flip, xq, n)))
     _READOUTS[key] = (tuple(observables), layout)
     while len(_READOUTS) > 64:
         _READOUTS.popitem(last=False)
     return layout
 
 
+def _halved(W, flip, xq, n):
+    """For a pattern that flips one qubit q: ``(q, Wh)``, Wh (N/2, K) the phases on the
+    indices j with bit q set (in the order of ``psi.reshape(B, L, 2, R)[:, :, 1, :]``),
+    ``W[j] + conj(W[j ^ x])``, so that ``Re sum_i conj(psi[i ^ x]) W[i] psi[i]`` is
+    ``Re sum_j conj(psi[j ^ x]) Wh[j] psi[j]`` over half the indices, read from two views of
+    the state without a gather. None for other patterns."""
+    if len(xq) != 1:
+        return None
+    q = next(iter(xq))
+    L, R = 2 ** q, 2 ** (n - q - 1)
+    j = (np.arange(L)[:, None] * 2 * R + R + np.arange(R)[None, :]).reshape(-1)
+    return q, np.ascontiguousarray((W[:, j] + np.conj(W[:, flip[j]])).T)
+
+
 def _read_values(psi, layout, K):
     """(B, K) expectation values from a `_readout` layout: one product a flip pattern."""
     B = psi.shape[0]
     out = np.zeros((B, K))
-    for flip, W, _ in layout:
+    for flip, W, _, half in layout:
         if flip is None:
             f = psi.reshape(B, -1, 1).view(psi.real.dtype)
             out += np.einsum("bni,bni->bn", f, f) @ W          # |psi|**2, one array
+            continue
+        if half is not None:
+            # one flipped qubit: the two halves of the state as views, half the products
+            q, Wh = half
+            v = psi.reshape(B, 2 ** q, 2, -1)
+            prod = np.conj(v[:, :, 0, :])
+            prod *= v[:, :, 1, :]
+            out += (prod.reshape(B, -1) @ Wh).real
             continue
         prod = np.take(psi, flip, axis=1)
         np.conjugate(prod, out=prod)
@@ -462,7 +485,7 @@ def _apply_layout(psi, layout, w, out, scratch):
     if scratch is None:
         scratch = np.empty_like(psi)
     first = True
-    for flip, W, Wf in layout:
+    for flip, W, Wf, _ in layout:
         target = out if first else scratch
         if flip is None:
             if w.shape[1] == 1:
@@ -504,7 +527,7 @@ def observable_pieces(n: int, obs):
     if layout is None:
         return None
     return [(None, W[:, 0].copy()) if flip is None else (flip, Wf[0].copy())
-            for flip, W, Wf in layout]
+            for flip, W, Wf, _ in layout]
 
 
 def apply_observable(psi: np.ndarray, n: int, obs, out=None, scratch=None) -> np.ndarray:
