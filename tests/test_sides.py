@@ -146,15 +146,21 @@ def test_layered_lane_counts_jacobians_and_nested_derivatives():
     assert np.allclose(h, h.T, atol=1e-10)
 
 
-def test_layered_lane_guards_the_states_it_keeps():
+def test_layered_lane_guards_the_states_it_keeps(monkeypatch):
     c = qg.Circuit(4).ry(0).ry(1).cz(0, 1).ry(0)
     H = _obs(4)
+    theta = np.array([0.1, 0.2, 0.3])
     f = lambda t: qg.expect(c, H, t, gradient="adjoint")  # noqa: E731
-    grad(f)(np.array([0.1, 0.2, 0.3]))
+    grad(f)(theta)
     lane = list(c.snapshot().__dict__["_memo_lanes"].values())[0]
-    comp = sides.compiled(c)
-    assert lane.layered and "kept" in lane.kept_what
-    assert lane.kept_bytes == lean.memory.state_bytes(4, sides.kept_states(comp) + lane.scratch)
+    assert lane.layered and lane.forward_bytes < lane.kept_bytes
+    # with memory for a value but not for the kept states, the value passes and the
+    # gradient is refused with a message that names what it keeps
+    monkeypatch.setattr(lean.memory, "recent_available", lambda nbytes=0: lane.kept_bytes - 1)
+    monkeypatch.setattr(lean.memory, "limits", lambda: {})
+    assert abs(f(theta) - qg.expect(c, H, theta, fuse=False)) <= 1e-12
+    with pytest.raises(lean.memory.StateTooLarge, match="kept"):
+        grad(f)(theta)
 
 
 def test_born_batches_in_two_threads_equal_the_serial_ones():

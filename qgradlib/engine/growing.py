@@ -86,7 +86,6 @@ def _grown(circuit, phi, combine):
         return None
     ref, col = dev
     col = np.where(col == phi.shape[1], -1, col)        # -1: the reference itself
-    comp = small.compiled(circuit)
     plan = _schedule(circuit, col)
     # the born rows' angles: a quarter period on from the reference (twin columns), or the
     # point's own angle
@@ -102,7 +101,7 @@ def _grown(circuit, phi, combine):
         # layers of one-qubit gates: the born rows as a batch of two products a layer
         final = sides.born_finals(circuit, ref, plan.column, born_angle)
         return combine(final, plan, cb, cr)
-    return _grow(comp, ref, plan, born_angle, cb, cr, combine)
+    return _grow(small.compiled(circuit), ref, plan, born_angle, cb, cr, combine)
 
 
 @dataclass(frozen=True, eq=False)

@@ -8,7 +8,7 @@ a gate at a time is several NumPy calls forward and several more backward. Seen 
     Psi -> K_A Psi K_B^T,     K_A, K_B the Kronecker products of its gates on each side,
 
 two small matrix products whatever the number of gates. The factors of every layer are built
-at once, one broadcast product a qubit (`_krons`). Runs of fixed gates between layers are the
+at once, one broadcast product a qubit (`qgradlib.engine.small.krons`). Runs of fixed gates between layers are the
 constant steps of `qgradlib.engine.small`.
 
 The forward run keeps the state at every layer's output (``keep=True``), so the backward pass
@@ -65,6 +65,7 @@ class Sides:
                               # phases * psi[flips]`` when every such G is monomial, else None
     traces_a: np.ndarray      # (4a, D_A**2): per row-side qubit its 2 x 2 partial trace
     traces_b: np.ndarray
+    layer_steps: tuple        # per layer the index of its step in ``steps``
     picks: dict = field(default_factory=dict)   # memo: what `gradient`, `born_finals` gather
     pool: list = field(default_factory=list)    # workspaces of `born_finals`, kept for reuse
 
@@ -136,7 +137,8 @@ def _compile(circuit):
                  tuple(bool(any(q >= a for q in lay)) for lay in layers),
                  np.array(layer_of, dtype=np.intp), np.array(qubit_of, dtype=np.intp),
                  np.array(gens).reshape(-1, 2, 2), pauli, _monomial(pauli, qubit_of, n),
-                 _traces(a), _traces(n - a))
+                 _traces(a), _traces(n - a),
+                 tuple(i for i, st in enumerate(steps) if st[0] == _LAYER))
 
 
 def _constant(s, a):
@@ -227,23 +229,10 @@ def _factors(comp, phi):
         m[-1] = _EYE2
         for g, cols in comp.groups:
             m[cols] = g._matrices(phi[cols])
-    return _krons(m[comp.slots_a]), _krons(m[comp.slots_b])
+    return small.krons(m[comp.slots_a]), small.krons(m[comp.slots_b])
 
 
 _EYE2 = np.eye(2, dtype=complex)
-
-
-def _krons(f):
-    """Kronecker products (L, 2**k, 2**k) of the 2 x 2 factors ``f`` (L, k, 2, 2), the first
-    factor the most significant."""
-    L, k = f.shape[:2]
-    if k == 0:
-        return np.ones((L, 1, 1), dtype=complex)
-    out = f[:, 0]
-    for j in range(1, k):
-        d = out.shape[1]
-        out = (out[:, :, None, :, None] * f[:, j, None, :, None, :]).reshape(L, 2 * d, 2 * d)
-    return out
 
 
 def run(circuit, phi, keep=False):
@@ -429,7 +418,7 @@ def born_finals(circuit, ref, columns, angles, reference=None):
     KA, KB = kept.left, kept.right
     count = 0
     cur, other = x, y
-    for s in comp.steps[comp.steps.index((_LAYER, int(src_layer[0]))):]:
+    for s in comp.steps[comp.layer_steps[src_layer[0]]:]:
         if s[0] == _LAYER:
             b = s[1]
             if count:

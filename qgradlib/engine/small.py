@@ -32,7 +32,7 @@ import numpy as np
 from . import kernels
 from .program import is_gate
 
-__all__ = ["SMALL_QUBITS", "DENSE_QUBITS", "BLOCK_QUBITS", "eligible", "memoised", "compiled", "gate_steps",
+__all__ = ["SMALL_QUBITS", "DENSE_QUBITS", "BLOCK_QUBITS", "eligible", "memoised", "compiled", "gate_steps", "krons",
            "run", "backward"]
 
 # at or below this many qubits the lean loop is used
@@ -181,12 +181,28 @@ def _qubit(s, n):
 def _kron(mats, n):
     """The whole-register matrix of 2 x 2 matrices ``{qubit: m}`` (identity elsewhere),
     qubit 0 the leftmost factor."""
-    out = np.ones((1, 1), dtype=complex)
-    for q in range(n):
-        m = mats.get(q)
-        if m is None:
-            m = _EYE2
-        out = (out[:, None, :, None] * m[None, :, None, :]).reshape(2 * out.shape[0], 2 * out.shape[1])
+    return krons(np.stack([mats.get(q, _EYE2) for q in range(n)])[None])[0]
+
+
+def krons(f):
+    """Kronecker products (L, 2**k, 2**k) of the 2 x 2 factors ``f`` (L, k, 2, 2), the first
+    factor the most significant, for all L at once (one broadcast product a factor).
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> rng = np.random.default_rng(0)
+    >>> f = rng.normal(size=(2, 3, 2, 2))
+    >>> bool(np.allclose(krons(f)[1], np.kron(np.kron(f[1, 0], f[1, 1]), f[1, 2])))
+    True
+    """
+    L, k = f.shape[:2]
+    if k == 0:
+        return np.ones((L, 1, 1), dtype=complex)
+    out = f[:, 0]
+    for j in range(1, k):
+        d = out.shape[1]
+        out = (out[:, :, None, :, None] * f[:, j, None, :, None, :]).reshape(L, 2 * d, 2 * d)
     return out
 
 

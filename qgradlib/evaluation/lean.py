@@ -121,30 +121,29 @@ class Lane:
     def forward(self, phi, keep=False):
         """(values (K,), final state (1, 2**n), kept run or None) at gate angles ``phi``
         (1, G); ``keep`` (for a traced call) keeps what the layered gradient reads."""
+        n = self.circuit.n_qubits
+        kept = None
+        if self.layered and keep:
+            memory.guard(self.kept_bytes, self.kept_what)
+        else:
+            memory.guard(self.forward_bytes, self.forward_what)
         if self.layered:
-            if keep:
-                memory.guard(self.kept_bytes, self.kept_what)
-            else:
-                memory.guard(self.forward_bytes, self.forward_what)
             psi, kept = sides.run(self.circuit, phi[0], keep=keep)
-            if keep and self.pieces is not None:
-                # one observable: its bra O psi now, the value <psi|O psi> from it
-                lam = _applied(self.pieces, psi)
-                ledger.record(1, self.settings, 0, {"value": 1})
-                return np.array([np.vdot(psi, lam).real]), psi, (kept, lam)
             psi = psi.reshape(1, -1)
-            vals = expectations(psi, self.circuit.n_qubits, self.observables)[0]
-            ledger.record(1, self.settings, 0, {"value": 1})
-            return vals, psi, kept
-        memory.guard(self.forward_bytes, self.forward_what)
-        if self.circuit.n_qubits >= LIMIT_QUBITS:
-            with engine_threads(self.circuit.n_qubits):
+        elif n >= LIMIT_QUBITS:
+            with engine_threads(n):
                 psi = small.run(self.circuit, phi)
         else:
             psi = small.run(self.circuit, phi)
-        vals = expectations(psi, self.circuit.n_qubits, self.observables)[0]
+        if kept is not None and self.pieces is not None:
+            # one observable: its bra O psi now, the value <psi|O psi> from it
+            lam = _applied(self.pieces, psi[0])
+            vals = np.array([np.vdot(psi[0], lam).real])
+            kept = (kept, lam)
+        else:
+            vals = expectations(psi, n, self.observables)[0]
         ledger.record(1, self.settings, 0, {"value": 1})
-        return vals, psi, None
+        return vals, psi, kept
 
     def gradient(self, phi, psi, g, kept=None):
         """``sum_k g[k] dE_k/dtheta`` (m,) from the final state ``psi`` (1, 2**n) at ``phi``
