@@ -212,8 +212,10 @@ def import_time(sz, repeats):
     cold.setdefault("PYTHONDONTWRITEBYTECODE", "1")
     compiled = [_import_seconds("qgradlib", cold, root) / _import_seconds("numpy", cold, root)
                 for _ in range(max(1, min(repeats, 3)))]
+    # the environments table compares what qgradlib adds to numpy's import: numpy's own
+    # import starts OpenBLAS's threads when they are unset, which is not ours to shorten
     return _result("import_time", "import qgradlib / import numpy, each in a fresh interpreter", 3.0,
-                   "<=", t / b, seconds=t, seconds_qgradlib=float(np.median(t)),
+                   "<=", t / b, seconds=t - b, seconds_qgradlib=float(np.median(t)),
                    seconds_numpy=float(np.median(b)),
                    ratio_without_bytecode=float(np.median(compiled)))
 

@@ -1,4 +1,12 @@
-"""Paired timings: each repeat times the baseline and the target back to back."""
+"""Paired timings: each repeat times the baseline and the target back to back.
+
+Between the two blocks the timer waits for the BLAS worker threads to go idle when BLAS runs
+on more than one thread: OpenBLAS's workers keep spinning on a core for about 2**28 cycles
+(0.13 s at 2 GHz) after a threaded product, so without the wait the block that follows a
+threaded baseline (a plain NumPy product, a tensordot simulator) pays for the baseline's
+workers, and on a machine with one other busy process that cost the target up to twice its
+time. With one BLAS thread there are no workers and no wait.
+"""
 from __future__ import annotations
 
 import time
@@ -6,6 +14,16 @@ import time
 import numpy as np
 
 __all__ = ["calibrate", "paired", "summary"]
+
+SETTLE_SECONDS = 0.2
+
+
+def _threaded():
+    try:
+        from threadpoolctl import threadpool_info
+    except ImportError:
+        return True
+    return any(lib.get("num_threads", 1) > 1 for lib in threadpool_info() if lib.get("user_api") == "blas")
 
 
 def _once(fn, inner):
@@ -27,8 +45,11 @@ def paired(target, baseline, repeats, min_time=0.02):
     it = calibrate(target, min_time)
     ib = calibrate(baseline, min_time)
     ts, bs = [], []
+    wait = SETTLE_SECONDS if _threaded() else 0.0
     for _ in range(repeats):
+        time.sleep(wait)
         bs.append(_once(baseline, ib))
+        time.sleep(wait)
         ts.append(_once(target, it))
     return np.array(ts), np.array(bs)
 
