@@ -1,11 +1,12 @@
 """Paired timings: each repeat times the baseline and the target back to back.
 
 Between the two blocks the timer waits for the BLAS worker threads to go idle when BLAS runs
-on more than one thread: OpenBLAS's workers keep spinning on a core for about 2**28 cycles
-(0.13 s at 2 GHz) after a threaded product, so without the wait the block that follows a
-threaded baseline (a plain NumPy product, a tensordot simulator) pays for the baseline's
-workers, and on a machine with one other busy process that cost the target up to twice its
-time. With one BLAS thread there are no workers and no wait.
+on more than one thread: OpenBLAS's workers keep spinning on a core after a threaded
+product (about 2**28 cycles, 0.13 s at 2 GHz, its default thread timeout: from memory), so
+without the wait the block that follows a threaded baseline (a plain NumPy product, a
+tensordot simulator) pays for the baseline's workers, which next to one other busy process
+took a core from the target (a development reading, see docs/performance.md). With one BLAS
+thread there are no workers and no wait.
 """
 from __future__ import annotations
 
