@@ -5,8 +5,11 @@ on more than one thread: OpenBLAS's workers keep spinning on a core after a thre
 product (about 2**28 cycles, 0.13 s at 2 GHz, its default thread timeout: from memory), so
 without the wait the block that follows a threaded baseline (a plain NumPy product, a
 tensordot simulator) pays for the baseline's workers, which next to one other busy process
-took a core from the target (a development reading, see docs/performance.md). With one BLAS
-thread there are no workers and no wait.
+took a core from the target (a development reading, see docs/performance.md). The wait is the
+same with one BLAS thread (no workers then) so that both environments are timed alike, and
+after it each block makes one untimed call: the first call after a sleep ran about 10%
+slower here (caches and clocks gone cold), which would otherwise fall on whichever
+environment waits.
 """
 from __future__ import annotations
 
@@ -17,14 +20,6 @@ import numpy as np
 __all__ = ["calibrate", "paired", "summary"]
 
 SETTLE_SECONDS = 0.2
-
-
-def _threaded():
-    try:
-        from threadpoolctl import threadpool_info
-    except ImportError:
-        return True
-    return any(lib.get("num_threads", 1) > 1 for lib in threadpool_info() if lib.get("user_api") == "blas")
 
 
 def _once(fn, inner):
@@ -46,13 +41,17 @@ def paired(target, baseline, repeats, min_time=0.02):
     it = calibrate(target, min_time)
     ib = calibrate(baseline, min_time)
     ts, bs = [], []
-    wait = SETTLE_SECONDS if _threaded() else 0.0
     for _ in range(repeats):
-        time.sleep(wait)
-        bs.append(_once(baseline, ib))
-        time.sleep(wait)
-        ts.append(_once(target, it))
+        bs.append(_settled(baseline, ib))
+        ts.append(_settled(target, it))
     return np.array(ts), np.array(bs)
+
+
+def _settled(fn, inner):
+    """Wait for idle BLAS workers, warm up with one untimed call, then time ``inner`` calls."""
+    time.sleep(SETTLE_SECONDS)
+    fn()
+    return _once(fn, inner)
 
 
 def summary(samples):
