@@ -8,8 +8,9 @@ take turns, twice each, so slow phases of a shared machine fall on both. The fig
 is the median time of the row's target in the unset runs over that in the pinned runs; the
 target is at most 1.10 (the default never slower than pinned by more than 10%). A row's
 target is timed after its baseline's BLAS workers have gone idle (`benchmarks.timing`), so
-it does not pay for the threads of a product it did not make; the import row's time is what
-``import qgradlib`` adds to ``import numpy`` (NumPy's import starts OpenBLAS). Other
+it does not pay for the threads of a product it did not make; the import row's time is that of
+``import qgradlib`` in a fresh interpreter that imported NumPy and waited the same settle
+time (NumPy's import starts OpenBLAS's workers, which spin for a while after it). Other
 environment variables (OPENBLAS_CORETYPE and the like) are passed on unchanged. The JAX rows
 are left out (they time the same adjoint gradient as other rows) unless ``--only`` names them.
 """
