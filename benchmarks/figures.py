@@ -215,8 +215,8 @@ def import_time(sz, repeats):
     # the environments table times qgradlib's own import once numpy's is over: numpy's import
     # starts OpenBLAS's worker threads when the variables are unset, and a new worker spins
     # for about a tenth of a second (from memory; a development reading next to a busy
-    # process: 63 ms unset against 52 ms pinned right after `import numpy`, 112 against
-    # 111 ms after a wait), a cost of whatever code runs next, not of ours
+    # process: 62 ms unset against 51 ms pinned right after `import numpy`, 53 against
+    # 54 ms after a 0.3 s wait), a cost of whatever code runs next, not of ours
     after = [_import_seconds("qgradlib", env, root, f"import numpy; time.sleep({SETTLE_SECONDS}); ")
              for _ in range(repeats)]
     return _result("import_time", "import qgradlib / import numpy, each in a fresh interpreter", 3.0,
