@@ -86,7 +86,7 @@ def test_adjoint_refuses_operations_that_are_not_gates():
         adjoint_gradient(c, np.array([[0.2]]), lambda p: apply_observable(p, 1, H))
 
 
-def test_adjoint_memory_stays_near_four_states():
+def test_adjoint_memory_stays_near_four_states(no_scratch_pool):
     import tracemalloc
 
     n = 17

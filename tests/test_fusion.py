@@ -164,7 +164,7 @@ def test_operations_that_are_not_gates_are_delegated_or_refused():
         run(c2, np.zeros((1, 0)))
 
 
-def test_run_keeps_two_buffers_whatever_the_length():
+def test_run_keeps_two_buffers_whatever_the_length(no_scratch_pool):
     # ping-pong buffers: peak traced memory does not grow with the number of gates
     import tracemalloc
 

@@ -47,6 +47,9 @@ def _small(n):
     return qg.Circuit(n).h(0).ry(0).cnot(0, 1).ry(1).crx(1, 2).rz(2).cnot(2, 3).rx(3).ry(n - 1)
 
 
+pytestmark = pytest.mark.usefixtures("no_scratch_pool")
+
+
 def _peak(fn):
     fn()                                  # compiled programs and caches are built once
     tracemalloc.start()

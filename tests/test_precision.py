@@ -129,7 +129,7 @@ def test_single_precision_refuses_noise_channels():
         qg.expect(c, qg.Observable({"Z": 1.0}), np.zeros(1), precision="single")
 
 
-def test_memory_guard_counts_eight_bytes_an_amplitude_in_single_precision():
+def test_memory_guard_counts_eight_bytes_an_amplitude_in_single_precision(no_scratch_pool):
     n = 17     # a 1 MiB complex64 state, large next to the fixed overhead of a call
     c = qg.Circuit(n).h(0).ry(0).cnot(0, 1).ry(1)
     H = qg.Observable({"Z" + "I" * (n - 1): 1.0})

@@ -25,7 +25,7 @@ from functools import lru_cache
 import numpy as np
 
 from .threads import engine_threads
-from . import kernels, overlaps, small
+from . import kernels, overlaps, scratch, small
 from .memory import guard_states
 from .program import DIAG_WIDTH, program, step_matrix
 from .statevector import _table, run
@@ -198,7 +198,8 @@ def adjoint_states(rows: int, observable_scratch: float = 0.0) -> float:
 
 
 def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, observable_into=None,
-                     psi=None, fuse=None, observable_scratch=0.0, dtype=np.complex128) -> np.ndarray:
+                     psi=None, observed=None, fuse=None, observable_scratch=0.0,
+                     dtype=np.complex128) -> np.ndarray:
     """dE/dphi for every row of ``phi`` (P, G), where ``E = <psi|O|psi>``.
 
     Parameters
@@ -215,6 +216,9 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
     psi : ndarray, shape (P, 2**n), optional
         The final states of a forward run at ``phi``, when the caller already has them; pass
         the last reference (they are released once copied, and the memory guard counts so).
+    observed : ndarray, shape (P, 2**n), optional
+        ``O psi`` of those states, when the caller has it too (then no observable is
+        applied here; pass the last reference, as for ``psi``).
     fuse : bool, optional
         Fusion of the gates between trainable ones (on by default).
     observable_scratch : float
@@ -245,35 +249,55 @@ def adjoint_gradient(circuit, phi, apply_observable=None, columns=None, *, obser
     want = frozenset(range(G)) if columns is None else frozenset(int(c) for c in columns)
     fuse = True if fuse is None else bool(fuse)
     # states handed in are released once copied (the caller passes its last reference)
-    handed = P if psi is not None else 0
+    if observed is not None:
+        if psi is None:
+            raise ValueError("observed (O psi) needs the states psi it was computed from")
+        if np.shape(observed) != np.shape(psi):
+            raise ValueError(f"observed must have the shape of psi {np.shape(psi)}; got {np.shape(observed)}")
+        observable_into = apply_observable = None
+        observable_scratch = 0.0
+    elif observable_into is None and apply_observable is None:
+        raise ValueError("adjoint_gradient needs the observable: apply_observable, observable_into "
+                         "or observed")
+    handed = (P if psi is not None else 0) + (P if observed is not None else 0)
     dtype = np.dtype(dtype)
     guard_states(n, adjoint_states(P, observable_scratch) - handed, f"the adjoint method on {P} row(s)",
                  dtype.itemsize)
-    both = np.empty((2 * P, N), dtype=dtype)
+    # the stacked rows and their spare buffer never leave this call: borrowed warm (scratch)
+    both = scratch.take((2 * P, N), dtype)
     if psi is None:
         run(circuit, phi, out=both[:P], fuse=fuse, keep=want, dtype=dtype)
     else:
         both[:P] = psi
-    del psi  # the caller's copy can go now: at most four states from here on
+    if observed is not None:
+        both[P:] = observed
+    del psi, observed  # the caller's copies can go now: at most four states from here on
     # (the BLAS limit starts here, not in a wrapper, whose arguments would keep psi alive)
     with engine_threads(n):
         if lean_backward(circuit, P, dtype, fuse):
             # few qubits: the lean loop of qgradlib.engine.small (same layout, same memory;
             # double precision only)
-            return small.backward(circuit, both, phi, want, observable_into, apply_observable)
+            grad = small.backward(circuit, both, phi, want, observable_into, apply_observable)
+            scratch.give(both)
+            return grad
         prog = program(circuit, fuse, want)
         if prog.const_columns and not np.all(phi[:, list(prog.const_columns)] == prog.const_angles):
             prog = program(circuit, fuse, want, bake_fixed_angles=False)
-        return _backward(prog, both, phi, n, P, G, want, observable_into, apply_observable)
+        buf = scratch.take(both.shape, dtype)
+        grad = _backward(prog, both, buf, phi, n, P, G, want, observable_into, apply_observable)
+        scratch.give(both, buf)
+        return grad
 
 
-def _backward(prog, both, phi, n, P, G, want, observable_into, apply_observable):
-    """The backward pass from the stacked final states (rows :P) into (P, G) derivatives."""
-    buf = np.empty_like(both)
+def _backward(prog, both, buf, phi, n, P, G, want, observable_into, apply_observable):
+    """The backward pass from the stacked final states (rows :P) into (P, G) derivatives;
+    ``buf`` is a spare buffer like ``both`` (both are overwritten). With no observable given,
+    rows P: of ``both`` already hold ``O psi``."""
     if observable_into is not None:
         observable_into(both[:P], both[P:], buf[:P])
-    else:
+    elif apply_observable is not None:
         both[P:] = apply_observable(both[:P])
+    # (neither: rows P: hold O psi already)
     shared = np.all(phi == phi[:1], axis=0) if P > 1 else np.ones(G, dtype=bool)
     table = _table(prog, phi, shared)
     grad = np.zeros((P, G))

@@ -17,7 +17,10 @@ says how many states it keeps, in a function beside the code it describes
 `qgradlib.engine.measure.expectation_scratch`, `qgradlib.engine.measurement.measure_scratch`,
 `qgradlib.engine.tangents.derivative_states`), so a change of the engine changes its estimate
 in the same place; ``tests/test_memory.py`` measures every one of them with tracemalloc.
-Bytes per amplitude are 16 for complex128 (pass 8 for complex64).
+Bytes per amplitude are 16 for complex128 (pass 8 for complex64). Besides each call's own
+work, `qgradlib.engine.scratch` keeps spare buffers of small registers between calls (at
+most ``POOL_BYTES``, 32 MiB, in all; none larger than 8 MiB), so a large register never
+holds memory after its call.
 """
 from __future__ import annotations
 

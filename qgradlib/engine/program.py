@@ -86,6 +86,10 @@ class Program:
     groups: list = field(default_factory=list)   # (gate, diagonal?, columns) of varying factors
     n_columns: int = 0                           # parametric operations (columns of phi)
 
+    def __post_init__(self):
+        # whether a step hands the state to an operation of the user's (which may keep it)
+        self.external = any(s.kind == "external" for s in self.steps)
+
 
 _KLASS: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 

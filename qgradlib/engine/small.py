@@ -509,7 +509,8 @@ def _dots(lam, mu):
 
 def backward(circuit, both, phi, want, observable_into=None, apply_observable=None):
     """dE/dphi (P, G) from the stacked final states ``both`` (2P, 2**n): rows :P the kets,
-    rows P: are filled with ``O psi`` here (the layout of `qgradlib.engine.adjoint`).
+    rows P: are filled with ``O psi`` here (the layout of `qgradlib.engine.adjoint`), unless
+    neither ``observable_into`` nor ``apply_observable`` is given: then they hold it already.
 
     ``want`` holds the columns to differentiate; the others stay zero. Uses ``both`` and one
     buffer like it, nothing larger.
@@ -521,8 +522,9 @@ def backward(circuit, both, phi, want, observable_into=None, apply_observable=No
     buf = np.empty_like(both)
     if observable_into is not None:
         observable_into(both[:P], both[P:], buf[:P])
-    else:
+    elif apply_observable is not None:
         both[P:] = apply_observable(both[:P])
+    # (neither: rows P: hold O psi already)
     grad = np.zeros((P, comp.n_columns))
     cur, other = both, buf
     for s in reversed(comp.steps):

@@ -24,7 +24,7 @@ from __future__ import annotations
 import numpy as np
 
 from .threads import limited
-from . import kernels, small
+from . import kernels, scratch, small
 from .memory import guard, guard_states
 from .program import program, step_matrix
 
@@ -303,9 +303,11 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
         cur = np.array(psi, dtype=dtype) if out is None else out
         if out is not None:
             cur[...] = psi
+    owned = cur is not out               # run's own first buffer (not the caller's)
     # in place, `other` is `cur` itself: every kernel then writes into the state it reads
     in_place = B * N >= IN_PLACE
     other = cur if in_place else None
+    borrowed = None
     table = _table(prog, phi, shared)
     for s in prog.steps:
         if s.kind == "external":
@@ -314,7 +316,10 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
                 other = cur
             continue
         if s.kind != "diag" and other is None:
-            other = np.empty_like(cur)
+            # the spare buffer never leaves the run: borrowed warm (scratch), unless an
+            # operation of the user's may see (and so keep) it
+            other = np.empty_like(cur) if prog.external else scratch.take(cur.shape, cur.dtype)
+            borrowed = None if prog.external else other
         if s.kind == "solo":
             cur, other = _solo(s, cur, other, n, phi, inserts, shared)
             continue
@@ -327,7 +332,11 @@ def run(circuit, phi: np.ndarray, inserts=None, psi=None, *, fuse=None, keep=fro
         else:
             kernels.apply_dense(cur, n, m, s.qubits, other, real=s.real)
             cur, other = other, cur
+    result = cur if out is None else out
     if out is not None and cur is not out:
         out[...] = cur
-        return out
-    return cur
+    if borrowed is not None:
+        # the buffer not handed out goes back: the borrowed one, or (when the states ended
+        # in it) the run's first buffer
+        scratch.give(borrowed if borrowed is not result else other if owned and other is not result else None)
+    return result

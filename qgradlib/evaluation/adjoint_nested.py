@@ -56,39 +56,50 @@ def _weighted_observable(spec, g):
     return into
 
 
-# final states of a forward evaluation with gradient="adjoint", held weakly by the Spec of
-# that call until its VJP runs: the backward pass then skips its own forward run
+# final states of a forward evaluation with gradient="adjoint" (and, for one exact observable,
+# their O psi), held weakly by the Spec of that call until its VJP runs: the backward pass
+# then skips its own forward run (and its application of the observable)
 _forward_states: "weakref.WeakKeyDictionary" = weakref.WeakKeyDictionary()
 
 
-def keep_states(spec, phi, states, inverse):
-    """Hold the final states of the unique rows of ``phi`` for the VJP of this call."""
-    _forward_states[spec] = (np.asarray(phi, dtype=float).tobytes(), states, inverse)
+def keep_states(spec, phi, kept, inverse):
+    """Hold ``kept = [states, O psi or None]`` of the unique rows of ``phi`` for the VJP of
+    this call (the list is emptied here: the held copy is the only reference)."""
+    _forward_states[spec] = (np.asarray(phi, dtype=float).tobytes(), [kept.pop(0), kept.pop(0)], inverse)
 
 
 def _take_states(spec, phi):
-    """The forward evaluation's final states for ``phi`` (P, G), if they were kept."""
+    """``[states, O psi or None]`` of the forward evaluation at ``phi`` (P, G), if they were
+    kept, else None. Hand each on with ``pop`` so that no other reference keeps it alive."""
     held = _forward_states.pop(spec, None)
     if held is None or held[0] != phi.tobytes():
         return None
-    _, states, inverse = held
+    _, kept, inverse = held
     del held
-    if inverse.size == states.shape[0] and np.array_equal(inverse, np.arange(inverse.size)):
-        return states
-    return states[inverse]
+    if inverse.size == kept[0].shape[0] and np.array_equal(inverse, np.arange(inverse.size)):
+        return kept
+    return [None if a is None else a[inverse] for a in kept]
 
 
 def adjoint_vjp(phi, spec, g):
     """sum_k g[p, k] dE_k/dphi[p, :] for raw arrays: one backward pass per row."""
     g = np.asarray(g, dtype=float)
     phi = np.asarray(phi, dtype=float)
-    # the states go straight into the call (no local name), so the adjoint can free them
-    # once copied into its stacked buffer
-    scratch = observable_scratch(spec.circuit.n_qubits, spec.observables) if spec.kind == "expect" else 0.0
-    return adjoint_gradient(spec.circuit, phi, columns=spec.columns,
-                            observable_into=_weighted_observable(spec, g),
-                            psi=_take_states(spec, phi), fuse=spec.fuse, observable_scratch=scratch,
-                            dtype=state_dtype(spec.precision))
+    kept = _take_states(spec, phi) or [None, None]
+    n = spec.circuit.n_qubits
+    into, scratch = _weighted_observable(spec, g), 0.0
+    if kept[1] is not None:
+        # the forward pass kept O psi of its one observable: weighted here in place, the
+        # backward pass starts from it (nothing to apply)
+        kept[1] *= g[:, :1]
+        into = None
+    elif spec.kind == "expect":
+        scratch = observable_scratch(n, spec.observables)
+    # the states go straight into the call (popped, no local name), so the adjoint can free
+    # them once copied into its stacked buffer
+    return adjoint_gradient(spec.circuit, phi, columns=spec.columns, observable_into=into,
+                            psi=kept.pop(0), observed=kept.pop(0), fuse=spec.fuse,
+                            observable_scratch=scratch, dtype=state_dtype(spec.precision))
 
 
 def check_nested(spec):

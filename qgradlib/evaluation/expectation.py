@@ -133,10 +133,12 @@ def evaluate(phi, spec: Spec, inserts=None, purposes="value", distinct=False):
     keep = (spec.gradient == "adjoint" and inserts is None and spec.shots is None
             and not spec.circuit.has_noise and spec.executor is None)
     if keep:
-        vals, states = measure_rows_here(phi[rows], spec, ins, keep=True)
-        if states is not None:
-            # the adjoint VJP starts from these final states instead of running again
-            keep_states(spec, phi, states, inverse)
+        vals, kept = measure_rows_here(phi[rows], spec, ins, keep=True)
+        if kept is not None:
+            # the adjoint VJP starts from these final states (and their O psi) instead of
+            # running again
+            keep_states(spec, phi, kept, inverse)
+        del kept
     else:
         vals = distribute.measure_rows(phi[rows], spec, ins, index=rows)
     return vals[inverse]
