@@ -6,7 +6,7 @@ is what lets expectation values be computed by index arithmetic instead of matri
 """
 from __future__ import annotations
 
-from functools import reduce
+from functools import lru_cache, reduce
 
 import numpy as np
 
@@ -37,8 +37,9 @@ def pauli_matrix(word: str) -> np.ndarray:
     return reduce(np.kron, (_SINGLE[c] for c in parse_pauli(word)))
 
 
+@lru_cache(maxsize=2 ** 16)
 def masks(word: str):
-    """(x_qubits, z_qubits, n_y) of a Pauli word."""
+    """(x_qubits, z_qubits, n_y) of a Pauli word (memoised: every readout asks again)."""
     x = tuple(q for q, c in enumerate(word) if c in "XY")
     z = tuple(q for q, c in enumerate(word) if c in "ZY")
     return x, z, word.count("Y")

@@ -63,7 +63,9 @@ def _z_group(t, n, group, B):
     p = t.reshape(B, -1, 1)
     p = p.view(p.real.dtype)                               # (B, N, 2): re, im
     p = np.einsum("bni,bni->bn", p, p)                     # |psi|^2, one pass, one array
-    const, windows = _z_windows([(zq, c) for zq, ny, c in group], 1)
+    terms = tuple((zq, c) for zq, ny, c in group)
+    narrow = all(max(zq) - min(zq) < _WINDOW for zq, _ in terms if zq)
+    const, windows = _fixed_z_windows(terms) if narrow else _z_windows(list(terms), 1)
     total = const[0] * p.sum(axis=1, dtype=np.float64)
     for lo, w, small in windows:
         # marginal of |psi|^2 on the window (one reduction pass), dotted with its signs
@@ -100,6 +102,8 @@ def _x_group(t, n, xq, group, B):
     """Terms flipping the bits ``xq``: products over half the index space (the other half
     is their complex conjugate)."""
     x0 = xq[0]
+    if len(xq) == 1 and n - x0 > 1 and all(set(zq) <= {x0} for zq, _, _ in group):
+        return _one_flip(t, n, x0, group, B)
     sl = [slice(None)] * t.ndim
     sl[1 + x0] = 0
     half = t[tuple(sl)]                                   # bit x0 = 0
@@ -115,6 +119,31 @@ def _x_group(t, n, xq, group, B):
         # sum over both halves: prod + (-1)^{|z & x|} conj(prod)
         full = 2j * val.imag if odd else 2 * val.real
         total += c * np.real((1j ** ny) * full)
+    return total
+
+
+def _one_flip(t, n, q, group, B):
+    """`_x_group` for words whose only letter is on qubit ``q`` (X, Y), not the last one:
+    ``sum conj(psi[i ^ x]) psi[i]`` over the half with bit q clear is a dot product of two
+    views of the float state (real and imaginary parts neighbours in memory), read once,
+    nothing allocated. (On the last qubit the views alternate every two floats, which NumPy
+    reads slower than the general path's product.)"""
+    v = t.reshape(B, 2 ** q, 2, -1).view(t.real.dtype)     # (B, L, 2, 2R): bit q, re/im pairs
+    lo, hi = v[:, :, 0], v[:, :, 1]
+    re = np.einsum("blr,blr->b", lo, hi, dtype=np.float64)  # Re conj(psi1) psi0
+    total = np.zeros(B)
+    im = None
+    for zq, ny, c in group:
+        if not zq:                       # X: both halves, 2 Re
+            total += c * 2 * re
+            continue
+        if im is None:                   # Im conj(psi1) psi0, for the Y letter
+            a = lo.reshape(B, lo.shape[1], -1, 2)
+            b = hi.reshape(B, hi.shape[1], -1, 2)
+            im = (np.einsum("blr,blr->b", b[..., 0], a[..., 1], dtype=np.float64)
+                  - np.einsum("blr,blr->b", b[..., 1], a[..., 0], dtype=np.float64))
+        # Y = i X Z: as `_x_group`, i**ny times the odd half-sum 2i Im
+        total += c * np.real((1j ** ny) * 2j * im)
     return total
 
 
@@ -302,7 +331,23 @@ def expectation_scratch(n: int, observables) -> float:
     einsum's product (2). The memory guard's estimate (`qgradlib.engine.memory`): change it
     with `expectations`."""
     dense = any(o.dense is not None for o in observables)
-    return min(1.0, READ_PIECE / 2.0 ** n) + _z_window_scratch(n, observables) + (2.0 if dense else 0.0)
+    product = min(1.0, READ_PIECE / 2.0 ** n) if _products(n, observables) else 0.0
+    return product + _z_window_scratch(n, observables) + (2.0 if dense else 0.0)
+
+
+def _products(n, observables) -> bool:
+    """Whether reading out ``observables`` forms a product or ``|psi|**2`` array (a flip
+    pattern `_one_flip` does not read, or Z words); on few qubits the layout of `_readout`
+    always does."""
+    if n <= READOUT_QUBITS:
+        return True
+    by_x = defaultdict(list)
+    for obs in observables:
+        for word in obs.terms:
+            xq, zq, _ = masks(word)
+            by_x[xq].append(zq)
+    return any(not xq or len(xq) > 1 or xq[0] == n - 1 or any(set(zq) - set(xq) for zq in zqs)
+               for xq, zqs in by_x.items())
 
 
 def observable_scratch(n: int, observables) -> float:
@@ -355,6 +400,35 @@ def _z_windows(terms, B):
             small += c.reshape((B,) + (1,) * w) * sign
         windows.append((lo, w, small.reshape(B, 2 ** w)))
     return const, windows
+
+
+@lru_cache(maxsize=256)
+def _fixed_z_windows(terms):
+    """`_z_windows` of Z words with float coefficients, each spanning fewer than `_WINDOW`
+    qubits (vectors of at most 2**_WINDOW floats), memoised: an observable is read out again
+    on every call, and building its sign vectors took a Python loop over its words. The
+    vectors are read-only: they are shared."""
+    const, windows = _z_windows(list(terms), 1)
+    for _, _, small in windows:
+        small.setflags(write=False)
+    const.setflags(write=False)
+    return const, windows
+
+
+# registers up to this size keep the diagonal of an observable's Z words: at most 512 KiB,
+# within the memory guard's fixed allowance for a call (`qgradlib.engine.memory.OVERHEAD`)
+_KEPT_DIAGONAL = 16
+
+
+@lru_cache(maxsize=8)
+def _unit_diagonal(key):
+    """The real diagonal (2**n,) of Z words ``key = (n, (z qubits, c), ...)``, read-only."""
+    n, terms = key[0], key[1:]
+    d = np.empty((1, 2 ** n))
+    _z_diagonal(d, n, [(((), zq, 0), c) for zq, c in terms], 1)
+    d = d[0]
+    d.setflags(write=False)
+    return d
 
 
 def _z_diagonal(d, n, diag_terms, B):
@@ -432,7 +506,13 @@ def apply_observables(psi, n, observables, weights=None, out=None, scratch=None)
         scratch = np.empty_like(psi)
     written = False
     diag_terms = [(masks(wd), c) for wd, c in coef.items() if not masks(wd)[0]]
-    if diag_terms:
+    if (diag_terms and weights is None and n <= _KEPT_DIAGONAL
+            and all(max(m[1]) - min(m[1]) < _WINDOW for m, _ in diag_terms)):
+        # unweighted (the adjoint forward pass): the diagonal of the observable, memoised
+        key = (n,) + tuple((m[1], float(c[0])) for m, c in diag_terms)
+        np.multiply(psi, _unit_diagonal(key), out=out)
+        written = True
+    elif diag_terms:
         # all Z-only words as one real diagonal, built in the scratch memory
         N = 2 ** n
         d = scratch.view(scratch.real.dtype).reshape(B, 2 * N)[:, :N]

@@ -20,7 +20,8 @@ in the same place; ``tests/test_memory.py`` measures every one of them with trac
 Bytes per amplitude are 16 for complex128 (pass 8 for complex64). Besides each call's own
 work, `qgradlib.engine.scratch` keeps spare buffers of small registers between calls (at
 most ``POOL_BYTES``, 32 MiB, in all; none larger than 8 MiB), so a large register never
-holds memory after its call.
+holds memory after its call; `qgradlib.engine.measure` memoises the diagonal of an
+observable's Z words on up to 16 qubits (512 KiB each, eight at most).
 """
 from __future__ import annotations
 
