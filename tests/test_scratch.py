@@ -137,3 +137,18 @@ def test_repeated_rows_and_single_precision_keep_their_o_psi_right():
     g32 = grad(lambda t: qg.expect(c, H, t, gradient="adjoint", precision="single"))(a)
     # single precision: within 1e-5 of double (the documented bound of precision="single")
     assert np.max(np.abs(g32 - dense.gradient(c, H, a))) <= 1e-5
+
+
+def test_a_forked_child_starts_with_an_empty_pool():
+    # common practice: state guarded by a lock is reset in a forked child (os.register_at_fork)
+    import multiprocessing
+
+    if "fork" not in multiprocessing.get_all_start_methods():
+        pytest.skip("no fork start method on this platform")
+    scratch.clear()
+    scratch.give(np.empty((1, 32), dtype=complex))
+    ctx = multiprocessing.get_context("fork")
+    with ctx.Pool(1) as pool:
+        held = pool.apply(scratch.clear)
+    assert held == 0
+    assert scratch.clear() == 32 * 16

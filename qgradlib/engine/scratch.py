@@ -11,7 +11,8 @@ stacked buffers kept). Buffers that never leave the engine are therefore borrowe
 Only arrays of at most `ARRAY_BYTES` are kept, and at most `POOL_BYTES` in all (the oldest
 go first), so a large register never holds memory between calls: the memory guard's
 estimates stay what they say. `clear` empties the pool. The pool is shared by the threads
-of a process; an array is out of it while borrowed, so two callers never share one.
+of a process; an array is out of it while borrowed, so two callers never share one. A
+forked child starts with an empty pool.
 
 Examples
 --------
@@ -23,6 +24,7 @@ True
 """
 from __future__ import annotations
 
+import os
 import threading
 from collections import OrderedDict
 
@@ -38,6 +40,19 @@ POOL_BYTES = 2 ** 25
 _free: "OrderedDict" = OrderedDict()     # (shape, dtype) -> [arrays], oldest key first
 _held = [0]                              # bytes in the pool
 _lock = threading.Lock()
+
+
+def _after_fork():
+    # a forked worker (a process pool) starts with an empty pool and a lock of its own: the
+    # parent's lock may have been held by another thread at the fork
+    global _lock
+    _lock = threading.Lock()
+    _free.clear()
+    _held[0] = 0
+
+
+if hasattr(os, "register_at_fork"):
+    os.register_at_fork(after_in_child=_after_fork)
 
 
 def take(shape, dtype=np.complex128) -> np.ndarray:
