@@ -4,9 +4,14 @@ Each configuration is a child ``python -m benchmarks`` run: with ``OPENBLAS_NUM_
 ``OMP_NUM_THREADS`` and ``MKL_NUM_THREADS`` removed from its environment ("unset", what a
 user has by default) or set to 1 ("pinned"); on the machine as it is ("idle") and next to
 one other process that keeps a core busy with a Python loop ("busy"). Unset and pinned runs
-take turns, twice each, so slow phases of a shared machine fall on both. The figure per row
-is the median time of the row's target in the unset runs over that in the pinned runs; the
-target is at most 1.10 (the default never slower than pinned by more than 10%). A row's
+take turns, twice each by default (``--rounds``), the unset one first in even rounds and
+second in odd ones, so slow phases of a shared machine fall on both. The figure per row
+is the median over rounds of the row's target time in a round's unset run over that in its
+pinned run, which ran right before or after it (a shared machine's slow phases last minutes and change
+a row's time between child runs by up to a factor of two here: the ratio of two adjacent runs
+cancels more of that than the ratio of all unset runs' median to all pinned runs', which the
+JSON keeps as ``ratio_of_medians``); the target is at most 1.10 (the default never slower
+than pinned by more than 10%). A row's
 target is timed after its baseline's BLAS workers have gone idle (`benchmarks.timing`), so
 it does not pay for the threads of a product it did not make; the import row's time is that of
 ``import qgradlib`` in a fresh interpreter that imported NumPy and waited the same settle
@@ -62,7 +67,9 @@ def _measure(args, load):
     try:
         with tempfile.TemporaryDirectory() as tmp:
             for r in range(getattr(args, "rounds", None) or ROUNDS):
-                for pinned in (False, True):
+                # the two children of a round swap places every other round, so a cost of
+                # running first (or second) falls on both configurations alike
+                for pinned in ((False, True) if r % 2 == 0 else (True, False)):
                     runs[pinned].append(_child(args, pinned, os.path.join(tmp, f"{load}{r}{pinned}.json")))
     finally:
         if spinner is not None:
@@ -70,18 +77,29 @@ def _measure(args, load):
             spinner.wait()
     rows = {}
     for key, fig in runs[False][0].items():
-        unset = sorted(run[key]["seconds"] for run in runs[False] if key in run)
-        pinned = sorted(run[key]["seconds"] for run in runs[True] if key in run)
-        med = lambda xs: xs[len(xs) // 2] if len(xs) % 2 else 0.5 * (xs[len(xs) // 2 - 1] + xs[len(xs) // 2])  # noqa: E731
-        rows[key] = {"figure": fig["figure"], "seconds_unset": med(unset), "seconds_pinned": med(pinned),
-                     "ratio": med(unset) / med(pinned), "samples_unset": unset, "samples_pinned": pinned}
+        # in run order: round r's unset and pinned children ran one right after the other
+        pairs = [(u[key]["seconds"], p[key]["seconds"]) for u, p in zip(runs[False], runs[True])
+                 if key in u and key in p]
+        unset, pinned = [u for u, _ in pairs], [p for _, p in pairs]
+        rows[key] = {"figure": fig["figure"], "seconds_unset": _median(unset),
+                     "seconds_pinned": _median(pinned),
+                     "ratio": _median([u / p for u, p in pairs]),
+                     "ratio_of_medians": _median(unset) / _median(pinned),
+                     "samples_unset": unset, "samples_pinned": pinned}
     return rows
+
+
+def _median(xs):
+    xs = sorted(xs)
+    k = len(xs) // 2
+    return xs[k] if len(xs) % 2 else 0.5 * (xs[k - 1] + xs[k])
 
 
 def markdown(doc) -> str:
     lines = [f"Measured by `python -m benchmarks --environments` ({doc['mode']}, {doc.get('rounds', ROUNDS)} alternating runs "
              "per configuration): time of each row's target with the BLAS thread variables unset, "
-             "over the time with them set to 1.", "",
+             "over the time with them set to 1 in the run next to it, median over rounds "
+             "(in brackets: the median times of all unset and all pinned runs).", "",
              "| row | idle: unset / pinned | busy: unset / pinned | met (≤ 1.10 both) |",
              "|---|---|---|---|"]
     for key, idle in doc["idle"].items():
