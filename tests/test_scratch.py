@@ -92,6 +92,7 @@ OBSERVABLES = {
     "Z pairs and X": lambda n: qg.Observable({"I" * k + "ZZ" + "I" * (n - k - 2): 1.0 for k in range(n - 1)}
                                              | {"I" * k + "X" + "I" * (n - k - 1): 0.5 for k in range(n)}),
     "odd Y words": lambda n: qg.Observable({"Y" + "I" * (n - 1): 0.7, "XY" + "Z" * (n - 2): -0.3}),
+    "identity term": lambda n: qg.Observable({"I" * n: 0.5, "Z" + "I" * (n - 1): 1.0, "X" * n: 0.3}),
     "dense part": lambda n: qg.Observable({"Z" * n: 0.4})
     + qg.Observable.from_matrix(np.diag(np.linspace(-1, 1, 2 ** n))),
 }

@@ -507,7 +507,7 @@ def apply_observables(psi, n, observables, weights=None, out=None, scratch=None)
     written = False
     diag_terms = [(masks(wd), c) for wd, c in coef.items() if not masks(wd)[0]]
     if (diag_terms and weights is None and n <= _KEPT_DIAGONAL
-            and all(max(m[1]) - min(m[1]) < _WINDOW for m, _ in diag_terms)):
+            and all(max(m[1]) - min(m[1]) < _WINDOW for m, _ in diag_terms if m[1])):
         # unweighted (the adjoint forward pass): the diagonal of the observable, memoised
         key = (n,) + tuple((m[1], float(c[0])) for m, c in diag_terms)
         np.multiply(psi, _unit_diagonal(key), out=out)
