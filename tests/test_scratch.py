@@ -153,3 +153,19 @@ def test_a_forked_child_starts_with_an_empty_pool():
         held = pool.apply(scratch.clear)
     assert held == 0
     assert scratch.clear() == 32 * 16
+
+
+def test_single_precision_on_thirteen_qubits_reads_its_kept_o_psi_within_the_documented_bound():
+    # reference: the shift rule in double precision (another algorithm); 13 qubits take the
+    # general backward pass and the memoised Z diagonal with complex64 states
+    n = 13
+    c = qg.Circuit(n)
+    for q in range(n):
+        c.ry(q)
+    for q in range(n - 1):
+        c.cz(q, q + 1)
+    H = OBSERVABLES["Z pairs and X"](n) + OBSERVABLES["identity term"](n)
+    theta = np.random.default_rng(13).uniform(-3, 3, size=c.n_params)
+    ref = grad(lambda t: qg.expect(c, H, t))(theta)
+    g32 = grad(lambda t: qg.expect(c, H, t, gradient="adjoint", precision="single"))(theta)
+    assert np.max(np.abs(g32 - ref)) <= 1e-5
