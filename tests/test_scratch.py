@@ -38,11 +38,12 @@ def test_the_pool_keeps_no_views_no_large_arrays_and_stays_within_its_bound():
     # common practice: a cache of buffers is bounded, and a view would alias its base
     scratch.clear()
     base = np.empty((4, 16), dtype=complex)
-    scratch.give(base[:2])
-    assert scratch.take((2, 16)) is not base
-    big = np.empty(scratch.ARRAY_BYTES // 16 + 1, dtype=complex)
-    scratch.give(big)
+    scratch.give(base[:2])                       # a view: not kept
     assert scratch.clear() == 0
+    scratch.give(np.empty(scratch.ARRAY_BYTES // 16 + 1, dtype=complex))   # too large
+    assert scratch.clear() == 0
+    scratch.give(np.empty((2, 16), dtype=complex))                         # kept
+    assert scratch.clear() == 2 * 16 * 16
     row = scratch.ARRAY_BYTES // 16
     for _ in range(2 * scratch.POOL_BYTES // scratch.ARRAY_BYTES + 2):
         scratch.give(np.empty(row, dtype=complex))

@@ -102,7 +102,7 @@ def _x_group(t, n, xq, group, B):
     """Terms flipping the bits ``xq``: products over half the index space (the other half
     is their complex conjugate)."""
     x0 = xq[0]
-    if len(xq) == 1 and n - x0 > 1 and all(set(zq) <= {x0} for zq, _, _ in group):
+    if _reads_one_flip(n, xq, [zq for zq, _, _ in group]):
         return _one_flip(t, n, x0, group, B)
     sl = [slice(None)] * t.ndim
     sl[1 + x0] = 0
@@ -120,6 +120,12 @@ def _x_group(t, n, xq, group, B):
         full = 2j * val.imag if odd else 2 * val.real
         total += c * np.real((1j ** ny) * full)
     return total
+
+
+def _reads_one_flip(n, xq, zqs) -> bool:
+    """Whether `_one_flip` reads the words flipping ``xq`` whose Z/Y qubits are ``zqs``: one
+    flipped qubit, not the last, and no Z letter elsewhere."""
+    return len(xq) == 1 and xq[0] < n - 1 and all(set(zq) <= set(xq) for zq in zqs)
 
 
 def _one_flip(t, n, q, group, B):
@@ -346,8 +352,7 @@ def _products(n, observables) -> bool:
         for word in obs.terms:
             xq, zq, _ = masks(word)
             by_x[xq].append(zq)
-    return any(not xq or len(xq) > 1 or xq[0] == n - 1 or any(set(zq) - set(xq) for zq in zqs)
-               for xq, zqs in by_x.items())
+    return any(not xq or not _reads_one_flip(n, xq, zqs) for xq, zqs in by_x.items())
 
 
 def observable_scratch(n: int, observables) -> float:
