@@ -275,3 +275,13 @@ def test_under_an_address_space_limit_what_fits_runs(limited):
     assert limited["forward fits"] == ["ok", round(np.cos(0.3), 9)]      # in place: one state
     assert limited["adjoint fits"] == ["ok", round(-np.sin(0.3), 9)]
     assert limited["density fits"] == ["ok", round((1 - 0.1) * np.cos(0.3), 9)]
+
+
+def test_the_refusal_names_the_limit_of_the_reading_that_refused(monkeypatch):
+    # the address space left moves with every allocation: read again, it matches nothing
+    readings = iter([{"RLIMIT_AS": 1000, "MemAvailable": 5000},
+                     {"RLIMIT_AS": 990, "MemAvailable": 5000}])
+    monkeypatch.setattr(memory, "limits", lambda: next(readings))
+    monkeypatch.setattr(memory, "_recent", [0.0, -1, None])
+    with pytest.raises(memory.StateTooLarge, match=r"\(the RLIMIT_AS limit\)"):
+        memory.guard(2000, "a test request")

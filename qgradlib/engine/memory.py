@@ -40,6 +40,7 @@ _UNLIMITED = 1 << 62       # what the kernel reports as "no limit" is at least t
 _FRESH = 1.0
 _MARGIN = 64
 _recent = [0.0, -1, None]  # [monotonic time, available bytes, pid] of the last reading
+_reading = {}              # the limits of that reading (`guard` names the tightest from it)
 
 
 class StateTooLarge(ValueError):
@@ -169,7 +170,10 @@ def available_bytes() -> int:
     >>> available_bytes() > 16 * 2 ** 10      # at least a 10-qubit state fits
     True
     """
-    avail = min(limits().values(), default=_UNLIMITED)
+    found = limits()
+    avail = min(found.values(), default=_UNLIMITED)
+    _reading.clear()
+    _reading.update(found)
     _recent[:] = [time.monotonic(), avail, os.getpid()]
     return avail
 
@@ -223,7 +227,9 @@ def guard(nbytes: int, what: str) -> None:
     """
     avail = recent_available(nbytes)
     if nbytes > avail:
-        which = [k for k, v in limits().items() if v == avail]
+        # named from the reading that refused (read again, the address space left has
+        # moved with any allocation since, and matches nothing)
+        which = [k for k, v in _reading.items() if v == avail]
         by = f" (the {which[0]} limit)" if which else ""
         raise StateTooLarge(f"{what} needs {nbytes:,} bytes ({_gib(nbytes)}) but only "
                             f"{avail:,} bytes ({_gib(avail)}) are available{by}")
