@@ -19,8 +19,12 @@ layers), reduced to each qubit's 2 x 2 overlap by one product with a 0/1 partial
 
     dE/dphi_t = 2 Im sum_ij G_t[i, j] R_t[i, j],   R_t the overlap on gate t's qubit,
 
-which is ``2 Im <lam|G_t|psi>`` at the gate's output (the gates of a layer commute). Products
-stay at or below 64 x 64 x 64 up to 12 qubits, which OpenBLAS runs on the calling thread.
+which is ``2 Im <lam|G_t|psi>`` at the gate's output (the gates of a layer commute). For Pauli
+rotations on a small register the same derivatives are one gather instead
+(`qgradlib.engine.whole.derivatives`, up to `GATHER_ENTRIES`), and with every qubit on one
+side the run and the backward pass are `qgradlib.engine.whole`'s chain of whole-register
+matrices. Products stay at or below 64 x 64 x 64 up to 12 qubits, which OpenBLAS runs on the
+calling thread.
 Values and derivatives equal those of the gate-at-a-time loop to rounding.
 """
 from __future__ import annotations
@@ -29,7 +33,7 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from . import small
+from . import small, whole
 
 __all__ = ["SIDE_QUBITS", "Sides", "eligible", "compiled", "run", "gradient", "born_finals", "kept_states"]
 
@@ -40,6 +44,11 @@ SIDE_QUBITS = 12
 ONE_SIDE_QUBITS = 4
 # bytes the kept states of one run may take (above, the gate-at-a-time loop runs instead)
 KEEP_BYTES = 2 ** 25
+
+# up to this many gathered amplitudes (columns x 2**n) the derivatives of Pauli rotations
+# are one gather (`qgradlib.engine.whole.derivatives`: a few calls); above, the overlap
+# matrices' products cost less than the gather
+GATHER_ENTRIES = 2 ** 14
 
 _LAYER = -1
 
@@ -66,6 +75,7 @@ class Sides:
     traces_a: np.ndarray      # (4a, D_A**2): per row-side qubit its 2 x 2 partial trace
     traces_b: np.ndarray
     layer_steps: tuple        # per layer the index of its step in ``steps``
+    whole: tuple = None       # with every qubit on one side: `qgradlib.engine.whole.parts`
     picks: dict = field(default_factory=dict)   # memo: what `gradient`, `born_finals` gather
     pool: list = field(default_factory=list)    # workspaces of `born_finals`, kept for reuse
 
@@ -130,6 +140,7 @@ def _compile(circuit):
         for q, c in lay.items():
             slots[i, q] = c
     pauli = _pauli(gens)
+    layer_steps = tuple(i for i, st in enumerate(steps) if st[0] == _LAYER)
     return Sides(n, a, tuple(steps),
                  tuple((g, np.array(cols, dtype=np.intp)) for g, cols in groups.values()), col,
                  slots[:, :a].copy(), slots[:, a:].copy(),
@@ -137,8 +148,8 @@ def _compile(circuit):
                  tuple(bool(any(q >= a for q in lay)) for lay in layers),
                  np.array(layer_of, dtype=np.intp), np.array(qubit_of, dtype=np.intp),
                  np.array(gens).reshape(-1, 2, 2), pauli, _monomial(pauli, qubit_of, n),
-                 _traces(a), _traces(n - a),
-                 tuple(i for i, st in enumerate(steps) if st[0] == _LAYER))
+                 _traces(a), _traces(n - a), layer_steps,
+                 whole.parts(steps, layer_steps, slots, pauli, n) if a == 0 else None)
 
 
 def _constant(s, a):
@@ -214,22 +225,34 @@ class Kept:
     left: np.ndarray          # (L, D_A, D_A)
     right: np.ndarray         # (L, D_B, D_B)
     states: np.ndarray        # (L, D_A, D_B)
+    chain: np.ndarray = None  # with every qubit on one side: `qgradlib.engine.whole.chain`
 
 
 def _factors(comp, phi):
     """Per layer its row-side and column-side factors at gate angles ``phi`` (G,)."""
     if comp.pauli is not None:
         # every gate cos(a/2) I - 2i sin(a/2) G, the identity slot at a = 0
-        half = np.zeros(comp.n_columns + 1)
-        half[:-1] = phi
-        half *= 0.5
-        m = np.cos(half)[:, None, None] * _EYE2 + np.sin(half)[:, None, None] * comp.pauli
+        t = _trig(comp, phi)
+        m = t[:, 0, None, None] * _EYE2 + t[:, 1, None, None] * comp.pauli
     else:
         m = np.empty((comp.n_columns + 1, 2, 2), dtype=complex)
         m[-1] = _EYE2
         for g, cols in comp.groups:
             m[cols] = g._matrices(phi[cols])
-    return small.krons(m[comp.slots_a]), small.krons(m[comp.slots_b])
+    left = small.krons(m[comp.slots_a]) if comp.a else np.ones((comp.n_layers, 1, 1), dtype=complex)
+    return left, small.krons(m[comp.slots_b])
+
+
+def _trig(comp, phi):
+    """(G + 1, 2): the cosine and sine of half of every gate angle, then (1, 0) for the
+    identity slot."""
+    half = np.zeros(comp.n_columns + 1)
+    half[:-1] = phi
+    half *= 0.5
+    t = np.empty((half.size, 2))
+    np.cos(half, out=t[:, 0])
+    np.sin(half, out=t[:, 1])
+    return t
 
 
 _EYE2 = np.eye(2, dtype=complex)
@@ -252,6 +275,22 @@ def run(circuit, phi, keep=False):
     comp = compiled(circuit)
     n, a = comp.n, comp.a
     DA, DB = 2 ** a, 2 ** (n - a)
+    if comp.whole is not None:
+        # every qubit on one side: a chain of whole-register matrices
+        pre, end, B = comp.whole
+        if B is not None:
+            KA = KB = None                  # built by `born_finals` if it needs them
+            W = whole.expanded(B, _trig(comp, phi))
+        else:
+            KA, KB = _factors(comp, phi)
+            W = whole.chain(KB, pre)
+        flat = np.empty((comp.n_layers, DB), dtype=complex)
+        psi = whole.forward(W, end, flat)
+        if not keep:
+            return psi, None
+        kept = Kept(KA, KB, flat.reshape(-1, 1, DB), W)
+        comp.picks["kept"] = (np.asarray(phi, dtype=float).tobytes(), psi, kept)
+        return psi, kept
     KA, KB = _factors(comp, phi)
     states = np.empty((comp.n_layers, DA, DB), dtype=complex) if keep else None
     x, y, t = (np.empty((DA, DB), dtype=complex) for _ in range(3))
@@ -322,6 +361,14 @@ def gradient(circuit, kept: Kept, lam, first: int = 0) -> np.ndarray:
     grad = np.zeros(comp.n_columns)
     if L == 0 or first >= L:
         return grad
+    if kept.chain is not None:
+        lams = whole.backward(kept.chain, comp.whole[1], np.reshape(lam, -1), first,
+                              np.empty((L, DB), dtype=complex))
+        if comp.monomial is not None:
+            sel, gather = whole.gather_for(comp, first)
+            grad[sel] = whole.derivatives(kept.states.reshape(L, DB), lams, gather)
+            return grad
+        return _overlap_derivatives(comp, kept.states, lams.reshape(L, 1, DB), first, grad)
     # the undo factors of every layer at once: K_A^H on the left, conj(K_B) on the right
     KA, KB = np.conj(np.swapaxes(kept.left, 1, 2)), np.conj(kept.right)
     lams = np.empty((L, DA, DB), dtype=complex)
@@ -344,7 +391,19 @@ def gradient(circuit, kept: Kept, lam, first: int = 0) -> np.ndarray:
             out = y if cur is x else x
             small._undo(s, cur.reshape(1, -1), out.reshape(1, -1), None, n)
         cur = out
-    psis = kept.states[first:]
+    if comp.monomial is not None and comp.n_columns * DA * DB <= GATHER_ENTRIES:
+        sel, gather = whole.gather_for(comp, first)
+        grad[sel] = whole.derivatives(kept.states.reshape(L, -1), lams.reshape(L, -1), gather)
+        return grad
+    return _overlap_derivatives(comp, kept.states, lams, first, grad)
+
+
+def _overlap_derivatives(comp, states, lams, first, grad):
+    """``grad`` with the columns of layers from ``first`` on, from the kept kets and bras
+    (L, D_A, D_B) at each layer's output by the overlap matrices (the module docstring)."""
+    n, a = comp.n, comp.a
+    L = comp.n_layers
+    psis = states[first:]
     lc = lams[first:].conj()
     R = np.empty((L - first, n, 2, 2), dtype=complex)
     if a:
@@ -415,7 +474,7 @@ def born_finals(circuit, ref, columns, angles, reference=None):
     x, y = work[0].reshape(DA, R, DB), work[1].reshape(DA, R, DB)
     x[...] = _born_rows(comp, kept, cols, src_layer, angles[order] - ref[cols], gather,
                         work[2:]).reshape(R, DA, DB).transpose(1, 0, 2)
-    KA, KB = kept.left, kept.right
+    KA, KB = (kept.left, kept.right) if kept.right is not None else _factors(comp, ref)
     count = 0
     cur, other = x, y
     for s in comp.steps[comp.layer_steps[src_layer[0]]:]:

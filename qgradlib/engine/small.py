@@ -199,10 +199,20 @@ def krons(f):
     L, k = f.shape[:2]
     if k == 0:
         return np.ones((L, 1, 1), dtype=complex)
-    out = f[:, 0]
-    for j in range(1, k):
-        d = out.shape[1]
-        out = (out[:, :, None, :, None] * f[:, j, None, :, None, :]).reshape(L, 2 * d, 2 * d)
+    # pairs of neighbouring blocks a level at a time, all pairs of a level in one product
+    # (two products for four factors, not three); an odd block out waits at the end
+    blocks, spare = f, []
+    while blocks.shape[1] > 1:
+        c, d = blocks.shape[1:3]
+        if c % 2:
+            spare.append(blocks[:, -1])
+            blocks = blocks[:, :-1]
+        blocks = (blocks[:, 0::2, :, None, :, None] * blocks[:, 1::2, None, :, None, :]).reshape(
+            L, c // 2, d * d, d * d)
+    out = blocks[:, 0]
+    for b in reversed(spare):          # the first set aside is the least significant
+        p, q = out.shape[1], b.shape[1]
+        out = (out[:, :, None, :, None] * b[:, None, :, None, :]).reshape(L, p * q, p * q)
     return out
 
 

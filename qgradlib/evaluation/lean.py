@@ -65,6 +65,9 @@ __all__ = ["Lane", "lane_for", "lane_value", "LANE_QUBITS", "LIMIT_QUBITS"]
 
 # circuits of at most this many qubits take the lane (the small-state loop's limit)
 LANE_QUBITS = small.SMALL_QUBITS
+# at or below this many qubits one observable's O psi is a product with its matrix (16 x 16
+# at most: one call, where its pieces take three a flip pattern)
+DENSE_QUBITS = 4
 # from this many qubits on, the lane's engine calls run inside the BLAS thread limit
 LIMIT_QUBITS = 5
 
@@ -105,6 +108,8 @@ class Lane:
     def to_theta(self, dphi):
         """The chain rule through phi = A theta + b: ``A.T @ dphi`` (m,), A one entry a row
         (float even when there is no gate: bincount of nothing counts in ints)."""
+        if self.identity:
+            return dphi
         return np.bincount(self.idx, weights=self.scale * dphi, minlength=self.n_params).astype(
             float, copy=False)
 
@@ -135,11 +140,12 @@ class Lane:
                 psi = small.run(self.circuit, phi)
         else:
             psi = small.run(self.circuit, phi)
-        if kept is not None and self.pieces is not None:
+        if self.pieces is not None:
             # one observable: its bra O psi now, the value <psi|O psi> from it
             lam = _applied(self.pieces, psi[0])
             vals = np.array([np.vdot(psi[0], lam).real])
-            kept = (kept, lam)
+            if kept is not None:
+                kept = (kept, lam)
         else:
             vals = expectations(psi, n, self.observables)[0]
         ledger.record(1, self.settings, 0, {"value": 1})
@@ -209,6 +215,8 @@ def lane_for(spec, single, shifts=None):
             first = min((int(comp.layer[k]) for k in want), default=comp.n_layers)
             kept = _guarded(n, states, "the adjoint method on 1 row(s), states kept a layer")
     pieces = observable_pieces(n, spec.observables[0]) if layered and single else None
+    if pieces is not None and n <= DENSE_QUBITS:
+        pieces = _dense(pieces, n)
     return Lane(c, tuple(spec.observables), bool(single), spec.gradient == "adjoint",
                 np.asarray(idx, dtype=np.intp), np.asarray(scale, dtype=float),
                 np.asarray(b, dtype=float), c.n_params, want, spec.settings,
@@ -218,8 +226,18 @@ def lane_for(spec, single, shifts=None):
                 set(np.asarray(idx)[np.asarray(scale) != 0].tolist()) == set(range(c.n_params)))
 
 
+def _dense(pieces, n):
+    """The matrix (N, N) of an observable from its pieces: column j is ``O e_j``."""
+    eye = np.eye(2 ** n, dtype=complex)
+    out = np.array([_applied(pieces, e) for e in eye]).T.copy()
+    out.flags.writeable = False
+    return out
+
+
 def _applied(pieces, psi):
-    """``O psi`` (N,) of a state (N,) from an observable's pieces."""
+    """``O psi`` (N,) of a state (N,) from an observable's pieces (or its dense matrix)."""
+    if type(pieces) is np.ndarray:
+        return pieces @ psi
     flip, ph = pieces[0]
     lam = psi * ph if flip is None else np.take(psi, flip) * ph
     for flip, ph in pieces[1:]:
