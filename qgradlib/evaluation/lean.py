@@ -100,7 +100,8 @@ class Lane:
     first: int               # the earliest layer holding a column to differentiate
     kept_bytes: int
     kept_what: str
-    pieces: object           # one observable's `observable_pieces` (a traced layered call), or None
+    pieces: object           # on a layered circuit one observable's `observable_pieces`
+                             # (its matrix on up to `DENSE_QUBITS`), else None
     shifts: object           # phi (1, G) -> the shift-rule Jacobian (1, K, G), or None
     identity: bool           # the angle map is phi = theta
     covered: bool            # every parameter is read by a gate with a nonzero scale
