@@ -76,6 +76,7 @@ class Sides:
     traces_b: np.ndarray
     layer_steps: tuple        # per layer the index of its step in ``steps``
     whole: tuple = None       # with every qubit on one side: `qgradlib.engine.whole.parts`
+    slots_both: np.ndarray = None   # (2L, a): slots_a above slots_b when the sides are equal
     picks: dict = field(default_factory=dict)   # memo: what `gradient`, `born_finals` gather
     pool: list = field(default_factory=list)    # workspaces of `born_finals`, kept for reuse
 
@@ -149,7 +150,8 @@ def _compile(circuit):
                  np.array(layer_of, dtype=np.intp), np.array(qubit_of, dtype=np.intp),
                  np.array(gens).reshape(-1, 2, 2), pauli, _monomial(pauli, qubit_of, n),
                  _traces(a), _traces(n - a), layer_steps,
-                 whole.parts(steps, layer_steps, slots, pauli, n) if a == 0 else None)
+                 whole.parts(steps, layer_steps, slots, pauli, n) if a == 0 else None,
+                 np.concatenate([slots[:, :a], slots[:, a:]]) if 2 * a == n else None)
 
 
 def _constant(s, a):
@@ -239,6 +241,10 @@ def _factors(comp, phi):
         m[-1] = _EYE2
         for g, cols in comp.groups:
             m[cols] = g._matrices(phi[cols])
+    if 2 * comp.a == comp.n:
+        # sides of one size: the factors of both in one Kronecker build
+        both = small.krons(m[comp.slots_both])
+        return both[:comp.n_layers], both[comp.n_layers:]
     left = small.krons(m[comp.slots_a]) if comp.a else np.ones((comp.n_layers, 1, 1), dtype=complex)
     return left, small.krons(m[comp.slots_b])
 
