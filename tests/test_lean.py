@@ -238,6 +238,7 @@ def test_shift_lane_differentiates_by_the_general_paths_plan(n):
     # common practice: two-term rule, 2 circuits per gate angle plus the value; the lane
     # counts what the general path counts
     assert laned.circuits == general.circuits == 2 * len(c.parametric_operations) + 1
+    assert laned.by_purpose == general.by_purpose
     assert np.max(np.abs(g - first)) <= 1e-12
     # reference: the dense simulator of tests/reference (scipy.linalg.expm_frechet derivatives)
     assert np.max(np.abs(g - theta_gradient(c, theta, observable_dense(H.terms, n)))) <= 1e-11
@@ -260,3 +261,43 @@ def test_a_nan_in_a_parameter_no_gate_reads_is_refused_after_the_lane_exists():
     for bad in (np.array([0.1, np.nan]), np.array([0.1, np.inf])):
         with pytest.raises(ValueError, match="finite"):
             qg.expect(c, Z, bad, gradient="adjoint")
+
+
+def test_shift_lane_takes_the_memoised_plan_and_falls_back_where_there_is_none(monkeypatch):
+    c = qg.Circuit(4)
+    for q in range(4):
+        c.ry(q)
+    c.cnot(0, 1).cnot(2, 3)
+    for q in range(4):
+        c.rx(q)
+    H = _obs(4)[0]
+    theta = np.linspace(-1.1, 1.4, c.n_params)
+    f = lambda t: qg.expect(c, H, t)  # noqa: E731
+    grad(f)(theta)
+    # the lane's shifts lay out no plan: the memoised one serves
+    from qgradlib.evaluation import expectation
+
+    def no_layout(*args, **kwargs):
+        raise AssertionError("the plan was laid out again")
+    with monkeypatch.context() as m:
+        m.setattr(expectation, "first_order_points", no_layout)
+        g = grad(f)(theta)
+    # reference: the dense simulator of tests/reference (scipy.linalg.expm_frechet derivatives)
+    assert np.max(np.abs(g - theta_gradient(c, theta, observable_dense(H.terms, 4)))) <= 1e-11
+    # a gate known only through its matrices has no fixed plan: the general path's VJP
+    # (finite differences for it, with its warning), the same answer as without the lane
+    rot = qg.Gate.from_function("turn", lambda a: np.array([[np.cos(a / 2), -np.sin(a / 2)],
+                                                            [np.sin(a / 2), np.cos(a / 2)]]), 1)
+    d = qg.Circuit(2).ry(0).add(rot, (1,)).cz(0, 1).ry(1)
+    K = qg.Observable({"ZZ": 1.0, "XI": 0.4})
+    t = np.array([0.3, -0.6, 0.9])
+    fd = lambda x: qg.expect(d, K, x)  # noqa: E731
+    with pytest.warns(UserWarning):
+        first = grad(fd)(t)
+    with pytest.warns(UserWarning):
+        again = grad(fd)(t)
+    assert np.array_equal(first, again)
+    # reference: the dense simulator of tests/reference on the same circuit with RY in its
+    # place (the function is RY's matrix); central differences of step ~1e-7 leave ~1e-8
+    same = qg.Circuit(2).ry(0).ry(1).cz(0, 1).ry(1)
+    assert np.max(np.abs(again - theta_gradient(same, t, observable_dense(K.terms, 2)))) <= 1e-6

@@ -801,7 +801,8 @@ def _keep_lane(spec, single, key):
     if key in lanes:
         return
     # shift-rule derivatives of a lane's values: the general path's own plan and batch
-    shifts = None if spec.gradient != "shift" else (lambda phi: _shift_jacobian(phi, spec, None))
+    shifts = None if spec.gradient != "shift" else \
+        lean.grown_shifts(spec, lambda phi: _shift_jacobian(phi, spec, None))
     lane = lean.lane_for(spec, single, shifts)
     if lane is not None:
         if len(lanes) >= 8:     # a few observables and option sets a circuit

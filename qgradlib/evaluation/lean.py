@@ -15,7 +15,8 @@ same circuit, observables and options go straight from ``theta`` to the value:
     gate by gate (`qgradlib.engine.small`);
   - with ``gradient="shift"``: the general path's own shift plan and batch at the forward
     call's angles (the same circuits counted, the same engine; a layered circuit's batch is
-    born from the forward call's kept states);
+    born from the forward call's kept states); on a layered circuit whose plan depends on
+    no angle, the memoised plan's points go straight to the growing batch (`grown_shifts`);
 - the angle map as index and scale arrays, ``phi = theta[idx] * scale + b`` (a copy of
   theta where the map is the identity);
 - the memory guard's byte counts and messages (the guard itself still runs every call);
@@ -46,6 +47,7 @@ True
 """
 from __future__ import annotations
 
+from collections import Counter
 from dataclasses import dataclass
 
 import numpy as np
@@ -60,6 +62,8 @@ from ..engine.adjoint import adjoint_gradient, adjoint_states, lean_backward
 from ..engine.threads import engine_threads
 from ..engine.measure import apply_observables, expectations, observable_pieces, observable_scratch
 from .rows import peak_states
+from ..engine.growing import grown_values
+from ..rules.plans import _fixed_plan, distinct_points
 
 __all__ = ["Lane", "lane_for", "lane_value", "LANE_QUBITS", "LIMIT_QUBITS"]
 
@@ -233,6 +237,40 @@ def _dense(pieces, n):
     out = np.array([_applied(pieces, e) for e in eye]).T.copy()
     out.flags.writeable = False
     return out
+
+
+def grown_shifts(spec, general):
+    """``phi (1, G) -> (1, K, G)``: the shift-rule Jacobian of a lane's call at gate angles
+    ``phi``, as the general path's VJP computes it (``general``, which it falls back to).
+
+    Where the plan depends on no angle and its points are distinct circuits (generator
+    gates: `qgradlib.rules.plans.distinct_points`) on a layered circuit, the points are
+    ``phi + delta`` of the memoised plan and go straight to the growing batch
+    (`qgradlib.engine.growing.grown_values`), the rows' memory guard and the ledger's count
+    worked out once: the same circuits counted with the same purposes, the same engine, the
+    plan's layout and the rows' dispatch not repeated every call.
+    """
+    c = spec.circuit
+    opts = spec.rule_options()
+    if (spec.splits != 1 or not sides.eligible(c)
+            or not distinct_points(c, spec.columns, **opts)):
+        return general
+    fixed = _fixed_plan(c, spec.columns, None, opts)
+    if fixed is None or fixed[0].shape[0] < 2:
+        return general
+    delta, coeff, names = fixed[:3]
+    T = delta.shape[0]
+    labels = Counter(names)
+    nbytes, what = _guarded(c.n_qubits, peak_states(spec, T), f"evaluating {T} circuit(s)")
+
+    def shifts(phi):
+        memory.guard(nbytes, what)
+        vals = grown_values(c, phi + delta, spec.observables)
+        if vals is None:
+            return general(phi)
+        ledger.record(T, spec.settings, 0, labels)
+        return np.einsum("gt,tk->kg", coeff, vals)[None]
+    return shifts
 
 
 def _applied(pieces, psi):
