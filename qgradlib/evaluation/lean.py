@@ -63,7 +63,7 @@ from ..engine.threads import engine_threads
 from ..engine.measure import apply_observables, expectations, observable_pieces, observable_scratch
 from .rows import peak_states
 from ..engine.growing import grown_values
-from ..rules.plans import _fixed_plan, distinct_points
+from ..rules.plans import distinct_points, fixed_plan
 
 __all__ = ["Lane", "lane_for", "lane_value", "LANE_QUBITS", "LIMIT_QUBITS"]
 
@@ -255,10 +255,10 @@ def grown_shifts(spec, general):
     if (spec.splits != 1 or not sides.eligible(c)
             or not distinct_points(c, spec.columns, **opts)):
         return general
-    fixed = _fixed_plan(c, spec.columns, None, opts)
+    fixed = fixed_plan(c, spec.columns, **opts)
     if fixed is None or fixed[0].shape[0] < 2:
         return general
-    delta, coeff, names = fixed[:3]
+    delta, coeff, names = fixed
     T = delta.shape[0]
     labels = Counter(names)
     nbytes, what = _guarded(c.n_qubits, peak_states(spec, T), f"evaluating {T} circuit(s)")

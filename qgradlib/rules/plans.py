@@ -25,7 +25,8 @@ import numpy as np
 from .shift_rules import warn_approximate
 from .variance import least_variance_rule, rule_variance
 
-__all__ = ["Term", "column_terms", "first_order_points", "distinct_points", "quadrature_nodes"]
+__all__ = ["Term", "column_terms", "first_order_points", "distinct_points", "fixed_plan",
+           "quadrature_nodes"]
 
 
 @dataclass(frozen=True)
@@ -213,6 +214,24 @@ def _layout(terms, G):
         delta[t, term.column] = term.shift
         coeff[term.column, t] = term.coefficient
     return delta, coeff
+
+
+def fixed_plan(circuit, columns, **rule_options):
+    """``(delta (T, G), coeff (G, T), purposes)`` of the first-order plan over ``columns``
+    when it depends on no angle (generator gates), memoised on the circuit; else None.
+
+    The points around gate angles ``phi`` (1, G) are ``phi + delta``, and the gradient is
+    ``coeff @`` their values: what `first_order_points` lays out, without laying it out.
+
+    Examples
+    --------
+    >>> import qgradlib as qg
+    >>> delta, coeff, purposes = fixed_plan(qg.Circuit(1).ry(0), (0,))
+    >>> delta.ravel().tolist(), coeff.tolist(), purposes     # the two-term rule
+    ([1.5707963267948966, -1.5707963267948966], [[0.5, -0.5]], ('RY', 'RY'))
+    """
+    hit = _fixed_plan(circuit, columns, None, rule_options)
+    return None if hit is None else hit[:3]
 
 
 def _fixed_plan(circuit, columns, inserts, options):
