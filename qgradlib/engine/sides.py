@@ -369,12 +369,24 @@ def gradient(circuit, kept: Kept, lam, first: int = 0) -> np.ndarray:
         return grad
     if kept.chain is not None:
         lams = whole.backward(kept.chain, comp.whole[1], np.reshape(lam, -1), first,
-                              np.empty((L, DB), dtype=complex))
-        if comp.monomial is not None:
-            sel, gather = whole.gather_for(comp, first)
-            grad[sel] = whole.derivatives(kept.states.reshape(L, DB), lams, gather)
-            return grad
-        return _overlap_derivatives(comp, kept.states, lams.reshape(L, 1, DB), first, grad)
+                              np.empty((L, DB), dtype=complex)).reshape(L, 1, DB)
+    else:
+        lams = _undone(comp, kept, lam, first)
+    # the gather: always with every qubit on one side, on two while it stays small
+    if comp.monomial is not None and (kept.chain is not None
+                                      or comp.n_columns * DA * DB <= GATHER_ENTRIES):
+        sel, gather = whole.gather_for(comp, first)
+        grad[sel] = whole.derivatives(kept.states.reshape(L, -1), lams.reshape(L, -1), gather)
+        return grad
+    return _overlap_derivatives(comp, kept.states, lams, first, grad)
+
+
+def _undone(comp, kept, lam, first):
+    """The bra (L, D_A, D_B) at each layer's output from ``first`` on, undoing the layers
+    and constant steps from ``lam`` at the final state."""
+    n, a = comp.n, comp.a
+    DA, DB = 2 ** a, 2 ** (n - a)
+    L = comp.n_layers
     # the undo factors of every layer at once: K_A^H on the left, conj(K_B) on the right
     KA, KB = np.conj(np.swapaxes(kept.left, 1, 2)), np.conj(kept.right)
     lams = np.empty((L, DA, DB), dtype=complex)
@@ -397,11 +409,7 @@ def gradient(circuit, kept: Kept, lam, first: int = 0) -> np.ndarray:
             out = y if cur is x else x
             small._undo(s, cur.reshape(1, -1), out.reshape(1, -1), None, n)
         cur = out
-    if comp.monomial is not None and comp.n_columns * DA * DB <= GATHER_ENTRIES:
-        sel, gather = whole.gather_for(comp, first)
-        grad[sel] = whole.derivatives(kept.states.reshape(L, -1), lams.reshape(L, -1), gather)
-        return grad
-    return _overlap_derivatives(comp, kept.states, lams, first, grad)
+    return lams
 
 
 def _overlap_derivatives(comp, states, lams, first, grad):

@@ -88,7 +88,7 @@ EXPANSION_BYTES = 2 ** 23
 
 
 def expansion(slots, pauli, pre, n):
-    """``(B, picks)`` with ``W_l = sum_S coef_l[S] B[l, S]`` (`expanded`), or None when
+    """``(B, picks, N)`` with ``W_l = sum_S coef_l[S] B[l, S]`` (`expanded`), or None when
     ``B`` would take more than `EXPANSION_BYTES`.
 
     A layer of Pauli rotations is ``K = kron_q (c_q I + s_q P_q)``, ``P_q = -2i G_q``,
@@ -97,7 +97,7 @@ def expansion(slots, pauli, pre, n):
     and ``c_q`` elsewhere; each term's row-form ``pre_l @ M_S.T`` is fixed. ``slots`` (L, k)
     are the columns on each qubit (``len(pauli) - 1``, a zero, where a qubit has no gate);
     ``picks`` (L, 2**k, k) index the factors of every ``coef[S]`` in a flat (G + 1, 2)
-    table of (c, s) pairs. ``B`` is the float view (L, 2**k, 2 N**2).
+    table of (c, s) pairs. ``B`` is the float view (L, 2**k, 2 N**2); the third entry is N.
     """
     L, k = slots.shape
     N = 2 ** n
@@ -114,18 +114,16 @@ def expansion(slots, pauli, pre, n):
     picks = np.ascontiguousarray(slots[:, None, :] * 2 + subsets[None])
     B.flags.writeable = False
     picks.flags.writeable = False
-    return B, picks
+    return B, picks, N
 
 
 def expanded(expansion, table):
     """The chain ``W`` (L, N, N) from an `expansion` and ``table`` (G + 1, 2), the cosine
     and sine of half of every gate angle, then (1, 0)."""
-    B, picks = expansion
+    B, picks, N = expansion
     coef = np.take(table, picks).prod(axis=-1)                  # (L, 2**k)
-    L, N2 = B.shape[0], B.shape[2] // 2
-    N = 1 << ((N2.bit_length() - 1) // 2)
     # real coefficients times the float view: a real product, no complex cast
-    return np.matmul(coef[:, None, :], B).view(complex).reshape(L, N, N)
+    return np.matmul(coef[:, None, :], B).view(complex).reshape(-1, N, N)
 
 
 def chain(K, pre):
@@ -138,7 +136,7 @@ def forward(W, end, states):
     """The final state (N,) from ``|0...0>``, each layer's output in ``states`` (L, N)."""
     L = W.shape[0]
     if L == 0:
-        psi = np.zeros(states.shape[1] if end is None else end.shape[0], dtype=complex)
+        psi = np.zeros(states.shape[1], dtype=complex)
         psi[0] = 1
         return psi if end is None else end[0].copy()
     states[0] = W[0, 0]                     # the first layer from |0>: row 0
