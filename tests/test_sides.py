@@ -186,3 +186,63 @@ def test_born_batches_in_two_threads_equal_the_serial_ones():
     moved = refs[0][None] + 0.7 * np.eye(comp.n_columns)
     want = [qg.state(c, row, fuse=False) for row in np.vstack([refs[:1], moved])]
     assert np.max(np.abs(serial[0] - np.array(want))) <= 1e-12
+
+
+@pytest.mark.parametrize("n", [6, 8])
+def test_layer_factors_equal_the_kronecker_products_of_the_gates(n):
+    # reference: numpy.kron of every gate's matrix expm(-i phi G) (scipy.linalg.expm);
+    # on 3-qubit sides the factors come from fixed Kronecker terms, on 4-qubit sides from
+    # the Kronecker build (`sides.TERM_QUBITS`)
+    from scipy.linalg import expm
+
+    c = _circuit(n, n)
+    comp = sides.compiled(c)
+    assert (comp.terms is not None) == (n // 2 <= sides.TERM_QUBITS)
+    phi = np.random.default_rng(n).uniform(-3, 3, size=comp.n_columns)
+    KA, KB = sides._factors(comp, phi)
+    G = comp.n_columns
+
+    def kron(slots):
+        out = np.ones((1, 1))
+        for s in slots:
+            out = np.kron(out, np.eye(2) if s == G else expm(-1j * phi[s] * comp.generators[s]))
+        return out
+
+    for b in range(comp.n_layers):
+        assert np.max(np.abs(KA[b] - kron(comp.slots_a[b]))) <= 1e-14
+        assert np.max(np.abs(KB[b] - kron(comp.slots_b[b]))) <= 1e-14
+
+
+@pytest.mark.parametrize("n", [3, 6])
+def test_a_kept_run_resumed_from_an_earlier_one_equals_the_dense_reference(n, monkeypatch):
+    # reference: the dense simulator of tests/reference (scipy.linalg.expm-built gates); on
+    # 3 qubits the whole-register chain runs, on 6 the two sides
+    c = qg.Circuit(n)
+    for layer in range(3):
+        for q in range(n):
+            [c.ry, c.rx, c.rz][(q + layer) % 3](q)
+        for q in range(n - 1):
+            c.cnot(q, q + 1)
+    comp = sides.compiled(c)
+    assert comp.n_layers == 3 and (comp.whole is not None) == (n <= sides.ONE_SIDE_QUBITS)
+    theta = np.random.default_rng(n).uniform(-3, 3, size=c.n_params)    # phi = theta here
+    sides.run(c, theta, keep=True)
+    record = comp.picks["kept"]
+    moved = theta.copy()
+    moved[n + 1] += 0.7                     # a gate of the second layer
+    calls = []
+    if comp.whole is not None:
+        forward = sides.whole.forward
+        monkeypatch.setattr(sides.whole, "forward", lambda W, e, s, start=0: (
+            calls.append(start), forward(W, e, s, start))[1])
+    else:
+        layer = sides._layer
+        monkeypatch.setattr(sides, "_layer", lambda *a: (calls.append(1), layer(*a))[1])
+    psi, kept = sides.run(c, moved, keep=True, resume=record)
+    assert np.max(np.abs(psi - circuit_state(c, moved))) <= 1e-13
+    # the first layer's output is the earlier run's, the later ones are the new angles'
+    assert np.array_equal(kept.states[0], record[2].states[0])
+    assert np.max(np.abs(kept.states[1] - record[2].states[1])) > 1e-3
+    assert calls == ([1] if comp.whole is not None else [1, 1])     # layer 0 not run again
+    g = sides.gradient(c, kept, observable_dense(_obs(n).terms, n) @ psi)
+    assert np.max(np.abs(g - theta_gradient(c, moved, observable_dense(_obs(n).terms, n)))) <= 1e-11

@@ -39,6 +39,10 @@ __all__ = ["SIDE_QUBITS", "Sides", "eligible", "compiled", "run", "gradient", "b
 
 # at or below this many qubits circuits of one-qubit parametric gates may run as layers
 SIDE_QUBITS = 12
+# sides of at most this many qubits get their factors of Pauli rotations as cosine-sine
+# coefficients times fixed Kronecker terms (three calls); on 4-qubit sides the Kronecker
+# build of `small.krons` costs the same, on 5 more
+TERM_QUBITS = 3
 # at or below this many qubits every qubit is on the column side: a layer is one product
 # with its whole-register matrix (16 x 16 at most), one call instead of two
 ONE_SIDE_QUBITS = 4
@@ -77,6 +81,8 @@ class Sides:
     layer_steps: tuple        # per layer the index of its step in ``steps``
     whole: tuple = None       # with every qubit on one side: `qgradlib.engine.whole.parts`
     slots_both: np.ndarray = None   # (2L, a): slots_a above slots_b when the sides are equal
+    terms: tuple = None       # equal sides of Pauli rotations on up to `TERM_QUBITS` qubits:
+                              # `qgradlib.engine.whole.expansion` of both sides' factors
     picks: dict = field(default_factory=dict)   # memo: what `gradient`, `born_finals` gather
     pool: list = field(default_factory=list)    # workspaces of `born_finals`, kept for reuse
 
@@ -142,6 +148,7 @@ def _compile(circuit):
             slots[i, q] = c
     pauli = _pauli(gens)
     layer_steps = tuple(i for i, st in enumerate(steps) if st[0] == _LAYER)
+    both = np.concatenate([slots[:, :a], slots[:, a:]]) if 2 * a == n and a else None
     return Sides(n, a, tuple(steps),
                  tuple((g, np.array(cols, dtype=np.intp)) for g, cols in groups.values()), col,
                  slots[:, :a].copy(), slots[:, a:].copy(),
@@ -151,7 +158,8 @@ def _compile(circuit):
                  np.array(gens).reshape(-1, 2, 2), pauli, _monomial(pauli, qubit_of, n),
                  _traces(a), _traces(n - a), layer_steps,
                  whole.parts(steps, layer_steps, slots, pauli, n) if a == 0 else None,
-                 np.concatenate([slots[:, :a], slots[:, a:]]) if 2 * a == n else None)
+                 both, whole.expansion(both, pauli, None, a)
+                 if both is not None and pauli is not None and a <= TERM_QUBITS else None)
 
 
 def _constant(s, a):
@@ -232,6 +240,10 @@ class Kept:
 
 def _factors(comp, phi):
     """Per layer its row-side and column-side factors at gate angles ``phi`` (G,)."""
+    if comp.terms is not None:
+        # both sides' factors in row form (K.T) from their fixed terms; K a transposed view
+        K = np.swapaxes(whole.expanded(comp.terms, _trig(comp, phi)), 1, 2)
+        return K[:comp.n_layers], K[comp.n_layers:]
     if comp.pauli is not None:
         # every gate cos(a/2) I - 2i sin(a/2) G, the identity slot at a = 0
         t = _trig(comp, phi)
@@ -264,9 +276,13 @@ def _trig(comp, phi):
 _EYE2 = np.eye(2, dtype=complex)
 
 
-def run(circuit, phi, keep=False):
+def run(circuit, phi, keep=False, resume=None):
     """The final state (2**n,) of an `eligible` circuit at gate angles ``phi`` (G,), and with
     ``keep`` the `Kept` record `gradient` needs (else None).
+
+    ``resume`` (with ``keep``) is an earlier kept run's record ``(angles as bytes, psi,
+    kept)``: the layers before the first whose angles differ are that run's kept states,
+    copied, and the run starts there (a rotosolve sweep moves one angle at a time).
 
     Examples
     --------
@@ -281,6 +297,7 @@ def run(circuit, phi, keep=False):
     comp = compiled(circuit)
     n, a = comp.n, comp.a
     DA, DB = 2 ** a, 2 ** (n - a)
+    start = _unchanged_layers(comp, phi, resume) if keep and resume is not None else 0
     if comp.whole is not None:
         # every qubit on one side: a chain of whole-register matrices
         pre, end, B = comp.whole
@@ -291,7 +308,9 @@ def run(circuit, phi, keep=False):
             KA, KB = _factors(comp, phi)
             W = whole.chain(KB, pre)
         flat = np.empty((comp.n_layers, DB), dtype=complex)
-        psi = whole.forward(W, end, flat)
+        if start:
+            flat[:start] = resume[2].states[:start].reshape(start, DB)
+        psi = whole.forward(W, end, flat, start)
         if not keep:
             return psi, None
         kept = Kept(KA, KB, flat.reshape(-1, 1, DB), W)
@@ -303,7 +322,13 @@ def run(circuit, phi, keep=False):
     x[...] = 0
     x[0, 0] = 1
     cur = x
-    for s in comp.steps:
+    first_step = 0
+    if start:
+        # the unchanged layers' outputs as they were; on from the last of them
+        states[:start] = resume[2].states[:start]
+        cur = states[start - 1]
+        first_step = comp.layer_steps[start - 1] + 1
+    for s in comp.steps[first_step:]:
         if s[0] == _LAYER:
             b = s[1]
             out = states[b] if keep else (y if cur is x else x)
@@ -325,6 +350,13 @@ def run(circuit, phi, keep=False):
     # right after the value it differentiates); both are only ever read
     comp.picks["kept"] = (np.asarray(phi, dtype=float).tobytes(), psi, kept)
     return psi, kept
+
+
+def _unchanged_layers(comp, phi, record):
+    """How many leading layers have the same angles in ``phi`` (G,) as in a kept run's
+    ``record`` (all of them when no angle differs)."""
+    moved = np.flatnonzero(np.frombuffer(record[0]) != phi)
+    return int(comp.layer[moved].min()) if moved.size else comp.n_layers
 
 
 def _layer(cur, left, right, has_left, has_right, tmp, out):
@@ -364,9 +396,8 @@ def gradient(circuit, kept: Kept, lam, first: int = 0) -> np.ndarray:
     n, a = comp.n, comp.a
     DA, DB = 2 ** a, 2 ** (n - a)
     L = comp.n_layers
-    grad = np.zeros(comp.n_columns)
     if L == 0 or first >= L:
-        return grad
+        return np.zeros(comp.n_columns)
     if kept.chain is not None:
         lams = whole.backward(kept.chain, comp.whole[1], np.reshape(lam, -1), first,
                               np.empty((L, DB), dtype=complex)).reshape(L, 1, DB)
@@ -376,9 +407,13 @@ def gradient(circuit, kept: Kept, lam, first: int = 0) -> np.ndarray:
     if comp.monomial is not None and (kept.chain is not None
                                       or comp.n_columns * DA * DB <= GATHER_ENTRIES):
         sel, gather = whole.gather_for(comp, first)
-        grad[sel] = whole.derivatives(kept.states.reshape(L, -1), lams.reshape(L, -1), gather)
+        d = whole.derivatives(kept.states.reshape(L, -1), lams.reshape(L, -1), gather)
+        if sel is None:
+            return d                        # every column: no scatter into zeros
+        grad = np.zeros(comp.n_columns)
+        grad[sel] = d
         return grad
-    return _overlap_derivatives(comp, kept.states, lams, first, grad)
+    return _overlap_derivatives(comp, kept.states, lams, first, np.zeros(comp.n_columns))
 
 
 def _undone(comp, kept, lam, first):
@@ -475,7 +510,8 @@ def born_finals(circuit, ref, columns, angles, reference=None):
         if hit is not None and hit[0] == np.asarray(ref, dtype=float).tobytes():
             reference = hit[1:]
         else:
-            reference = run(circuit, ref, keep=True)
+            # from the last kept run's layers that these angles leave as they were
+            reference = run(circuit, ref, keep=True, resume=hit)
     psi0, kept = reference
     R = columns.size
     out = np.empty((1 + R, N), dtype=complex)

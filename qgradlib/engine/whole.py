@@ -132,15 +132,17 @@ def chain(K, pre):
     return KT if pre is None else np.matmul(pre, KT)
 
 
-def forward(W, end, states):
-    """The final state (N,) from ``|0...0>``, each layer's output in ``states`` (L, N)."""
+def forward(W, end, states, start=0):
+    """The final state (N,) from ``|0...0>``, each layer's output in ``states`` (L, N);
+    with ``start`` the outputs of the layers before it are in ``states`` already."""
     L = W.shape[0]
     if L == 0:
         psi = np.zeros(states.shape[1], dtype=complex)
         psi[0] = 1
         return psi if end is None else end[0].copy()
-    states[0] = W[0, 0]                     # the first layer from |0>: row 0
-    for b in range(1, L):
+    if start == 0:
+        states[0] = W[0, 0]                 # the first layer from |0>: row 0
+    for b in range(max(start, 1), L):
         np.matmul(states[b - 1], W[b], out=states[b])
     return states[-1].copy() if end is None else states[-1] @ end
 
@@ -175,8 +177,8 @@ def derivatives(states, lams, gather):
 
 def gather_for(comp, first):
     """Memoised on a compiled `qgradlib.engine.sides.Sides` of Pauli rotations, per
-    ``first``: the columns from that layer on and what `derivatives` gathers for them
-    (layers, flat indices into the kept states, phases)."""
+    ``first``: the columns from that layer on (None when that is every column) and what
+    `derivatives` gathers for them (layers, flat indices into the kept states, phases)."""
     key = ("whole", first)
     hit = comp.picks.get(key)
     if hit is None:
@@ -184,6 +186,6 @@ def gather_for(comp, first):
         tab = comp.monomial[0][sel]
         N = comp.monomial[1].shape[1]
         layers = comp.layer[sel]
-        hit = comp.picks.setdefault(key, (sel, (layers, layers[:, None] * N + comp.monomial[1][tab],
-                                                 comp.monomial[2][tab])))
+        hit = comp.picks.setdefault(key, (None if sel.size == comp.n_columns else sel, (
+            layers, layers[:, None] * N + comp.monomial[1][tab], comp.monomial[2][tab])))
     return hit
