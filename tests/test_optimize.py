@@ -158,6 +158,18 @@ def test_rotosolve_minimises_a_shared_parameter_exactly():
     assert r.history["executions"][0] == 1 + 2 * 8       # the start, then 8 per coordinate (Z only)
 
 
+def test_the_frequencies_of_a_grown_circuit_are_worked_out_again():
+    # common practice: a Pauli rotation's expectation value has the one frequency 1 in its
+    # angle; an RZZ read by the same parameter twice gives frequencies 1 and 2
+    c = qg.Circuit(2).ry(0)
+    assert [w.tolist() for w in frequencies_by_parameter(c)] == [[1.0]]
+    c.rzz(0, 1, param=0)
+    assert [w.tolist() for w in frequencies_by_parameter(c)] == [[1.0, 2.0]]
+    c.ry(1)
+    freqs = frequencies_by_parameter(c)
+    assert len(freqs) == 2 and freqs[1].tolist() == [1.0]
+
+
 def test_rotosolve_minimises_a_controlled_rotation_exactly():
     # one CRX parameter: frequencies 1/2 and 1, period 4 pi; the minimum against dense
     # evaluation refined by scipy's bounded scalar minimiser (reference library)

@@ -784,8 +784,11 @@ def _lane_call(circuit, observables, theta, key):
     lane = None if lanes is None else lanes.get(key)
     if lane is None:
         return None
-    obs = (observables,) if lane.single else observables
-    if len(obs) != len(lane.observables) or not all(a is b for a, b in zip(obs, lane.observables)):
+    if lane.single:
+        if observables is not lane.observables[0]:
+            return None
+    elif len(observables) != len(lane.observables) or not all(
+            a is b for a, b in zip(observables, lane.observables)):
         return None
     if not lean.plain(theta, lane):
         return None

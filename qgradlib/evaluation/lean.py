@@ -130,7 +130,8 @@ class Lane:
 
     def forward(self, phi, keep=False):
         """(values (K,), final state (1, 2**n), kept run or None) at gate angles ``phi``
-        (1, G); ``keep`` (for a traced call) keeps what the layered gradient reads."""
+        (1, G), the values of one observable a 1-tuple; ``keep`` (for a traced call) keeps
+        what the layered gradient reads."""
         n = self.circuit.n_qubits
         kept = None
         if self.layered and keep:
@@ -148,7 +149,7 @@ class Lane:
         if self.pieces is not None:
             # one observable: its bra O psi now, the value <psi|O psi> from it
             lam = _applied(self.pieces, psi[0])
-            vals = np.array([np.vdot(psi[0], lam).real])
+            vals = (np.vdot(psi[0], lam).real,)
             if kept is not None:
                 kept = (kept, lam)
         else:
@@ -159,12 +160,14 @@ class Lane:
     def gradient(self, phi, psi, g, kept=None):
         """``sum_k g[k] dE_k/dtheta`` (m,) from the final state ``psi`` (1, 2**n) at ``phi``
         (and the kept run of a layered circuit)."""
+        if type(kept) is tuple:
+            # one observable: g is the cotangent of its value (a scalar)
+            kept, lam = kept
+            dphi = sides.gradient(self.circuit, kept, lam, self.first)
+            dphi *= g
+            return self.to_theta(dphi)
         n = self.circuit.n_qubits
         w = np.reshape(np.asarray(g, dtype=float), (1, -1))
-        if type(kept) is tuple:
-            kept, lam = kept
-            dphi = sides.gradient(self.circuit, kept, lam, self.first) * w[0, 0]
-            return self.to_theta(dphi)
         if kept is not None:
             lam = np.empty_like(psi)
             apply_observables(psi, n, self.observables, w, lam, np.empty_like(psi))
@@ -328,7 +331,7 @@ def _lane_value_vjp(ans, theta, lane, held):
             K = len(lane.observables)
             J = np.stack([lane.gradient(phi, psi, np.eye(K)[k], kept) for k in range(K)])
             return anp.dot(anp.reshape(g, (K,)), J)
-        return lane.gradient(phi, psi, np.reshape(g, (-1,)), kept)
+        return lane.gradient(phi, psi, g if type(kept) is tuple else np.reshape(g, (-1,)), kept)
     return vjp
 
 

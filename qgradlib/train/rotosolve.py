@@ -29,6 +29,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..engine.small import memoised
 from ..rules import fourier
 
 __all__ = ["sinusoid_minimum", "coordinate_minimum", "frequencies_by_parameter"]
@@ -97,7 +98,13 @@ def frequencies_by_parameter(circuit):
     """For each parameter, the frequencies of the expectation value in it, or None if unused.
 
     Raises ValueError naming the first parameter that drives a gate without a finite spectrum.
+    Memoised on the circuit until it grows (a sweep after a sweep asks again); the arrays
+    are read-only.
     """
+    return list(memoised(circuit, "_memo_frequencies", _frequencies))
+
+
+def _frequencies(circuit):
     out = []
     for p in range(circuit.n_params):
         e = np.zeros(circuit.n_params)
@@ -107,5 +114,7 @@ def frequencies_by_parameter(circuit):
         except ValueError as err:
             raise ValueError(f"method='rotosolve' needs gates U(a) = expm(-1j a G): {err}; "
                              "use another method") from None
+        if w.size:
+            w.flags.writeable = False
         out.append(w if w.size else None)
-    return out
+    return tuple(out)
