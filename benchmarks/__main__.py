@@ -107,9 +107,10 @@ def _print(r):
     print(f"{r['figure']}\n    median {r['median']:.3g}{unit}  (min {r['min']:.3g}, max {r['max']:.3g}, "
           f"IQR {r['q1']:.3g}-{r['q3']:.3g}, {len(r['samples'])} repeats)  target {r['op']} "
           f"{r['target']:g}: {ok}")
-    absolute = {k: v for k, v in r["details"].items() if k.startswith("seconds") or k.endswith("_us")}
-    if absolute:
-        print("    " + ", ".join(f"{k} {v:.3g}" for k, v in absolute.items()))
+    shown = {k: v for k, v in r["details"].items()
+             if k.startswith("seconds") or k.endswith("_us") or "_over_" in k}
+    if shown:
+        print("    " + ", ".join(f"{k} {v:.3g}" for k, v in shown.items()))
 
 
 def _machine(np, platform, threads):

@@ -9,6 +9,7 @@ import time
 
 import numpy as np
 from autograd import grad, hessian
+from autograd.extend import defvjp, primitive
 
 import qgradlib as qg
 
@@ -283,6 +284,15 @@ def _jax_case(n, L):
     return c, H, theta, first, compile_s, jax_grad
 
 
+@primitive
+def _nothing(theta):
+    """A primitive that computes nothing: a gradient of it is autograd's own cost per call."""
+    return 0.0
+
+
+defvjp(_nothing, lambda ans, theta: lambda g: np.zeros_like(theta))
+
+
 def jax_adjoint(sz, repeats):
     out = []
     L = sz["jax_layers"]
@@ -297,9 +307,15 @@ def jax_adjoint(sz, repeats):
         ours = lambda: grad(lambda t: qg.expect(c, H, t, gradient="adjoint"))(theta)  # noqa: E731
         diff = float(np.max(np.abs(ours() - first)))
         t, b = paired(ours, jax_grad, repeats, sz["min_time"])
+        # the floor under any autograd primitive: grad of one that computes nothing, against
+        # the same JAX gradient (no target; it shows how much of the ratio is autograd's)
+        f, fb = paired(lambda: grad(lambda t: _nothing(t))(theta), jax_grad, repeats,  # noqa: E731
+                       sz["min_time"])
         out.append(_result(f"jax_adjoint_n{n}", label, target, "<=", t / b, seconds=t,
                            max_gradient_difference=diff, seconds_adjoint=float(np.median(t)),
-                           seconds_jax=float(np.median(b)), seconds_jax_compile=compile_s))
+                           seconds_jax=float(np.median(b)), seconds_jax_compile=compile_s,
+                           autograd_floor_over_jax=float(np.median(f / fb)),
+                           seconds_autograd_floor=float(np.median(f))))
     return out
 
 
