@@ -301,3 +301,48 @@ def test_shift_lane_takes_the_memoised_plan_and_falls_back_where_there_is_none(m
     # place (the function is RY's matrix); central differences of step ~1e-7 leave ~1e-8
     same = qg.Circuit(2).ry(0).ry(1).cz(0, 1).ry(1)
     assert np.max(np.abs(again - theta_gradient(same, t, observable_dense(K.terms, 2)))) <= 1e-6
+
+
+@pytest.mark.parametrize("n", [3, 6])
+def test_rows_that_leave_one_point_in_one_column_take_the_growing_batch(n, monkeypatch):
+    # a rotosolve sweep's pair and a few more batches: values against the dense simulator of
+    # tests/reference (scipy.linalg.expm-built gates), ledger counts against the general path
+    from qgradlib.evaluation import distribute
+
+    c = qg.Circuit(n)
+    for layer in range(3):
+        for q in range(n):
+            [c.ry, c.rx, c.rz][(q + layer) % 3](q)
+        for q in range(n - 1):
+            c.cnot(q, q + 1)
+    H, K = _obs(n)[0], _obs(n)
+    theta = np.random.default_rng(n).uniform(-3, 3, size=c.n_params)
+    qg.expect(c, H, theta)
+    qg.expect(c, K, theta)
+    h = np.zeros(c.n_params)
+    h[n + 1] = np.pi / 2
+    # common practice: RY, RX and RZ have period 4 pi in their angle; a row 4 pi on is the
+    # same circuit, run and counted once
+    batches = [np.stack([theta + h, theta - h]), np.stack([theta, theta]),
+               np.stack([theta + h, theta, theta + h, theta + 8 * h])]
+    counts = [2, 1, 2]
+    for X, count in zip(batches, counts):
+        with qg.Ledger() as general:
+            want = qg.expect(c, H, X, fuse=False)
+        real = distribute.measure_rows
+        monkeypatch.setattr(distribute, "measure_rows", None)   # the general path would fail
+        with qg.Ledger() as laned:
+            got = qg.expect(c, H, X)
+            many = qg.expect(c, K, X)
+        monkeypatch.setattr(distribute, "measure_rows", real)
+        M = observable_dense(H.terms, n)
+        dense = [dense_expectation(circuit_state(c, x), M) for x in X]
+        assert got.shape == (X.shape[0],) and many.shape == (X.shape[0], len(K))
+        assert np.max(np.abs(got - dense)) <= 1e-12 and np.max(np.abs(got - want)) <= 1e-12
+        assert np.max(np.abs(many[:, 0] - got)) <= 1e-12
+        assert general.circuits == count and laned.circuits == 2 * count
+    # rows that move two columns each go the general way, with the same answer
+    X = theta + np.random.default_rng(1).uniform(-1, 1, size=(3, c.n_params))
+    M = observable_dense(H.terms, n)
+    assert np.max(np.abs(qg.expect(c, H, X) - [dense_expectation(circuit_state(c, x), M)
+                                                for x in X])) <= 1e-12

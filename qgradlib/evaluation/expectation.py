@@ -36,6 +36,7 @@ from . import distribute, lean, ledger
 from ..circuits.circuit import Circuit, check_inputs, check_theta
 from ..circuits.transform import qubit_sequence
 from ..engine import memory
+from ..engine.growing import grown_values
 from ..engine.heisenberg import deviations
 from ..engine.kernels import state_dtype
 from .adjoint_nested import adjoint_jacobian, adjoint_vjp, check_nested, keep_states
@@ -165,6 +166,12 @@ def _unique_rows(phi, circuit, inserts):
                 rows.append(p)
             inverse[p] = first[key]
         return rows, inverse
+    if P == 2:
+        # two rows (a rotosolve sweep's pair): only the angles where they differ on the grid
+        d = np.flatnonzero(phi[0] != phi[1])
+        if d.size == 0 or np.array_equal(*_ticks(phi[:, d], _periods(circuit)[d])):
+            return [0], np.zeros(2, dtype=int)
+        return [0, 1], np.arange(2)
     ticks = _one_column_ticks(phi, circuit) if phi.size >= ONE_COLUMN_KEYS else None
     if ticks is None:
         ticks = _angle_ticks(phi, circuit)
@@ -791,11 +798,38 @@ def _lane_call(circuit, observables, theta, key):
             a is b for a, b in zip(observables, lane.observables)):
         return None
     if not lean.plain(theta, lane):
-        return None
+        return _lane_rows(theta, lane)
     phi = lane.angles(getval(theta))
     if phi is None:
         return None
     return lean.lane_value(theta, lane, [phi, isinstance(theta, Box)])
+
+
+def _lane_rows(theta, lane):
+    """The exact values at the rows of a plain theta (B, m) on a layered lane, when their
+    distinct points leave one reference in one column each (a rotosolve sweep's pair, the
+    points of a shift plan): the growing batch straight away, the same distinct circuits
+    counted and the same memory guarded as on the general path. None for other rows, or
+    more than a two-term plan's ``2 m + 1``, or rows that the general path would cut into
+    chunks."""
+    if not (lane.layered and type(theta) is np.ndarray and theta.dtype == np.float64
+            and theta.ndim == 2 and 2 <= theta.shape[0] <= 2 * lane.n_params + 1
+            and theta.shape[1] == lane.n_params and (lane.covered or np.isfinite(theta).all())):
+        return None
+    phi = lane.row_angles(theta)
+    if phi is None:
+        return None
+    rows, inverse = _unique_rows(phi, lane.circuit, None)
+    n = lane.circuit.n_qubits
+    nbytes = memory.state_bytes(n, lane.peak(len(rows)))
+    if nbytes > memory.recent_available(nbytes) // 4:
+        return None
+    vals = grown_values(lane.circuit, phi[rows], lane.observables)
+    if vals is None:
+        return None
+    ledger.record(len(rows), lane.settings, 0, {"value": len(rows)})
+    vals = vals[inverse]
+    return vals[:, 0] if lane.single else vals
 
 
 def _keep_lane(spec, single, key):

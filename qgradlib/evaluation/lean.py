@@ -109,6 +109,8 @@ class Lane:
     shifts: object           # phi (1, G) -> the shift-rule Jacobian (1, K, G), or None
     identity: bool           # the angle map is phi = theta
     covered: bool            # every parameter is read by a gate with a nonzero scale
+    peak: object             # rows -> the states the general path guards for them at once
+                             # (`qgradlib.evaluation.rows.peak_states`)
 
     def to_theta(self, dphi):
         """The chain rule through phi = A theta + b: ``A.T @ dphi`` (m,), A one entry a row
@@ -127,6 +129,13 @@ class Lane:
         if phi.size and not np.abs(phi).max() < MAX_ANGLE:
             return None
         return phi.reshape(1, -1)
+
+    def row_angles(self, theta):
+        """Gate angles (B, G) of a plain theta (B, m), or None when one is out of range."""
+        phi = theta.copy() if self.identity else theta[:, self.idx] * self.scale + self.offset
+        if phi.size and not np.abs(phi).max() < MAX_ANGLE:
+            return None
+        return phi
 
     def forward(self, phi, keep=False):
         """(values (K,), final state (1, 2**n), kept run or None) at gate angles ``phi``
@@ -231,7 +240,8 @@ def lane_for(spec, single, shifts=None):
                 *fwd, *adj, scratch, layered, first, *kept, pieces, shifts,
                 idx.size == c.n_params and np.array_equal(idx, np.arange(idx.size))
                 and np.all(scale == 1) and not np.any(b),
-                set(np.asarray(idx)[np.asarray(scale) != 0].tolist()) == set(range(c.n_params)))
+                set(np.asarray(idx)[np.asarray(scale) != 0].tolist()) == set(range(c.n_params)),
+                lambda rows: peak_states(spec, rows))
 
 
 def _dense(pieces, n):

@@ -327,9 +327,11 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
         raise ValueError(f"gradient must be one of {_GRADIENTS}; got {gradient!r}")
 
     where = {"executor": executor, "chunk": chunk, "timeout": timeout}
+    # exact values draw nothing: without a generator the calls may take the lean lane
+    draws = rng if shots is not None else None
 
     def cost(t):
-        return expect(circuit, observable, t, shots=shots, seed=rng, gradient=gradient, **where)
+        return expect(circuit, observable, t, shots=shots, seed=draws, gradient=gradient, **where)
 
     vg = autograd.value_and_grad(cost)
 
@@ -339,7 +341,7 @@ def minimize_expectation(circuit, observable, theta0, *, method="adam", shots=No
 
     def values(X):
         return np.atleast_1d(np.asarray(expect(circuit, observable, np.asarray(X), shots=shots,
-                                               seed=rng, **where), dtype=float))
+                                               seed=draws, **where), dtype=float))
 
     problem = _Problem(value_and_grad, values, (circuit, observable, shots, rng), where)
     return _run(problem, method, x0, steps, opts, callback, progress, rng)
