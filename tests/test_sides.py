@@ -246,3 +246,36 @@ def test_a_kept_run_resumed_from_an_earlier_one_equals_the_dense_reference(n, mo
     assert calls == ([1] if comp.whole is not None else [1, 1])     # layer 0 not run again
     g = sides.gradient(c, kept, observable_dense(_obs(n).terms, n) @ psi)
     assert np.max(np.abs(g - theta_gradient(c, moved, observable_dense(_obs(n).terms, n)))) <= 1e-11
+
+
+@pytest.mark.parametrize("n", [3, 6, 10])
+def test_a_few_rows_run_as_layers_and_more_take_the_gate_loop(n, monkeypatch):
+    # reference: the dense simulator of tests/reference (scipy.linalg.expm-built gates)
+    from qgradlib.engine import small, statevector
+
+    c = _circuit(n, n)
+    comp = sides.compiled(c)
+    theta = np.random.default_rng(n).uniform(-3, 3, size=(sides.ROWS + 1, c.n_params))
+    phi = np.array([c.angles(t) for t in theta])
+    loops = []
+    run = small.run
+    monkeypatch.setattr(small, "run", lambda *a: (loops.append(a[1].shape[0]), run(*a))[1])
+    for B in (1, sides.ROWS, sides.ROWS + 1):
+        states = statevector.run(c, phi[:B])
+        for b in range(B):
+            assert np.max(np.abs(states[b] - circuit_state(c, theta[b]))) <= 1e-12
+    assert loops == [sides.ROWS + 1]            # only the batch above ROWS took the gate loop
+    # a circuit whose layered run would take more than ROW_BYTES runs in the gate loop
+    monkeypatch.setattr(sides, "ROW_BYTES", 16 * 2 ** n)
+    assert np.max(np.abs(statevector.run(c, phi[:1])[0] - circuit_state(c, theta[0]))) <= 1e-12
+    assert loops == [sides.ROWS + 1, 1]
+    monkeypatch.undo()
+    # the memory guard's estimate covers what the layered rows allocate (tracemalloc sees
+    # NumPy's arrays), room left for Python's own objects and for the iteration buffers of
+    # a broadcast product (two of numpy.getbufsize() elements, whatever the state's size)
+    import tracemalloc
+    tracemalloc.start()
+    statevector.run(c, phi[:2])
+    peak = tracemalloc.get_traced_memory()[1]
+    tracemalloc.stop()
+    assert peak <= statevector.run_states(c, 2) * 16 * 2 ** n + 2 * np.getbufsize() * 16 + 4096

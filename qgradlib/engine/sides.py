@@ -35,7 +35,8 @@ import numpy as np
 
 from . import small, whole
 
-__all__ = ["SIDE_QUBITS", "Sides", "eligible", "compiled", "run", "gradient", "born_finals", "kept_states"]
+__all__ = ["SIDE_QUBITS", "ROWS", "ROW_BYTES", "Sides", "eligible", "compiled", "run", "gradient",
+           "born_finals", "as_rows", "kept_states", "working_states", "factor_states"]
 
 # at or below this many qubits circuits of one-qubit parametric gates may run as layers
 SIDE_QUBITS = 12
@@ -48,6 +49,15 @@ TERM_QUBITS = 3
 ONE_SIDE_QUBITS = 4
 # bytes the kept states of one run may take (above, the gate-at-a-time loop runs instead)
 KEEP_BYTES = 2 ** 25
+# batches of up to this many rows run one row at a time as layers
+# (`qgradlib.engine.statevector.run`): a layered run costs about the same NumPy calls on any
+# register up to 12 qubits, and the gate-at-a-time loop over a batch of 4 rows took 4 to 7
+# times one layered run here (ring and layered circuits of 4 to 10 qubits, 3 to 50 layers;
+# of 8 rows 4 to 11 times)
+ROWS = 4
+# ... as long as the layered run's factors and working states take at most this many bytes
+# (the gate loop holds two states a row whatever the circuit's length)
+ROW_BYTES = 2 ** 22
 
 # up to this many gathered amplitudes (columns x 2**n) the derivatives of Pauli rotations
 # are one gather (`qgradlib.engine.whole.derivatives`: a few calls); above, the overlap
@@ -105,10 +115,44 @@ def compiled(circuit) -> Sides:
     return small.memoised(circuit, "_memo_sides", _compile)
 
 
-def kept_states(comp: Sides) -> int:
+def as_rows(circuit, rows: int) -> bool:
+    """Whether ``rows`` rows of ``circuit`` run one at a time as layers
+    (`qgradlib.engine.statevector.run`): an `eligible` circuit, at most `ROWS` rows, and the
+    run's `working_states` within `ROW_BYTES`."""
+    if rows > ROWS or not eligible(circuit):
+        return False
+    comp = compiled(circuit)
+    return working_states(comp) * 16 * 2 ** comp.n <= ROW_BYTES
+
+
+def working_states(comp: Sides) -> float:
+    """States of the register that `run` without ``keep`` holds at its peak, its result
+    included: every layer's factors (`factor_states`) and three working states, or with
+    every qubit on one side the chain, each layer's output and the result. The memory
+    guard's estimate (`qgradlib.engine.statevector.run_states`): change it with `run`."""
+    if comp.whole is not None:
+        return factor_states(comp) + comp.n_layers + 1.0
+    return factor_states(comp) + 3.0
+
+
+def kept_states(comp: Sides) -> float:
     """States a kept run and its gradient hold at once: the bra and the ket at every layer's
-    output, and four working states."""
-    return 2 * comp.n_layers + 4
+    output, every layer's factors (`factor_states`) and four working states."""
+    return 2 * comp.n_layers + 4 + factor_states(comp)
+
+
+def factor_states(comp: Sides) -> float:
+    """Every layer's factors in states of the register, as built: the chain (L, N, N) with
+    every qubit on one side (and the Kronecker factors it is made from when there is no
+    expansion), else (L, D_A, D_A) and (L, D_B, D_B); a Kronecker build (`small.krons`)
+    holds the inputs of its last product beside it too, a quarter of its size."""
+    N = 2 ** comp.n
+    L = comp.n_layers
+    if comp.whole is not None:
+        return float(L * N) * (1.0 if comp.whole[2] is not None else 2.25)
+    DA, DB = 2 ** comp.a, 2 ** (comp.n - comp.a)
+    f = L * (DA * DA + DB * DB) / N
+    return f if comp.terms is not None else 1.25 * f
 
 
 def _compile(circuit):

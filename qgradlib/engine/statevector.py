@@ -24,7 +24,7 @@ from __future__ import annotations
 import numpy as np
 
 from .threads import limited
-from . import kernels, scratch, small
+from . import kernels, scratch, sides, small
 from .memory import guard, guard_states
 from .program import program, step_matrix
 
@@ -197,6 +197,13 @@ def _run_small(circuit, phi, psi, out):
     if psi is not None and np.shape(psi) != (B, 2 ** n):
         raise ValueError(f"psi must have shape {(B, 2 ** n)}; got {np.shape(psi)}")
     guard_states(n, run_states(circuit, B) - B * (out is not None), f"a run of {B} row(s)")
+    if psi is None and sides.as_rows(circuit, B):
+        # a few rows of a layered circuit: one layered run each costs less than the gate
+        # loop over all of them (`qgradlib.engine.sides.ROWS`)
+        res = out if out is not None else np.empty((B, 2 ** n), dtype=complex)
+        for b in range(B):
+            res[b] = sides.run(circuit, phi[b])[0]
+        return res
     return small.run(circuit, phi, psi, out)
 
 
@@ -205,18 +212,33 @@ def run_states(circuit, rows: int = 1) -> float:
     row, or, for a batch run in place (`IN_PLACE`), one a row and the pieces of the widest
     in-place kernel (`qgradlib.engine.kernels.in_place_scratch`). The result is one of them;
     initial states ``psi``, when given, are the caller's on top. In states of the run's own
-    dtype. The memory guard's estimate (`qgradlib.engine.memory`): change it with `run`.
+    dtype. A few rows of a layered circuit (`qgradlib.engine.sides.as_rows`) may run one at
+    a time as layers instead: then the larger of the two estimates
+    (`qgradlib.engine.sides.working_states` beside the rows' results). The memory guard's
+    estimate (`qgradlib.engine.memory`): change it with `run`.
 
     Examples
     --------
     >>> import qgradlib as qg
-    >>> run_states(qg.Circuit(4).h(0)), run_states(qg.Circuit(24).h(0)) < 1.05
+    >>> run_states(qg.Circuit(4).h(0).cz(0, 1)), run_states(qg.Circuit(24).h(0)) < 1.05
     (2.0, True)
+    >>> run_states(qg.Circuit(2).ry(0).ry(1))   # one layer: its 4 x 4 matrix (4 states), output, result
+    6.0
     """
     n = circuit.n_qubits
     N = 2 ** n
+    if small.eligible(circuit) and sides.as_rows(circuit, rows):
+        layered = rows + sides.working_states(sides.compiled(circuit)) - 1
+        return max(2.0 * rows, layered) if rows * N < IN_PLACE else max(layered, _in_place(circuit, rows))
     if rows * N < IN_PLACE:
         return 2.0 * rows
+    return _in_place(circuit, rows)
+
+
+def _in_place(circuit, rows):
+    """`run_states` of a batch run in place."""
+    n = circuit.n_qubits
+    N = 2 ** n
     ops = len(circuit)
     memo = circuit.__dict__.setdefault("_memo_run_scratch", {})
     hit = memo.get(rows)
