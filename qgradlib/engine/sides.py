@@ -15,7 +15,8 @@ The forward run keeps the state at every layer's output (``keep=True``), so the 
 carries the bra alone: at each layer's output it keeps ``Lam`` too, then undoes the layer by
 two products. The derivatives of all gates come at the end from overlap matrices of the kept
 pairs, ``S_A = conj(Lam) Psi^T`` and ``S_B = Lam^H Psi`` (one batched product a side for all
-layers), reduced to each qubit's 2 x 2 overlap by one product with a 0/1 partial-trace matrix:
+layers), reduced to each qubit's 2 x 2 overlap by one product with a 0/1 partial-trace matrix
+(on sides of `EINSUM_QUBITS` or more by one einsum a qubit):
 
     dE/dphi_t = 2 Im sum_ij G_t[i, j] R_t[i, j],   R_t the overlap on gate t's qubit,
 
