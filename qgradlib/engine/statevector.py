@@ -228,8 +228,10 @@ def run_states(circuit, rows: int = 1) -> float:
     n = circuit.n_qubits
     N = 2 ** n
     if small.eligible(circuit) and sides.as_rows(circuit, rows):
+        # the rows' results beside one layered run (whose own result is in its count)
         layered = rows + sides.working_states(sides.compiled(circuit)) - 1
-        return max(2.0 * rows, layered) if rows * N < IN_PLACE else max(layered, _in_place(circuit, rows))
+        loop = 2.0 * rows if rows * N < IN_PLACE else _in_place(circuit, rows)
+        return max(layered, loop)
     if rows * N < IN_PLACE:
         return 2.0 * rows
     return _in_place(circuit, rows)

@@ -123,16 +123,13 @@ class Lane:
     def angles(self, theta):
         """Gate angles (1, G) of a plain theta (m,), or None when one is out of range
         (the general path then names the problem)."""
-        phi = theta.copy() if self.identity else theta[self.idx] * self.scale + self.offset
-        # NaN and inf fail the comparison too: a parameter read with a nonzero scale is
-        # checked here (`plain` checks the others)
-        if phi.size and not np.abs(phi).max() < MAX_ANGLE:
-            return None
-        return phi.reshape(1, -1)
+        return self.row_angles(theta.reshape(1, -1))
 
     def row_angles(self, theta):
         """Gate angles (B, G) of a plain theta (B, m), or None when one is out of range."""
         phi = theta.copy() if self.identity else theta[:, self.idx] * self.scale + self.offset
+        # NaN and inf fail the comparison too: a parameter read with a nonzero scale is
+        # checked here (`plain` checks the others)
         if phi.size and not np.abs(phi).max() < MAX_ANGLE:
             return None
         return phi
