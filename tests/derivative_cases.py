@@ -53,3 +53,15 @@ def random_pauli_observable(n, rng, k=4):
     obs = qg.Observable(terms)
     dense = sum(c * ref.pauli(w) for w, c in terms.items())
     return obs, dense
+
+
+def rotation_layers(n, layers=3):
+    """Layers of RY, RX and RZ (one a qubit, rotating with the layer) with a CNOT ladder
+    after each: every gate its own parameter, so the gate angles are theta itself."""
+    c = qg.Circuit(n)
+    for layer in range(layers):
+        for q in range(n):
+            [c.ry, c.rx, c.rz][(q + layer) % 3](q)
+        for q in range(n - 1):
+            c.cnot(q, q + 1)
+    return c

@@ -16,6 +16,7 @@ from autograd.test_util import check_grads
 import qgradlib as qg
 from qgradlib.engine import memory, small
 from qgradlib.evaluation import lean
+from derivative_cases import rotation_layers
 from reference import circuit_state, dense_expectation, observable_dense, theta_gradient
 
 
@@ -309,12 +310,7 @@ def test_rows_that_leave_one_point_in_one_column_take_the_growing_batch(n, monke
     # tests/reference (scipy.linalg.expm-built gates), ledger counts against the general path
     from qgradlib.evaluation import distribute
 
-    c = qg.Circuit(n)
-    for layer in range(3):
-        for q in range(n):
-            [c.ry, c.rx, c.rz][(q + layer) % 3](q)
-        for q in range(n - 1):
-            c.cnot(q, q + 1)
+    c = rotation_layers(n)
     H, K = _obs(n)[0], _obs(n)
     theta = np.random.default_rng(n).uniform(-3, 3, size=c.n_params)
     qg.expect(c, H, theta)

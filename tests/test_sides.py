@@ -16,6 +16,7 @@ from autograd.test_util import check_grads
 import qgradlib as qg
 from qgradlib.engine import sides
 from qgradlib.evaluation import lean
+from derivative_cases import rotation_layers
 from reference import circuit_state, dense_expectation, observable_dense, theta_gradient
 
 # a one-qubit generator with eigenvalues 0.3 and -1.1: not a Pauli rotation (no I/4 square)
@@ -217,12 +218,7 @@ def test_layer_factors_equal_the_kronecker_products_of_the_gates(n):
 def test_a_kept_run_resumed_from_an_earlier_one_equals_the_dense_reference(n, monkeypatch):
     # reference: the dense simulator of tests/reference (scipy.linalg.expm-built gates); on
     # 3 qubits the whole-register chain runs, on 6 the two sides
-    c = qg.Circuit(n)
-    for layer in range(3):
-        for q in range(n):
-            [c.ry, c.rx, c.rz][(q + layer) % 3](q)
-        for q in range(n - 1):
-            c.cnot(q, q + 1)
+    c = rotation_layers(n)
     comp = sides.compiled(c)
     assert comp.n_layers == 3 and (comp.whole is not None) == (n <= sides.ONE_SIDE_QUBITS)
     theta = np.random.default_rng(n).uniform(-3, 3, size=c.n_params)    # phi = theta here
