@@ -7,13 +7,16 @@ with the dense simulator of tests/reference (numpy.kron of every gate's matrix, 
 gates by scipy.linalg.expm, derivatives by scipy.linalg.expm_frechet) and with
 autograd's numerical check, on circuits with fixed gates before the first layer, between
 layers and after the last, dense fixed runs (H), qubits without a gate in a layer, and no
-parametric gate at all.
+parametric gate at all. A traced adjoint call of one observable is one round trip
+(`whole.round_trip`: forward, backward and derivatives in one call), in real arithmetic when
+the circuit, the observable and every ``-2i G`` are real; it is checked against the same
+references, with leading fixed layers, idle qubits and repeated cotangents.
 """
 from functools import reduce
 
 import numpy as np
 import pytest
-from autograd import grad
+from autograd import grad, make_vjp
 from autograd.test_util import check_grads
 
 import qgradlib as qg
@@ -58,6 +61,7 @@ def test_folded_chain_equals_the_dense_reference(n):
     grad(f)(theta)                          # the general call keeps the lane
     lane = list(c.snapshot().__dict__["_memo_lanes"].values())[0]
     assert lane.layered and type(lane.pieces) is np.ndarray     # O as its matrix
+    assert lane.trip is not None                # a traced call is one round trip
     assert abs(f(theta) - dense_expectation(circuit_state(c, theta), M)) <= 1e-12
     # reference: scipy.linalg.expm_frechet derivatives of the dense simulator
     assert np.max(np.abs(grad(f)(theta) - theta_gradient(c, theta, M))) <= 1e-11
@@ -111,3 +115,91 @@ def test_krons_equal_numpy_kron(k):
     # reference: numpy.kron, factor 0 the most significant
     ref = np.array([reduce(np.kron, f[i]) for i in range(3)])
     assert np.max(np.abs(small.krons(f) - ref)) <= 1e-13 * max(1.0, np.abs(ref).max())
+
+
+def _real_layers(n, fixed_first=False):
+    """RY layers between CZ and CNOT chains, H and X: every matrix real. With ``fixed_first``
+    the first layer's angles are fixed (no column of it is differentiated)."""
+    c = qg.Circuit(n).h(0)
+    for layer in range(3):
+        for q in range(n):
+            if layer == 0 and fixed_first:
+                c.ry(q, angle=0.3 + 0.4 * q)
+            elif (q + layer) % 4 != 3:
+                c.ry(q)
+        for q in range(n - 1):
+            (c.cz if layer % 2 else c.cnot)(q, q + 1)
+    return c.x(n - 1)
+
+
+def _lane(c):
+    return list(c.snapshot().__dict__["_memo_lanes"].values())[0]
+
+
+@pytest.mark.parametrize("n", [2, 3, 4])
+@pytest.mark.parametrize("fixed_first", [False, True])
+def test_a_real_circuit_goes_round_in_real_arithmetic(n, fixed_first):
+    c = _real_layers(n, fixed_first)
+    H = qg.Observable({"Z" * n: 0.8, "X" + "I" * (n - 1): 0.5, "I" * (n - 1) + "Z": -0.3})
+    theta = np.random.default_rng(30 + n).uniform(-3, 3, size=c.n_params)
+    f = lambda t: qg.expect(c, H, t, gradient="adjoint")  # noqa: E731
+    with qg.Ledger() as general:
+        first = grad(f)(theta)              # the general path keeps the lane
+    trip = _lane(c).trip
+    assert trip.observable.dtype == np.float64 and trip.slopes.dtype == np.float64
+    assert trip.first == (1 if fixed_first else 0)
+    M = observable_dense(H.terms, n)
+    with qg.Ledger() as book:
+        again = grad(f)(theta)
+    assert (book.circuits, book.executions) == (general.circuits, general.executions) == (
+        1, 2)                               # one circuit, its two settings (Z and X)
+    # reference: scipy.linalg.expm_frechet derivatives of the dense simulator
+    assert np.max(np.abs(again - theta_gradient(c, theta, M))) <= 1e-12
+    assert np.max(np.abs(again - first)) <= 1e-13
+    assert abs(f(theta) - dense_expectation(circuit_state(c, theta), M)) <= 1e-13
+    # reference: autograd.test_util.check_grads (finite differences of the values)
+    check_grads(f, modes=["rev"], order=1)(theta)
+
+
+def test_a_complex_observable_keeps_the_round_trip_complex():
+    c = _real_layers(3)
+    H = qg.Observable({"ZZZ": 0.8, "YIY": 0.5, "IXY": 0.25})       # a Y once: imaginary
+    theta = np.linspace(-2.0, 2.5, c.n_params)
+    f = lambda t: qg.expect(c, H, t, gradient="adjoint")  # noqa: E731
+    grad(f)(theta)
+    assert _lane(c).trip.observable.dtype == complex
+    # reference: scipy.linalg.expm_frechet derivatives of the dense simulator
+    M = observable_dense(H.terms, 3)
+    assert np.max(np.abs(grad(f)(theta) - theta_gradient(c, theta, M))) <= 1e-12
+
+
+def test_the_round_trip_scales_by_every_cotangent_it_is_given():
+    c = _framed(3, 5)
+    H = _obs(3)
+    theta = np.linspace(-1.5, 1.0, c.n_params)
+    f = lambda t: qg.expect(c, H, t, gradient="adjoint")  # noqa: E731
+    grad(f)(theta)
+    assert _lane(c).trip is not None
+    vjp, value = make_vjp(f)(theta)
+    M = observable_dense(H.terms, 3)
+    # reference: scipy.linalg.expm_frechet derivatives of the dense simulator
+    ref = theta_gradient(c, theta, M)
+    for g in (2.0, -0.5, 1.0):              # the derivatives held are never scaled in place
+        assert np.max(np.abs(vjp(g) - g * ref)) <= 1e-12
+    assert abs(value - dense_expectation(circuit_state(c, theta), M)) <= 1e-13
+
+
+def test_no_round_trip_without_a_column_to_differentiate_or_for_shifts():
+    c = qg.Circuit(2).ry(0, angle=0.4).cz(0, 1).ry(1, angle=-0.2)
+    Z = qg.Observable({"ZZ": 1.0})
+    with pytest.warns(UserWarning, match="independent"):        # autograd's: no parameter
+        grad(lambda t: qg.expect(c, Z, t, gradient="adjoint"))(np.zeros(0))
+    assert _lane(c).trip is None            # first is past the last layer
+    d = _real_layers(2)
+    theta = np.linspace(0.1, 0.9, d.n_params)
+    s = lambda t: qg.expect(d, Z, t)  # noqa: E731
+    grad(s)(theta)
+    assert _lane(d).trip is None            # the shift rule's lane runs its own plan
+    # reference: scipy.linalg.expm_frechet derivatives of the dense simulator
+    M = observable_dense(Z.terms, 2)
+    assert np.max(np.abs(grad(s)(theta) - theta_gradient(d, theta, M))) <= 1e-12

@@ -293,11 +293,11 @@ def _factors(comp, phi):
     """Per layer its row-side and column-side factors at gate angles ``phi`` (G,)."""
     if comp.terms is not None:
         # both sides' factors in row form (K.T) from their fixed terms; K a transposed view
-        K = np.swapaxes(whole.expanded(comp.terms, _trig(comp, phi)), 1, 2)
+        K = np.swapaxes(whole.expanded(comp.terms, whole.half_angles(phi)), 1, 2)
         return K[:comp.n_layers], K[comp.n_layers:]
     if comp.pauli is not None:
         # every gate cos(a/2) I - 2i sin(a/2) G, the identity slot at a = 0
-        t = _trig(comp, phi)
+        t = whole.half_angles(phi)
         m = t[:, 0, None, None] * _EYE2 + t[:, 1, None, None] * comp.pauli
     else:
         m = np.empty((comp.n_columns + 1, 2, 2), dtype=complex)
@@ -310,18 +310,6 @@ def _factors(comp, phi):
         return both[:comp.n_layers], both[comp.n_layers:]
     left = small.krons(m[comp.slots_a]) if comp.a else np.ones((comp.n_layers, 1, 1), dtype=complex)
     return left, small.krons(m[comp.slots_b])
-
-
-def _trig(comp, phi):
-    """(G + 1, 2): the cosine and sine of half of every gate angle, then (1, 0) for the
-    identity slot."""
-    half = np.zeros(comp.n_columns + 1)
-    half[:-1] = phi
-    half *= 0.5
-    t = np.empty((half.size, 2))
-    np.cos(half, out=t[:, 0])
-    np.sin(half, out=t[:, 1])
-    return t
 
 
 _EYE2 = np.eye(2, dtype=complex)
@@ -354,7 +342,7 @@ def run(circuit, phi, keep=False, resume=None):
         pre, end, B = comp.whole
         if B is not None:
             KA = KB = None                  # built by `born_finals` if it needs them
-            W = whole.expanded(B, _trig(comp, phi))
+            W = whole.expanded(B, whole.half_angles(phi))
         else:
             KA, KB = _factors(comp, phi)
             W = whole.chain(KB, pre)

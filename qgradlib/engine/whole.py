@@ -19,6 +19,13 @@ of NumPy calls, which no longer grows with the fixed gates or the qubits of a la
 `derivatives` serves the two-sided layers of `qgradlib.engine.sides` too (on a flat view of
 their kept states) where the gather is small.
 
+For one observable a traced call needs the value and ``dE/dphi`` only, so `round_trip` does
+the whole of it in one call and keeps nothing: the run after the last layer is folded into
+the observable (``conj(R) O R.T``), each layer's ``-2i G`` are stacked as whole-register
+matrices (one batched product for every gate's ``Re lam^H (-2i G) psi``), and when the
+terms, the observable and those matrices are all real (RY and CZ measured in Z and X) the
+state is real throughout. About twenty NumPy calls on three layers.
+
 Examples
 --------
 >>> import numpy as np
@@ -30,12 +37,14 @@ True
 """
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from . import small
 
-__all__ = ["parts", "fold", "expansion", "expanded", "chain", "forward", "backward", "derivatives",
-           "gather_for"]
+__all__ = ["parts", "fold", "expansion", "expanded", "half_angles", "chain", "forward", "backward",
+           "derivatives", "gather_for", "RoundTrip", "round_trip_for", "round_trip"]
 
 
 def parts(steps, layer_steps, slots, pauli, n):
@@ -118,12 +127,26 @@ def expansion(slots, pauli, pre, n):
 
 
 def expanded(expansion, table):
-    """The chain ``W`` (L, N, N) from an `expansion` and ``table`` (G + 1, 2), the cosine
-    and sine of half of every gate angle, then (1, 0)."""
+    """The chain ``W`` (L, N, N) from an `expansion` and ``table`` (G + 1, 2) of
+    `half_angles`; real when the expansion's terms are (``B`` (L, 2**k, N**2), the terms
+    of a `RoundTrip` on a real circuit)."""
     B, picks, N = expansion
     coef = np.take(table, picks).prod(axis=-1)                  # (L, 2**k)
     # real coefficients times the float view: a real product, no complex cast
-    return np.matmul(coef[:, None, :], B).view(complex).reshape(-1, N, N)
+    W = np.matmul(coef[:, None, :], B)
+    return (W if B.shape[-1] == N * N else W.view(complex)).reshape(-1, N, N)
+
+
+def half_angles(phi):
+    """(G + 1, 2): the cosine and sine of half of every gate angle ``phi`` (G,), then
+    (1, 0), the factors of a qubit without a gate."""
+    half = np.multiply(phi, 0.5)
+    t = np.empty((half.size + 1, 2))
+    np.cos(half, out=t[:-1, 0])
+    np.sin(half, out=t[:-1, 1])
+    t[-1, 0] = 1.0
+    t[-1, 1] = 0.0
+    return t
 
 
 def chain(K, pre):
@@ -143,7 +166,7 @@ def forward(W, end, states, start=0):
     if start == 0:
         states[0] = W[0, 0]                 # the first layer from |0>: row 0
     for b in range(max(start, 1), L):
-        np.matmul(states[b - 1], W[b], out=states[b])
+        np.dot(states[b - 1], W[b], out=states[b])      # dot: less overhead than matmul
     return states[-1].copy() if end is None else states[-1] @ end
 
 
@@ -151,14 +174,15 @@ def backward(W, end, lam, first, lams):
     """The bra at each layer's output from ``first`` on, into ``lams`` (L, N), from
     ``lam = O psi`` (N,) at the final state: ``lam_{l-1} = conj(W_l) lam_l``."""
     L = W.shape[0]
+    real = W.dtype.kind == "f"
     if end is None:
         lams[-1] = lam
     else:
-        np.matmul(np.conj(end), lam, out=lams[-1])
+        np.dot(end if real else np.conj(end), lam, out=lams[-1])
     if L - 1 > first:
-        Wc = np.conj(W[first + 1:])
+        Wc = W[first + 1:] if real else np.conj(W[first + 1:])
         for b in range(L - 1, first, -1):
-            np.matmul(Wc[b - first - 1], lams[b], out=lams[b - 1])
+            np.dot(Wc[b - first - 1], lams[b], out=lams[b - 1])
     return lams
 
 
@@ -189,3 +213,101 @@ def gather_for(comp, first):
         hit = comp.picks.setdefault(key, (None if sel.size == comp.n_columns else sel, (
             layers, layers[:, None] * N + comp.monomial[1][tab], comp.monomial[2][tab])))
     return hit
+
+
+@dataclass(frozen=True, eq=False)
+class RoundTrip:
+    """What `round_trip` reads for one observable on a circuit of Pauli rotations with
+    every qubit on one side: the layers' `expansion`, the run after the last layer, the
+    observable's matrix and each gate's ``-2i G`` as a whole-register matrix, all real when
+    all of them are (an RY and CZ circuit measured in Z and X: a real state throughout,
+    real products at a quarter of the arithmetic)."""
+
+    expansion: tuple          # (B, picks, N) of `expansion`, B real (L, 2**k, N**2) or the
+                              # float view of complex terms
+    observable: np.ndarray    # (N, N) at the last layer's output: ``conj(R) O R.T`` with the
+                              # run R after it (row form) folded in
+    slopes: np.ndarray        # (L - first, n N, N): layer l's n matrices -2i G (zeros on a
+                              # qubit without a gate) stacked, from layer ``first`` on
+    where: object             # (T,) each column's entry in the (L - first) x n products,
+                              # None when they are in order
+    sel: object               # the columns differentiated, None for every column
+    n_columns: int
+    first: int                # the earliest layer differentiated (the backward pass stops there)
+
+
+def round_trip_for(comp, observable, first):
+    """The `RoundTrip` of a compiled `qgradlib.engine.sides.Sides` with every qubit on one
+    side and ``observable`` (N, N), differentiating the columns of layers from ``first``
+    on; None when the layers have no expansion or no column is differentiated."""
+    if comp.whole is None or comp.whole[2] is None or comp.monomial is None \
+            or first >= comp.n_layers:
+        return None
+    _, end, (B, picks, N) = comp.whole
+    n, L = comp.n, comp.n_layers
+    table, flips, phases = comp.monomial
+    # -2i G psi = phases * psi[flips]: the matrix with phases[i] at (i, flips[i])
+    mono = np.zeros((len(flips), N, N), dtype=complex)
+    mono[np.arange(len(flips))[:, None], np.arange(N), flips] = phases
+    slots = comp.slots_b[first:]                               # (L - first, n)
+    slopes = np.zeros((L - first, n, N, N), dtype=complex)
+    has = slots < comp.n_columns
+    slopes[has] = mono[table[slots[has]]]
+    sel = np.flatnonzero(comp.layer >= first)
+    where = (comp.layer[sel] - first) * n + comp.qubit[sel]
+    if end is not None:
+        # <psi R|O|psi R> of the last layer's output psi: two products fewer a call
+        observable = np.conj(end) @ observable @ end.T
+    terms = B.view(complex)
+    if not (np.any(terms.imag) or np.any(observable.imag) or np.any(slopes.imag)):
+        B = np.ascontiguousarray(terms.real)
+        observable = observable.real
+        slopes = slopes.real
+    slopes = np.ascontiguousarray(slopes).reshape(L - first, n * N, N)
+    observable = np.ascontiguousarray(observable)
+    if np.array_equal(where, np.arange((L - first) * n)):
+        where = None
+    for a in (B, observable, slopes, where):
+        if a is not None:
+            a.flags.writeable = False
+    return RoundTrip((B, picks, N), observable, slopes, where,
+                     None if sel.size == comp.n_columns else sel, comp.n_columns, first)
+
+
+def round_trip(trip, phi):
+    """``(value, dE/dphi (G,))`` of a `RoundTrip`'s observable at gate angles ``phi`` (G,):
+    the forward pass, ``O psi``, the backward pass and every layer's ``Re lam^H (-2i G) psi``
+    in one call, nothing kept.
+
+    Examples
+    --------
+    >>> import numpy as np
+    >>> import qgradlib as qg
+    >>> from qgradlib.engine import sides
+    >>> c = qg.Circuit(3).rx(0).ry(2).cnot(0, 1).ry(1)
+    >>> Z0 = np.kron(np.diag([1.0, -1.0]), np.eye(4))          # Z on qubit 0 (leftmost)
+    >>> value, d = round_trip(round_trip_for(sides.compiled(c), Z0, 0), [0.3, -0.5, 0.9])
+    >>> bool(np.isclose(value, np.cos(0.3)))                    # <Z0> after RX(0.3)
+    True
+    >>> bool(np.allclose(d, [-np.sin(0.3), 0.0, 0.0]))
+    True
+    """
+    W = expanded(trip.expansion, half_angles(phi))
+    kets = np.empty((2,) + W.shape[:2], dtype=W.dtype)
+    psi = forward(W, None, kets[0])
+    lam = trip.observable @ psi
+    value = float(np.vdot(psi, lam).real)
+    lams = backward(W, None, lam, trip.first, kets[1])[trip.first:, :, None]
+    L, N = trip.slopes.shape[0], W.shape[1]
+    moved = np.matmul(trip.slopes, kets[0, trip.first:, :, None]).reshape(L, -1, N)
+    if W.dtype.kind == "f":
+        d = np.matmul(moved, lams).reshape(-1)
+    else:
+        d = np.matmul(moved, np.conj(lams)).real.reshape(-1)
+    if trip.where is not None:
+        d = np.take(d, trip.where)
+    if trip.sel is None:
+        return value, d
+    grad = np.zeros(trip.n_columns)
+    grad[trip.sel] = d
+    return value, grad

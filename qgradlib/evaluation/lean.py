@@ -9,7 +9,10 @@ same circuit, observables and options go straight from ``theta`` to the value:
 
 - one primitive, `lane_value`, from ``theta`` (m,) to the value(s); its VJP (registered
   below it) applies the angle map's transpose ``A.T`` itself, after
-  - with ``gradient="adjoint"``: the adjoint backward pass from the forward call's states,
+  - with ``gradient="adjoint"``, one observable and every qubit on one side (up to
+    `DENSE_QUBITS`) with Pauli rotations: nothing but a scale, the forward call having
+    computed ``dE/dphi`` with the value (`qgradlib.engine.whole.round_trip`);
+  - else with ``gradient="adjoint"``: the adjoint backward pass from the forward call's states,
     by layers (`qgradlib.engine.sides`: circuits whose parametric gates act on one qubit,
     their kept states; one traced observable gets ``O psi`` in the forward call already) or
     gate by gate (`qgradlib.engine.small`);
@@ -57,7 +60,7 @@ from autograd.tracer import Box
 
 from . import ledger
 from ..circuits.circuit import MAX_ANGLE
-from ..engine import memory, sides, small
+from ..engine import memory, sides, small, whole
 from ..engine.adjoint import adjoint_gradient, adjoint_states, lean_backward
 from ..engine.threads import engine_threads
 from ..engine.measure import apply_observables, expectations, observable_pieces, observable_scratch
@@ -111,6 +114,8 @@ class Lane:
     covered: bool            # every parameter is read by a gate with a nonzero scale
     peak: object             # rows -> the states the general path guards for them at once
                              # (`qgradlib.evaluation.rows.peak_states`)
+    trip: object = None      # a traced adjoint call on up to `DENSE_QUBITS` qubits of Pauli
+                             # rotations: its `qgradlib.engine.whole.RoundTrip`, else None
 
     def to_theta(self, dphi):
         """The chain rule through phi = A theta + b: ``A.T @ dphi`` (m,), A one entry a row
@@ -140,6 +145,12 @@ class Lane:
         what the layered gradient reads."""
         n = self.circuit.n_qubits
         kept = None
+        if keep and self.trip is not None:
+            # the value and its derivatives in one pass: the VJP only scales them
+            memory.guard(self.kept_bytes, self.kept_what)
+            value, dphi = whole.round_trip(self.trip, phi[0])
+            ledger.record(1, self.settings, 0, {"value": 1})
+            return (value,), None, dphi
         if self.layered and keep:
             memory.guard(self.kept_bytes, self.kept_what)
         else:
@@ -165,7 +176,9 @@ class Lane:
 
     def gradient(self, phi, psi, g, kept=None):
         """``sum_k g[k] dE_k/dtheta`` (m,) from the final state ``psi`` (1, 2**n) at ``phi``
-        (and the kept run of a layered circuit)."""
+        (and the kept run of a layered circuit, or the derivatives of a round trip)."""
+        if type(kept) is np.ndarray:
+            return self.to_theta(kept * g)
         if type(kept) is tuple:
             # one observable: g is the cotangent of its value (a scalar)
             kept, lam = kept
@@ -229,8 +242,11 @@ def lane_for(spec, single, shifts=None):
             first = min((int(comp.layer[k]) for k in want), default=comp.n_layers)
             kept = _guarded(n, states, "the adjoint method on 1 row(s), states kept a layer")
     pieces = observable_pieces(n, spec.observables[0]) if layered and single else None
+    trip = None
     if pieces is not None and n <= DENSE_QUBITS:
         pieces = _dense(pieces, n)
+        if spec.gradient == "adjoint":
+            trip = whole.round_trip_for(sides.compiled(c), pieces, first)
     return Lane(c, tuple(spec.observables), bool(single), spec.gradient == "adjoint",
                 np.asarray(idx, dtype=np.intp), np.asarray(scale, dtype=float),
                 np.asarray(b, dtype=float), c.n_params, want, spec.settings,
@@ -238,7 +254,7 @@ def lane_for(spec, single, shifts=None):
                 idx.size == c.n_params and np.array_equal(idx, np.arange(idx.size))
                 and np.all(scale == 1) and not np.any(b),
                 set(np.asarray(idx)[np.asarray(scale) != 0].tolist()) == set(range(c.n_params)),
-                lambda rows: peak_states(spec, rows))
+                lambda rows: peak_states(spec, rows), trip)
 
 
 def _dense(pieces, n):
